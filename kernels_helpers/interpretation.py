@@ -1,0 +1,234 @@
+"""The interpretation file: every decision the engineer made, and what the tool suggested.
+
+JSON with sorted keys and two-space indentation, so two versions diff cleanly in version control.
+Saves are atomic (a temporary file in the same folder, flushed, then renamed over the old one). A
+corrupt file, or one written by a newer Shearbook, raises :class:`InterpretationFileError` and is
+never overwritten.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import os
+import tempfile
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, Final, Literal
+
+from .errors import InterpretationFileError
+from .picks import PickSettings
+from .reduce import ReductionSettings
+
+__all__ = [
+    "INTERPRETATION_FILE",
+    "FitSettings",
+    "Interpretation",
+    "PeakChoice",
+    "Settings",
+    "SignOff",
+    "StageDecision",
+    "WindowChoice",
+    "load_interpretation",
+    "save_interpretation",
+]
+
+INTERPRETATION_FILE: Final = "interpretation.json"
+SCHEMA: Final = "shearbook.interpretation/1"
+SCHEMA_VERSION: Final = 1
+Source = Literal["suggested", "manual"]
+
+
+def utc_now() -> str:
+    """Current UTC time as ISO 8601 to the second, e.g. ``2026-12-01T10:00:00Z``."""
+    return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """Envelope options: which c' the reported parameters use, and the confidence level."""
+
+    cohesion: Literal["free", "zero"] = "free"
+    level: float = 0.95
+
+    def __post_init__(self) -> None:
+        if self.cohesion not in ("free", "zero"):
+            raise ValueError(f"cohesion must be 'free' or 'zero', not {self.cohesion!r}")
+        if not 0.5 < self.level < 1:
+            raise ValueError(f"level must be between 0.5 and 1, not {self.level!r}")
+
+
+@dataclass(frozen=True)
+class Settings:
+    """All settings that change numbers: reduction, suggestion rules and fits."""
+
+    reduction: ReductionSettings = field(default_factory=ReductionSettings)
+    picks: PickSettings = field(default_factory=PickSettings)
+    fit: FitSettings = field(default_factory=FitSettings)
+
+
+@dataclass(frozen=True)
+class PeakChoice:
+    """The peak pick of a stage: the suggestion, or a manual displacement (mm) with who, when, why."""
+
+    source: Source = "suggested"
+    x_mm: float | None = None
+    author: str = ""
+    time_utc: str = ""
+    note: str = ""
+
+    def __post_init__(self) -> None:
+        if self.source == "manual" and self.x_mm is None:
+            raise ValueError("a manual peak pick needs x_mm")
+
+
+@dataclass(frozen=True)
+class WindowChoice:
+    """The critical-state pick: the suggested window, or a manual one (mm) with who, when, why."""
+
+    source: Source = "suggested"
+    x_from_mm: float | None = None
+    x_to_mm: float | None = None
+    author: str = ""
+    time_utc: str = ""
+    note: str = ""
+
+    def __post_init__(self) -> None:
+        if self.source == "manual" and (self.x_from_mm is None or self.x_to_mm is None):
+            raise ValueError("a manual critical-state window needs x_from_mm and x_to_mm")
+
+
+@dataclass(frozen=True)
+class StageDecision:
+    """Inclusion of a stage (a reason is required to exclude it), its picks and a free note."""
+
+    included: bool = True
+    exclusion_reason: str = ""
+    note: str = ""
+    peak: PeakChoice = field(default_factory=PeakChoice)
+    critical_state: WindowChoice = field(default_factory=WindowChoice)
+
+    def __post_init__(self) -> None:
+        if not self.included and not self.exclusion_reason.strip():
+            raise ValueError("a stage can only be excluded with a stated reason")
+
+
+@dataclass(frozen=True)
+class SignOff:
+    """Sign-off state with its history: draft -> checked -> approved (who and when)."""
+
+    state: Literal["draft", "checked", "approved"] = "draft"
+    history: tuple[Mapping[str, str], ...] = ()
+
+
+@dataclass(frozen=True)
+class Interpretation:
+    """The engineer's decisions for a project; the single source of truth for the widgets."""
+
+    stages: Mapping[str, StageDecision] = field(default_factory=dict)
+    settings: Settings = field(default_factory=Settings)
+    raw_files: Mapping[str, str] = field(default_factory=dict)  # relpath -> SHA-256 when last saved
+    signoff: SignOff = field(default_factory=SignOff)
+    schema: str = SCHEMA
+
+    def decision(self, stage_id: str) -> StageDecision:
+        return self.stages.get(stage_id, StageDecision())
+
+    def with_decision(self, stage_id: str, decision: StageDecision) -> Interpretation:
+        return dataclasses.replace(self, stages={**self.stages, stage_id: decision})
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "schema": self.schema,
+            "schema_version": SCHEMA_VERSION,
+            "settings": dataclasses.asdict(self.settings),
+            "stages": {k: dataclasses.asdict(v) for k, v in sorted(self.stages.items())},
+            "raw_files": dict(sorted(self.raw_files.items())),
+            "signoff": {"state": self.signoff.state, "history": [dict(h) for h in self.signoff.history]},
+        }
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), indent=2, sort_keys=True, ensure_ascii=False) + "\n"
+
+    @property
+    def sha256(self) -> str:
+        """SHA-256 of the canonical JSON text (what :func:`save_interpretation` writes)."""
+        return hashlib.sha256(self.to_json().encode("utf-8")).hexdigest()
+
+
+def _build(cls: type, data: Any, where: str) -> Any:
+    if not isinstance(data, Mapping):
+        raise InterpretationFileError(f"{where}: expected an object, found {type(data).__name__}.")
+    names = {f.name for f in dataclasses.fields(cls)}
+    unknown = sorted(set(data) - names)
+    if unknown:
+        raise InterpretationFileError(f"{where}: unknown field(s) {', '.join(unknown)}.")
+    try:
+        return cls(**data)
+    except (TypeError, ValueError) as exc:
+        raise InterpretationFileError(f"{where}: {exc}.") from exc
+
+
+def from_dict(data: Mapping[str, Any], where: str) -> Interpretation:
+    """Build an :class:`Interpretation` from parsed JSON, naming the field at fault on error."""
+    if data.get("schema") != SCHEMA:
+        raise InterpretationFileError(f"{where}: not a Shearbook interpretation file (schema {data.get('schema')!r}).")
+    version = data.get("schema_version")
+    if not isinstance(version, int) or version > SCHEMA_VERSION:
+        raise InterpretationFileError(
+            f"{where}: written with schema version {version!r}; this Shearbook reads up to {SCHEMA_VERSION}. "
+            "Upgrade Shearbook; the file is left untouched."
+        )
+    s = data.get("settings", {})
+    settings = Settings(
+        reduction=_build(ReductionSettings, s.get("reduction", {}), f"{where} settings.reduction"),
+        picks=_build(PickSettings, s.get("picks", {}), f"{where} settings.picks"),
+        fit=_build(FitSettings, s.get("fit", {}), f"{where} settings.fit"),
+    )
+    stages = {}
+    for sid, raw in data.get("stages", {}).items():
+        w = f"{where} stages.{sid}"
+        raw = dict(raw)
+        peak = _build(PeakChoice, raw.pop("peak", {}), f"{w}.peak")
+        cs = _build(WindowChoice, raw.pop("critical_state", {}), f"{w}.critical_state")
+        stages[sid] = _build(StageDecision, {**raw, "peak": peak, "critical_state": cs}, w)
+    so = data.get("signoff", {})
+    signoff = _build(SignOff, {**so, "history": tuple(so.get("history", ()))}, f"{where} signoff")
+    return Interpretation(stages=stages, settings=settings, raw_files=dict(data.get("raw_files", {})), signoff=signoff)
+
+
+def load_interpretation(path: str | Path) -> Interpretation:
+    """Read an interpretation file; a missing file gives the all-suggested default."""
+    p = Path(path)
+    if not p.exists():
+        return Interpretation()
+    try:
+        data = json.loads(p.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InterpretationFileError(
+            f"{p}: not valid JSON ({exc}). The file is left untouched; restore it from version control or a backup."
+        ) from exc
+    if not isinstance(data, Mapping):
+        raise InterpretationFileError(f"{p}: expected a JSON object at the top level.")
+    return from_dict(data, str(p))
+
+
+def save_interpretation(interpretation: Interpretation, path: str | Path) -> Path:
+    """Write the interpretation atomically: temporary file in the same folder, fsync, rename."""
+    p = Path(path)
+    if p.exists():
+        load_interpretation(p)  # never overwrite a file we cannot read (corrupt or newer schema)
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(interpretation.to_json())
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, p)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return p

@@ -1,0 +1,166 @@
+"""Suggested picks on a reduced stage, and evaluation of any pick on its curve.
+
+Rules (also stated in the contributor guide and the record):
+
+* **Peak** - the reading of maximum lightly smoothed shear stress (Savitzky-Golay, window
+  ``peak_smoothing_mm``), seating readings ignored. When that maximum exceeds the critical-state
+  stress by less than ``distinct_peak_margin`` (a fraction), or lies inside the critical-state
+  window, the stage has "no distinct peak" and takes no part in the peak envelope.
+* **Critical state** - the mean shear stress over the last ``cs_window_mm`` of travel. It is
+  "reached" when, over that window, the mean rate of dilation is within ``cs_rate_tolerance`` of
+  zero and the fitted trend of the stress ratio tau/sigma changes it by less than
+  ``cs_trend_tolerance`` (a fraction of the mean) across the window (the ratio, not tau: on the
+  corrected area both stresses grow as the contact shrinks while the strength is steady). Otherwise the value is still reported, with the flag
+  "critical state not reached" and the numbers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .reduce import ReducedStage
+
+__all__ = ["PickSettings", "PointValues", "WindowValues", "at_point", "over_window", "suggest_critical_state", "suggest_peak"]
+
+
+@dataclass(frozen=True)
+class PickSettings:
+    """Tolerances of the suggestion rules (see the module docstring)."""
+
+    cs_window_mm: float = 2.0
+    cs_rate_tolerance: float = 0.01
+    cs_trend_tolerance: float = 0.02
+    distinct_peak_margin: float = 0.03
+
+    def __post_init__(self) -> None:
+        for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin"):
+            if not getattr(self, name) > 0:
+                raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
+
+
+@dataclass(frozen=True)
+class PointValues:
+    """The state of a stage at one reading (a peak pick)."""
+
+    index: int  # row of the reading in the curve
+    x_mm: float
+    tau_kpa: float  # lightly smoothed shear stress at the reading
+    tau_raw_kpa: float  # the reading itself
+    sigma_kpa: float
+    e: float
+    dydx: float
+
+    @property
+    def ratio(self) -> float:
+        return self.tau_kpa / self.sigma_kpa
+
+
+@dataclass(frozen=True)
+class WindowValues:
+    """Means over a window of readings (a critical-state pick)."""
+
+    x_from_mm: float
+    x_to_mm: float
+    n_readings: int
+    tau_kpa: float
+    tau_sd_kpa: float
+    sigma_kpa: float
+    e: float
+    dydx: float
+    ratio_trend_fraction: float  # change of tau/sigma across the window by a fitted line, / its mean
+    flags: tuple[str, ...] = field(default=())
+
+    @property
+    def ratio(self) -> float:
+        return self.tau_kpa / self.sigma_kpa
+
+
+def _shear_rows(curve: pd.DataFrame) -> pd.DataFrame:
+    return curve[curve["in_shear"].to_numpy()]
+
+
+def at_point(reduced: ReducedStage, x_mm: float) -> PointValues:
+    """Values at the shearing reading nearest to ``x_mm`` (a pick snaps to the readings)."""
+    rows = _shear_rows(reduced.curve)
+    i = int(np.argmin(np.abs(rows["x_mm"].to_numpy() - x_mm)))
+    r = rows.iloc[i]
+    return PointValues(
+        index=int(rows.index[i]),
+        x_mm=float(r["x_mm"]),
+        tau_kpa=float(r["tau_smooth_kpa"]),
+        tau_raw_kpa=float(r["tau_kpa"]),
+        sigma_kpa=float(r["sigma_kpa"]),
+        e=float(r["e"]),
+        dydx=float(r["dydx"]),
+    )
+
+
+def over_window(reduced: ReducedStage, x_from_mm: float, x_to_mm: float, settings: PickSettings) -> WindowValues:
+    """Means of the shearing readings with ``x_from_mm <= x <= x_to_mm``, and the steadiness flags."""
+    lo, hi = sorted((x_from_mm, x_to_mm))
+    rows = _shear_rows(reduced.curve)
+    x = rows["x_mm"].to_numpy()
+    sel = rows[(x >= lo) & (x <= hi)]
+    if len(sel) < 5:
+        raise ValueError(f"window {lo:.3f}-{hi:.3f} mm holds {len(sel)} readings; it needs at least 5")
+    tau = sel["tau_kpa"].to_numpy()
+    ratio = sel["ratio"].to_numpy()
+    xs = sel["x_mm"].to_numpy()
+    mean_tau = float(np.mean(tau))
+    # The trend is judged on tau/sigma: on the corrected area both stresses rise as the contact
+    # area shrinks even when the soil's strength is steady.
+    slope = float(np.polyfit(xs, ratio, 1)[0]) if np.ptp(xs) > 0 else 0.0
+    trend = slope * (hi - lo) / float(np.mean(ratio))
+    rate = float(np.mean(sel["dydx"].to_numpy()))
+    flags: list[str] = []
+    if abs(rate) > settings.cs_rate_tolerance:
+        sense = "dilating" if rate > 0 else "contracting"
+        flags.append(
+            f"critical state not reached: still {sense}, mean dy/dx {rate:+.4f} over {lo:.2f}-{hi:.2f} mm "
+            f"(tolerance {settings.cs_rate_tolerance:g})"
+        )
+    if abs(trend) > settings.cs_trend_tolerance:
+        sense = "rising" if trend > 0 else "falling"
+        flags.append(
+            f"critical state not reached: stress ratio still {sense}, {trend * 100:+.1f} % across "
+            f"{lo:.2f}-{hi:.2f} mm (tolerance {settings.cs_trend_tolerance * 100:g} %)"
+        )
+    return WindowValues(
+        x_from_mm=lo,
+        x_to_mm=hi,
+        n_readings=len(sel),
+        tau_kpa=mean_tau,
+        tau_sd_kpa=float(np.std(tau, ddof=1)),
+        sigma_kpa=float(np.mean(sel["sigma_kpa"].to_numpy())),
+        e=float(np.mean(sel["e"].to_numpy())),
+        dydx=rate,
+        ratio_trend_fraction=trend,
+        flags=tuple(flags),
+    )
+
+
+def suggest_critical_state(reduced: ReducedStage, settings: PickSettings) -> tuple[float, float]:
+    """Suggested critical-state window: the last ``cs_window_mm`` of travel, as (from, to) in mm."""
+    x = _shear_rows(reduced.curve)["x_mm"].to_numpy()
+    x_end = float(np.max(x))
+    return max(float(np.min(x)), x_end - settings.cs_window_mm), x_end
+
+
+def suggest_peak(reduced: ReducedStage, cs: WindowValues, settings: PickSettings) -> tuple[float, str | None]:
+    """Suggested peak position (mm) and, when there is no distinct peak, the reason in words."""
+    rows = _shear_rows(reduced.curve)
+    i = int(np.argmax(rows["tau_smooth_kpa"].to_numpy()))
+    x_peak = float(rows["x_mm"].iloc[i])
+    tau_peak = float(rows["tau_smooth_kpa"].iloc[i])
+    excess = tau_peak / cs.tau_kpa - 1.0
+    if x_peak >= cs.x_from_mm:
+        return x_peak, "no distinct peak: the maximum shear stress lies in the critical-state window"
+    if excess < settings.distinct_peak_margin:
+        return x_peak, (
+            f"no distinct peak: the maximum shear stress exceeds the critical state by {excess * 100:.1f} % "
+            f"(less than {settings.distinct_peak_margin * 100:g} %)"
+        )
+    return x_peak, None

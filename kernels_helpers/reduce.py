@@ -1,0 +1,225 @@
+"""Reduction of a stage's readings: areas, stresses, void ratio and rate of dilation.
+
+Pure functions: plain arrays and records in, plain arrays and records out. Units: mm, N, kPa, g.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+from scipy.signal import savgol_filter
+
+from .errors import ReadingsError
+from .project import Specimen, StageSpec
+from .readings import StageReadings
+
+__all__ = [
+    "ReducedStage",
+    "ReductionSettings",
+    "corrected_area_mm2",
+    "dilation_rate",
+    "height_of_solids_mm",
+    "reduce_stage",
+    "seating_shift_mm",
+    "smooth_on_x",
+    "void_ratio",
+]
+
+AreaConvention = Literal["corrected", "nominal"]
+
+
+@dataclass(frozen=True)
+class ReductionSettings:
+    """Settings of the reduction, recorded in the interpretation file and the record.
+
+    Attributes
+    ----------
+    area_convention
+        ``"corrected"`` divides forces by the overlap area of the two halves of the box at the
+        current displacement (default); ``"nominal"`` by the initial plan area.
+    smoothing_window_mm
+        Width of the Savitzky-Golay window (quadratic) used for the rate of dilation, in mm of
+        horizontal displacement, on a curve resampled at a uniform step of window/25.
+    peak_smoothing_mm
+        Width of the light Savitzky-Golay smoothing of the shear stress used to locate picks.
+    seating_fraction
+        The start of shear is taken where the shear force first reaches this fraction of its
+        maximum; the horizontal displacement before it is seating slack.
+    """
+
+    area_convention: AreaConvention = "corrected"
+    smoothing_window_mm: float = 0.5
+    seating_fraction: float = 0.02
+    peak_smoothing_mm: float = 0.25
+
+    def __post_init__(self) -> None:
+        if self.area_convention not in ("corrected", "nominal"):
+            raise ValueError(f"area_convention must be 'corrected' or 'nominal', not {self.area_convention!r}")
+        if not self.smoothing_window_mm > 0:
+            raise ValueError(f"smoothing_window_mm must be positive, not {self.smoothing_window_mm!r}")
+        if not self.peak_smoothing_mm > 0:
+            raise ValueError(f"peak_smoothing_mm must be positive, not {self.peak_smoothing_mm!r}")
+        if not 0 < self.seating_fraction < 0.5:
+            raise ValueError(f"seating_fraction must be between 0 and 0.5, not {self.seating_fraction!r}")
+
+
+def corrected_area_mm2(shape: str, width_mm: float, d_mm: np.ndarray | float) -> np.ndarray:
+    """Contact area between the two halves of the box after a relative displacement ``d``.
+
+    Square box of side L: ``L (L - d)``. Circular box of diameter D: the lens where two equal
+    circles overlap, ``(D^2/2) [acos(d/D) - (d/D) sqrt(1 - (d/D)^2)]``.
+    """
+    d = np.abs(np.asarray(d_mm, dtype=float))
+    if np.any(d >= width_mm):
+        raise ValueError(f"displacement reaches the box width ({width_mm} mm): no contact area left")
+    if shape == "square":
+        return width_mm * (width_mm - d)
+    r = d / width_mm
+    return width_mm**2 / 2.0 * (np.arccos(r) - r * np.sqrt(1.0 - r**2))
+
+
+def height_of_solids_mm(specimen: Specimen) -> float:
+    """Equivalent height of solids H_s = M_s / (G_s rho_w A), rho_w = 1 g/cm3 (mm)."""
+    return specimen.dry_mass_g * 1000.0 / (specimen.gs * specimen.area0_mm2)
+
+
+def void_ratio(height_mm: np.ndarray | float, hs_mm: float) -> np.ndarray:
+    """Void ratio e = (H - H_s) / H_s from the current specimen height."""
+    return (np.asarray(height_mm, dtype=float) - hs_mm) / hs_mm
+
+
+def seating_shift_mm(x_mm: np.ndarray, force_n: np.ndarray, fraction: float) -> tuple[float, int]:
+    """Horizontal displacement taken up as seating slack, and the index where shear starts.
+
+    Shear starts at the first reading whose force reaches ``fraction`` of the maximum force. The
+    shift is where the straight line through the readings between that point and 5 x ``fraction``
+    of the maximum crosses zero force, kept between the first reading and the start of shear.
+    """
+    fmax = float(np.max(force_n))
+    if fmax <= 0:
+        raise ValueError("shear force never rises above zero")
+    start = int(np.argmax(force_n >= fraction * fmax))
+    upper = int(np.argmax(force_n >= 5 * fraction * fmax))
+    x0 = float(x_mm[0])
+    if upper - start >= 2:
+        slope, intercept = np.polyfit(x_mm[start : upper + 1], force_n[start : upper + 1], 1)
+        shift = -intercept / slope if slope > 0 else float(x_mm[start])
+    else:
+        shift = float(x_mm[start])
+    return float(np.clip(shift, x0, float(x_mm[start]))), start
+
+
+def dilation_rate(x_mm: np.ndarray, y_mm: np.ndarray, window_mm: float) -> np.ndarray:
+    """Rate of dilation dy/dx at each reading (dimensionless, positive while dilating).
+
+    The curve y(x) is resampled on a uniform step of window/25 (readings taken in order of x),
+    differentiated with a quadratic Savitzky-Golay filter over ``window_mm`` and interpolated back
+    to the readings. The readings themselves are not altered.
+    """
+    return smooth_on_x(x_mm, y_mm, window_mm, deriv=1)
+
+
+def smooth_on_x(x_mm: np.ndarray, v: np.ndarray, window_mm: float, deriv: int = 0) -> np.ndarray:
+    """Savitzky-Golay smoothing (``deriv=0``) or slope (``deriv=1``) of ``v`` against ``x``.
+
+    ``v`` is resampled on a uniform step of window/25 in order of x, filtered with a quadratic
+    over 51 points (the window) and interpolated back to the readings' x.
+    """
+    order = np.argsort(x_mm, kind="stable")
+    xs, vs = x_mm[order], v[order]
+    span = float(xs[-1] - xs[0])
+    step = window_mm / 25.0
+    if span < 2 * window_mm:
+        raise ValueError(f"horizontal travel {span:.3f} mm is shorter than twice the smoothing window")
+    grid = np.arange(xs[0], xs[-1] + step / 2, step)
+    vg = np.interp(grid, xs, vs)
+    out = savgol_filter(vg, window_length=51, polyorder=2, deriv=deriv, delta=step, mode="interp")
+    return np.interp(x_mm, grid, out)
+
+
+@dataclass(frozen=True)
+class ReducedStage:
+    """A reduced stage: one row per reading plus the scalars of the reduction.
+
+    ``curve`` columns: ``time_s``, ``x_raw_mm`` (as read), ``x_mm`` (after the seating shift),
+    ``y_mm`` (dilation positive, zero at the first reading), ``area_mm2`` (the area forces were
+    divided by), ``tau_kpa``, ``tau_smooth_kpa`` (lightly smoothed, to locate picks), ``sigma_kpa``, ``ratio`` (tau/sigma), ``height_mm``, ``e``,
+    ``dydx`` and ``in_shear`` (False for seating readings, which are kept but not used for picks).
+    """
+
+    stage_id: str
+    curve: pd.DataFrame
+    seating_shift_mm: float
+    hs_mm: float
+    e_initial: float  # before consolidation
+    e_start: float  # at the start of shear (after consolidation)
+    normal_force_n: float
+    area0_mm2: float
+    area_convention: AreaConvention
+
+
+def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionSettings) -> ReducedStage:
+    """Reduce one stage's readings to stresses, void ratio and rate of dilation."""
+    t = readings.table
+    if "shear_force_n" not in t:
+        raise ReadingsError(
+            f"{stage.file}: only shear forces are reduced in this version; map a shear_force column."
+        )
+    x_raw = t["x_mm"].to_numpy()
+    force = t["shear_force_n"].to_numpy()
+    try:
+        shift, start = seating_shift_mm(x_raw, force, settings.seating_fraction)
+    except ValueError as exc:
+        raise ReadingsError(f"{stage.file}: {exc}; check the shear force column and its unit.") from exc
+    x = x_raw - shift
+    spec = stage.specimen
+    if settings.area_convention == "corrected":
+        area = corrected_area_mm2(spec.shape, spec.width_mm, np.clip(x, 0.0, None))
+    else:
+        area = np.full_like(x, spec.area0_mm2)
+    y = t["y_mm"].to_numpy() - float(t["y_mm"].iloc[0])
+    normal = stage.normal_load.force_n
+    tau = force / area * 1000.0  # N/mm2 -> kPa
+    sigma = normal / area * 1000.0
+    hs = height_of_solids_mm(spec)
+    h_start = spec.height_mm - spec.consolidation_settlement_mm
+    height = h_start + y
+    in_shear = np.arange(len(x)) >= start
+    dydx = np.full_like(x, np.nan)
+    tau_smooth = np.full_like(x, np.nan)
+    try:
+        dydx[in_shear] = dilation_rate(x[in_shear], y[in_shear], settings.smoothing_window_mm)
+        tau_smooth[in_shear] = smooth_on_x(x[in_shear], tau[in_shear], settings.peak_smoothing_mm)
+    except ValueError as exc:
+        raise ReadingsError(f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column.") from exc
+    curve = pd.DataFrame(
+        {
+            "time_s": t["time_s"].to_numpy(),
+            "x_raw_mm": x_raw,
+            "x_mm": x,
+            "y_mm": y,
+            "area_mm2": area,
+            "tau_kpa": tau,
+            "tau_smooth_kpa": tau_smooth,
+            "sigma_kpa": sigma,
+            "ratio": tau / sigma,
+            "height_mm": height,
+            "e": void_ratio(height, hs),
+            "dydx": dydx,
+            "in_shear": in_shear,
+        }
+    )
+    return ReducedStage(
+        stage_id=stage.id,
+        curve=curve,
+        seating_shift_mm=shift,
+        hs_mm=hs,
+        e_initial=float(void_ratio(spec.height_mm, hs)),
+        e_start=float(void_ratio(h_start, hs)),
+        normal_force_n=normal,
+        area0_mm2=spec.area0_mm2,
+        area_convention=settings.area_convention,
+    )

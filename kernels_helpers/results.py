@@ -1,0 +1,192 @@
+"""The results object: everything :func:`kernels_helpers.interpret` computes, as plain records.
+
+``Results.to_dict()`` is the documented JSON form (schema ``shearbook.results/1``); it holds no
+time stamp, so two runs on the same inputs and versions give identical text.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from .envelope import LineFit
+from .picks import PointValues, WindowValues
+from .reduce import ReducedStage
+
+__all__ = ["EnvelopeResult", "Results", "StageResult"]
+
+RESULTS_SCHEMA = "shearbook.results/1"
+
+
+@dataclass(frozen=True)
+class StageResult:
+    """One stage: its reduction, the suggested and the chosen picks, and its flags."""
+
+    stage_id: str
+    test_set: str
+    stratum: str
+    relpath: str
+    sha256: str
+    size_bytes: int
+    reduced: ReducedStage
+    included: bool
+    exclusion_reason: str
+    note: str
+    peak_source: str
+    peak_suggested: PointValues
+    peak: PointValues
+    peak_note: str
+    no_distinct_peak: str | None  # reason in words, or None when the peak is distinct
+    cs_source: str
+    cs_suggested: WindowValues
+    cs: WindowValues
+    cs_note: str
+    flags: tuple[str, ...]
+    stale: bool  # the raw file changed since the interpretation was saved
+
+    @property
+    def sigma_nominal_kpa(self) -> float:
+        """Normal stress on the nominal (initial) area, kPa: the stage's label."""
+        return self.reduced.normal_force_n / self.reduced.area0_mm2 * 1000.0
+
+
+@dataclass(frozen=True)
+class EnvelopeResult:
+    """One envelope (peak or critical state) through one group of stages."""
+
+    group: str
+    kind: str  # "peak" or "critical_state"
+    stage_ids: tuple[str, ...]
+    sigma_kpa: tuple[float, ...]
+    tau_kpa: tuple[float, ...]
+    free: LineFit | None
+    origin: LineFit | None
+    reported: str  # "free" or "zero": which fit gives the reported c' and phi'
+    not_fitted: str | None = None
+
+    @property
+    def chosen(self) -> LineFit | None:
+        return self.origin if self.reported == "zero" else self.free
+
+
+def _fit_dict(fit: LineFit | None) -> dict[str, Any] | None:
+    if fit is None:
+        return None
+    d = dataclasses.asdict(fit)
+    d.update(
+        phi_deg=fit.phi_deg,
+        phi_interval_deg=list(fit.phi_interval_deg),
+        c_kpa=fit.intercept,
+        c_interval_kpa=list(fit.c_interval_kpa),
+        negative_cohesion=fit.negative_cohesion,
+        residuals=list(fit.residuals),
+    )
+    return d
+
+
+def _point(p: PointValues) -> dict[str, Any]:
+    d = dataclasses.asdict(p)
+    d["ratio"] = p.ratio
+    d["phi_secant_deg"] = math.degrees(math.atan(p.ratio))
+    return d
+
+
+def _window(w: WindowValues) -> dict[str, Any]:
+    d = dataclasses.asdict(w)
+    d["flags"] = list(w.flags)
+    d["ratio"] = w.ratio
+    d["phi_secant_deg"] = math.degrees(math.atan(w.ratio))
+    return d
+
+
+@dataclass(frozen=True)
+class Results:
+    """All results of one interpretation of one project."""
+
+    project: Mapping[str, Any]
+    conventions: Mapping[str, Any]
+    settings: Mapping[str, Any]
+    stages: tuple[StageResult, ...]
+    envelopes: tuple[EnvelopeResult, ...]
+    provenance: Mapping[str, Any]
+
+    def stage(self, stage_id: str) -> StageResult:
+        for s in self.stages:
+            if s.stage_id == stage_id:
+                return s
+        raise KeyError(stage_id)
+
+    def envelope(self, group: str, kind: str) -> EnvelopeResult:
+        for e in self.envelopes:
+            if e.group == group and e.kind == kind:
+                return e
+        raise KeyError((group, kind))
+
+    def to_dict(self) -> dict[str, Any]:
+        stages = []
+        for s in self.stages:
+            r = s.reduced
+            stages.append(
+                {
+                    "id": s.stage_id,
+                    "test_set": s.test_set,
+                    "stratum": s.stratum,
+                    "file": s.relpath,
+                    "sha256": s.sha256,
+                    "size_bytes": s.size_bytes,
+                    "stale": s.stale,
+                    "normal_force_n": r.normal_force_n,
+                    "sigma_nominal_kpa": s.sigma_nominal_kpa,
+                    "e_initial": r.e_initial,
+                    "e_start": r.e_start,
+                    "seating_shift_mm": r.seating_shift_mm,
+                    "n_readings": len(r.curve),
+                    "included": s.included,
+                    "exclusion_reason": s.exclusion_reason,
+                    "note": s.note,
+                    "peak": {
+                        "source": s.peak_source,
+                        "note": s.peak_note,
+                        "no_distinct_peak": s.no_distinct_peak,
+                        "suggested": _point(s.peak_suggested),
+                        "chosen": _point(s.peak),
+                    },
+                    "critical_state": {
+                        "source": s.cs_source,
+                        "note": s.cs_note,
+                        "suggested": _window(s.cs_suggested),
+                        "chosen": _window(s.cs),
+                    },
+                    "flags": list(s.flags),
+                }
+            )
+        envelopes = [
+            {
+                "group": e.group,
+                "kind": e.kind,
+                "stage_ids": list(e.stage_ids),
+                "sigma_kpa": list(e.sigma_kpa),
+                "tau_kpa": list(e.tau_kpa),
+                "reported": e.reported,
+                "not_fitted": e.not_fitted,
+                "free": _fit_dict(e.free),
+                "origin": _fit_dict(e.origin),
+            }
+            for e in self.envelopes
+        ]
+        return {
+            "schema": RESULTS_SCHEMA,
+            "project": dict(self.project),
+            "conventions": dict(self.conventions),
+            "settings": dict(self.settings),
+            "stages": stages,
+            "envelopes": envelopes,
+            "provenance": dict(self.provenance),
+        }
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n"
