@@ -106,6 +106,8 @@ def fit_through_origin(sigma: Sequence[float], tau: Sequence[float], level: floa
     x, y = _as_arrays(sigma, tau, 2)
     n = len(x)
     sxx = float(np.sum(x**2))
+    if sxx == 0:
+        raise ValueError("all points have zero normal stress: no envelope through the origin can be fitted")
     slope = float(np.sum(x * y) / sxx)
     res = y - slope * x
     dof = n - 1

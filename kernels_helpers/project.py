@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Final, Literal
 
-from .errors import ProjectFileError
+from .errors import ProjectFileError, UnitError
 from .units import QUANTITY_OF, to_canonical_factor
 
 __all__ = [
@@ -219,11 +219,15 @@ def _columns(t: _Fields, file_label: str) -> dict[str, ColumnSpec]:
                 f"{where}: say which way the vertical gauge reads on dilation: add dilation = \"positive\" "
                 "(reading grows when the specimen gets taller) or \"negative\". Shearbook never guesses it."
             )
+        try:
+            factor = to_canonical_factor(unit, quantity, f"{where} ({file_label})")
+        except UnitError as exc:  # load_project raises ProjectFileError for anything wrong in the file
+            raise ProjectFileError(str(exc)) from exc
         cols[quantity] = ColumnSpec(
             quantity=quantity,
             column=f.text("column"),
             unit=unit,
-            factor=to_canonical_factor(unit, quantity, f"{where} ({file_label})"),
+            factor=factor,
             dilation_positive=sense == "positive",
         )
     missing = [q for q in REQUIRED_COLUMNS if q not in cols]

@@ -54,15 +54,29 @@ def sha256_of(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def _parse(stage: StageSpec, data: bytes) -> pd.DataFrame:
-    fmt = stage.csv
+def _decode(stage: StageSpec, data: bytes) -> str:
     try:
-        text = data.decode(fmt.encoding)
+        return data.decode(stage.csv.encoding)
     except UnicodeDecodeError as exc:
         raise ReadingsError(
-            f"{stage.file}: cannot be decoded as {fmt.encoding} (byte {exc.start}). "
+            f"{stage.file}: cannot be decoded as {stage.csv.encoding} (byte {exc.start}). "
             "Set csv.encoding in the project file (e.g. \"latin-1\")."
         ) from exc
+
+
+def _line_numbers(text: str, header_row: int) -> tuple[int, list[int]]:
+    """1-based line numbers of the header and of each data row.
+
+    The parser skips blank (or whitespace-only) lines, so a data row's line in the file is not
+    simply its index plus an offset; messages must name the line a person sees in an editor.
+    """
+    lines = text.replace("\r\n", "\n").replace("\r", "\n").split("\n")
+    filled = [i + 1 for i, line in enumerate(lines) if i >= header_row and line.strip()]
+    return (filled[0], filled[1:]) if filled else (header_row + 1, [])
+
+
+def _parse(stage: StageSpec, text: str) -> pd.DataFrame:
+    fmt = stage.csv
     try:
         return pd.read_csv(
             io.StringIO(text),
@@ -78,7 +92,7 @@ def _parse(stage: StageSpec, data: bytes) -> pd.DataFrame:
         raise ReadingsError(f"{stage.file}: cannot be parsed as delimited text ({exc}). Check csv.delimiter and csv.header_row.") from exc
 
 
-def _numeric(stage: StageSpec, frame: pd.DataFrame, column: str, first_line: int) -> np.ndarray:
+def _numeric(stage: StageSpec, frame: pd.DataFrame, column: str, lines: list[int]) -> np.ndarray:
     raw = frame[column].astype(str).str.strip()
     if stage.csv.decimal != ".":
         raw = raw.str.replace(stage.csv.decimal, ".", regex=False)
@@ -86,8 +100,9 @@ def _numeric(stage: StageSpec, frame: pd.DataFrame, column: str, first_line: int
     bad = np.flatnonzero(~np.isfinite(values))
     if bad.size:
         i = int(bad[0])
+        line = lines[min(i, len(lines) - 1)] if lines else i + 1  # lines has one entry per data row
         raise ReadingsError(
-            f"{stage.file}, line {first_line + i}, column {column!r}: {frame[column].iloc[i]!r} is not a number "
+            f"{stage.file}, line {line}, column {column!r}: {frame[column].iloc[i]!r} is not a number "
             f"({bad.size} such value(s) in this column). Fix the file's copy or the column map; Shearbook never edits raw readings."
         )
     return values
@@ -105,20 +120,21 @@ def read_stage(stage: StageSpec) -> StageReadings:
     if not path.is_file():
         raise ReadingsError(f"{path}: readings file of stage {stage.id!r} not found. Check 'file' in the project file.")
     data = path.read_bytes()
-    frame = _parse(stage, data)
-    first_line = stage.csv.header_row + 2
+    text = _decode(stage, data)
+    frame = _parse(stage, text)
+    header_line, lines = _line_numbers(text, stage.csv.header_row)
     absent = [c.column for c in stage.columns.values() if c.column not in frame.columns]
     if absent:
         found = ", ".join(repr(c) for c in frame.columns)
         raise ReadingsError(
             f"{path}: column(s) {', '.join(repr(a) for a in absent)} named in the column map are not in the header "
-            f"(line {stage.csv.header_row + 1}). Header has: {found}."
+            f"(line {header_line}). Header has: {found}."
         )
     if len(frame) < 10:
         raise ReadingsError(f"{path}: only {len(frame)} data rows; a shear stage needs many more. Check csv.header_row.")
     out: dict[str, np.ndarray] = {}
     for quantity, spec in stage.columns.items():
-        values = _numeric(stage, frame, spec.column, first_line) * spec.factor
+        values = _numeric(stage, frame, spec.column, lines) * spec.factor
         if quantity == "vertical_displacement" and not spec.dilation_positive:
             values = -values
         out[CANONICAL_COLUMNS[quantity]] = values
@@ -128,5 +144,5 @@ def read_stage(stage: StageSpec) -> StageReadings:
         sha256=hashlib.sha256(data).hexdigest(),
         size_bytes=len(data),
         relpath=stage.relpath,
-        first_data_line=first_line,
+        first_data_line=lines[0] if lines else header_line + 1,
     )

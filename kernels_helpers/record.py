@@ -1,0 +1,168 @@
+"""Headless execution of a workbook and its export to a self-contained HTML record.
+
+Steps, each a small function: load the template -> inject parameters -> execute (nbclient,
+in-process) -> stop on the first failed cell -> export (nbconvert, offline template) -> check that
+nothing in the file is fetched from the network -> embed the results JSON -> write atomically.
+A record is never produced from a notebook that raised.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+import tempfile
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from html.parser import HTMLParser
+from pathlib import Path
+from typing import Literal
+
+import nbformat
+from nbclient import NotebookClient
+from nbclient.exceptions import CellExecutionError
+from nbconvert import HTMLExporter
+
+from .errors import RecordError
+from .interpretation import INTERPRETATION_FILE, load_interpretation
+from .pipeline import interpret
+from .project import load_project
+
+__all__ = ["TEMPLATE", "execute_workbook", "network_references", "write_record"]
+
+REPO = Path(__file__).resolve().parent.parent
+TEMPLATE = REPO / "workbook" / "shear_interpretation.ipynb"
+TEMPLATES_DIR = Path(__file__).resolve().parent / "templates"
+View = Literal["report", "audit"]
+
+
+def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> nbformat.NotebookNode:
+    """Insert a cell assigning ``params`` right after the cell tagged ``parameters``."""
+    lines = ["# Parameters injected by Shearbook"] + [f"{k} = {v!r}" for k, v in params.items()]
+    cell = nbformat.v4.new_code_cell("\n".join(lines), metadata={"tags": ["injected-parameters"]})
+    cell["id"] = "sb-injected"
+    index = next((i for i, c in enumerate(nb.cells) if "parameters" in c.get("metadata", {}).get("tags", [])), -1)
+    nb.cells.insert(index + 1, cell)
+    return nb
+
+
+def execute_workbook(project_dir: Path, interpretation_file: Path | None = None, template: Path = TEMPLATE,
+                     timeout_s: int = 600) -> nbformat.NotebookNode:
+    """Execute the template on a project; raise :class:`RecordError` naming the first failed cell."""
+    if not template.is_file():
+        raise RecordError(f"{template}: workbook template not found. Run from a checkout of Shearbook (pip install -e .).")
+    nb = nbformat.read(template, as_version=4)
+    params: dict[str, object] = {"project_dir": str(project_dir.resolve())}
+    params["interpretation_file"] = str(interpretation_file.resolve()) if interpretation_file else None
+    inject_parameters(nb, params)
+    client = NotebookClient(nb, timeout=timeout_s, kernel_name="python3",
+                            resources={"metadata": {"path": str(project_dir.resolve())}})
+    try:
+        client.execute()
+    except CellExecutionError as exc:
+        index = next((i for i, c in enumerate(nb.cells) if any(o.get("output_type") == "error" for o in c.get("outputs", []))), None)
+        err = next((o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"), {})
+        where = f"cell {index + 1}" if index is not None else "a cell"
+        first_line = nb.cells[index].source.splitlines()[0] if index is not None and nb.cells[index].source else ""
+        raise RecordError(
+            f"{template.name}: {where} ({first_line!r}) raised {err.get('ename', 'an error')}: {err.get('evalue', exc)}. "
+            "No record was written; fix the cause and export again."
+        ) from None
+    return nb
+
+
+class _Refs(HTMLParser):
+    """Collects every URL an HTML page would fetch by itself."""
+
+    ATTRS = {("script", "src"), ("link", "href"), ("img", "src"), ("iframe", "src"), ("source", "src"),
+             ("video", "src"), ("audio", "src"), ("embed", "src"), ("object", "data")}
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.refs: list[str] = []
+        self._in_style = False
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        self._in_style = tag == "style"
+        for name, value in attrs:
+            if (tag, name) in self.ATTRS and value and not value.startswith(("data:", "#")):
+                self.refs.append(f"<{tag} {name}={value}>")
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag == "style":
+            self._in_style = False
+
+    def handle_data(self, data: str) -> None:
+        if self._in_style:
+            for m in re.finditer(r"(?:@import\s+|url\()\s*['\"]?((?:https?:)?//[^'\")\s]+)", data):
+                self.refs.append(f"css {m.group(1)}")
+
+
+def network_references(html_text: str) -> list[str]:
+    """Every reference in the page to a script, style, image or frame outside the file itself."""
+    parser = _Refs()
+    parser.feed(html_text)
+    return parser.refs
+
+
+def export_html(nb: nbformat.NotebookNode, view: View) -> str:
+    """HTML of an executed notebook; the report view hides the code, the audit view shows it."""
+    exporter = HTMLExporter(template_name="shearbook_record", extra_template_basedirs=[str(TEMPLATES_DIR)])
+    exporter.exclude_input = view == "report"
+    exporter.exclude_input_prompt = True
+    exporter.exclude_output_prompt = True
+    body, _ = exporter.from_notebook_node(nb, resources={"metadata": {"name": "Shearbook record"}})
+    return body
+
+
+def _embed(html_text: str, blocks: dict[str, str]) -> str:
+    safe = {name: text.replace("<", "\\u003c") for name, text in blocks.items()}  # no "</script>" can close the tag
+    tags = "".join(f'<script type="application/json" id="{name}">{text}</script>\n' for name, text in safe.items())
+    end = html_text.rindex("</body>")  # the last one: BokehJS holds the string "</body>" too
+    return html_text[:end] + tags + html_text[end:]
+
+
+def _write_atomic(path: Path, text: str) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+@dataclass(frozen=True)
+class Record:
+    path: Path
+    size_bytes: int
+    results_sha256: str
+
+
+def default_record_path(project_dir: Path, view: View) -> Path:
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    return project_dir / "records" / f"shearbook-{view}-{stamp}.html"
+
+
+def write_record(project_dir: str | Path, out: str | Path | None = None, interpretation_file: str | Path | None = None,
+                 view: View = "report", template: Path = TEMPLATE) -> Record:
+    """Execute the workbook on ``project_dir`` and write the HTML record; return where and what."""
+    root = Path(project_dir).resolve()
+    project = load_project(root)  # fail early with the project file's own message
+    interp_path = Path(interpretation_file).resolve() if interpretation_file else root / INTERPRETATION_FILE
+    interpretation = load_interpretation(interp_path)
+    results = interpret(project, interpretation)
+    nb = execute_workbook(root, interp_path, template)
+    html_text = export_html(nb, view)
+    refs = network_references(html_text)
+    if refs:
+        raise RecordError(f"the exported record would fetch from the network: {', '.join(refs[:5])}. Nothing was written.")
+    results_json = results.to_json()
+    html_text = _embed(html_text, {"shearbook-results": results_json, "shearbook-interpretation": interpretation.to_json(),
+                                   "shearbook-record": json.dumps({"view": view, "schema": "shearbook.record/1"})})
+    path = Path(out).resolve() if out else default_record_path(root, view)
+    _write_atomic(path, html_text)
+    return Record(path, len(html_text.encode("utf-8")), hashlib.sha256(results_json.encode()).hexdigest())

@@ -1,0 +1,88 @@
+"""Display glue for the workbook: shows the tables and figures of a :class:`Results`.
+
+``setup_notebook()`` must be called in the notebook (never at import): it loads BokehJS inline so
+the page and the exported record work offline.
+"""
+
+from __future__ import annotations
+
+import importlib.metadata
+from datetime import UTC, datetime
+
+from bokeh.io import output_notebook, show
+from bokeh.resources import Resources
+from IPython.display import HTML, display
+
+from ..project import Project
+from ..results import Results
+from . import tables
+from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
+
+__all__ = ["setup_notebook", "show_envelopes", "show_header", "show_provenance", "show_stages", "show_tables"]
+
+RECORD_PACKAGES = ("bokeh", "jupyterlab", "ipywidgets", "jupyter_bokeh", "nbconvert", "nbclient", "tsdownsample")
+
+
+def setup_notebook() -> None:
+    """Load BokehJS into the page, inline (no CDN), trimmed to the parts the figures use."""
+    output_notebook(resources=Resources(mode="inline", components=["bokeh", "bokeh-widgets"]), hide_banner=True)
+    display(HTML(tables.STYLE))
+
+
+def _h(text: str, level: int = 3) -> None:
+    display(HTML(f"<h{level}>{tables.esc(text)}</h{level}>"))
+
+
+def show_header(results: Results, project: Project) -> None:
+    display(HTML(tables.header_html(results)))
+    display(HTML(tables.caution_html()))
+    _h("Inputs (raw readings, never modified)")
+    display(HTML(tables.inputs_table(results, project)))
+    _h("Specimens")
+    display(HTML(tables.specimen_table(results, project)))
+    r = results.settings["reduction"]
+    pk = results.settings["picks"]
+    display(HTML(
+        "<p>Reduction: stresses on the <b>{area}</b> area; rate of dilation by Savitzky-Golay (quadratic) over "
+        "{w} mm; peak located on shear stress smoothed over {ps} mm; start of shear where the force first reaches "
+        "{sf:g} % of its maximum (seating slack before it removed and recorded). Critical state: mean over the last "
+        "{cw} mm, reached when |mean dy/dx| &le; {rt} and tau/sigma changes by &le; {tt:g} % across the window. "
+        "Curves drawn with at most {n} points per series (LTTB decimation, display only; every reading is used "
+        "in the computation).</p>".format(
+            area=tables.esc(r["area_convention"]), w=r["smoothing_window_mm"], ps=r["peak_smoothing_mm"],
+            sf=r["seating_fraction"] * 100, cw=pk["cs_window_mm"], rt=pk["cs_rate_tolerance"],
+            tt=pk["cs_trend_tolerance"] * 100, n=DISPLAY_POINTS,
+        )
+    ))
+
+
+def show_stages(results: Results) -> None:
+    """One row of plots per stage, suggested and chosen picks marked."""
+    for s in results.stages:
+        show(stage_figure(s))
+
+
+def show_tables(results: Results) -> None:
+    _h("Picks")
+    display(HTML(tables.picks_table(results)))
+    _h("Flags")
+    display(HTML(tables.flags_table(results)))
+
+
+def show_envelopes(results: Results) -> None:
+    """Envelope plot of every group and the table of c' and phi'."""
+    for group in dict.fromkeys(e.group for e in results.envelopes):
+        show(envelope_figure(results, group))
+    display(HTML(tables.envelope_table(results)))
+    display(HTML(tables.caution_html()))
+
+
+def show_provenance(results: Results, interpretation_path: str) -> None:
+    made = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    extra = {}
+    for name in RECORD_PACKAGES:
+        try:
+            extra[name] = importlib.metadata.version(name)
+        except importlib.metadata.PackageNotFoundError:
+            extra[name] = "not installed"
+    display(HTML(tables.provenance_table(results, made, interpretation_path, extra)))

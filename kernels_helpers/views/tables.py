@@ -1,0 +1,192 @@
+"""HTML tables of a project and its results, for the notebook and the record.
+
+Every piece of user text (names, notes, reasons, file names) goes through :func:`html.escape`:
+a record can never run script from its data. Numbers are formatted here, once, for display only.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+from collections.abc import Iterable, Sequence
+from typing import Any
+
+from ..project import Project
+from ..results import EnvelopeResult, Results, StageResult
+
+__all__ = [
+    "CAUTION",
+    "caution_html",
+    "envelope_table",
+    "flags_table",
+    "header_html",
+    "inputs_table",
+    "picks_table",
+    "provenance_table",
+    "specimen_table",
+]
+
+CAUTION = (
+    "Strength parameters from a few laboratory specimens are not design values by themselves. "
+    "Their use in design (slopes, walls, foundations) needs a cautious characteristic value, the "
+    "partial factors of the governing code and National Annex, consideration of site variability, "
+    "and the review and signature of a licensed geotechnical engineer. Shearbook does not replace "
+    "that judgement."
+)
+
+
+def esc(value: Any) -> str:
+    """Text for HTML: escaped, quotes included."""
+    return html.escape(str(value), quote=True)
+
+
+def num(value: float | None, digits: int = 1) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "&ndash;"
+    return f"{value:.{digits}f}"
+
+
+def table(headers: Sequence[str], rows: Iterable[Sequence[str]], css: str = "sb-table") -> str:
+    """An HTML table; ``headers`` are escaped, cells are expected to be escaped already."""
+    head = "".join(f"<th>{esc(h)}</th>" for h in headers)
+    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in r) + "</tr>" for r in rows)
+    return f'<table class="{css}"><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>'
+
+
+STYLE = """<style>
+.sb-table {border-collapse: collapse; font-size: 12px; margin: 4px 0 12px 0;}
+.sb-table th {background: #e9eef2; text-align: left; padding: 3px 8px; border-bottom: 1px solid #9aa7b1;}
+.sb-table td {padding: 2px 8px; border-bottom: 1px solid #dde3e8; vertical-align: top;}
+.sb-table td.sb-mono {font-family: monospace; font-size: 11px;}
+.sb-excluded td {color: #8a8f94;}
+.sb-caution {border-left: 4px solid #b5651d; background: #fbf3ea; padding: 6px 10px; font-size: 13px;}
+.sb-flag {color: #8c2d04;}
+</style>"""
+
+
+def header_html(results: Results) -> str:
+    p = results.project
+    rows = [
+        (esc(k.replace("_", " ")), esc(p[k]))
+        for k in ("name", "site", "client", "laboratory", "reference", "description")
+        if p.get(k)
+    ]
+    if p.get("invented_data"):
+        rows.append(("data", "<b>invented example data (demonstration only)</b>"))
+    conv = results.conventions
+    rows.append(("stresses on", esc(f"{conv['area']} area (ASTM D3080 sec. 5.6: tau/sigma does not depend on it)")))
+    rows.append(("vertical displacement", esc(conv["vertical_displacement"])))
+    rows.append(("horizontal displacement", esc(conv["horizontal_displacement"])))
+    return STYLE + table(("field", "value"), rows)
+
+
+def inputs_table(results: Results, project: Project) -> str:
+    """Each raw file with its size, SHA-256 and the column map used to read it."""
+    rows = []
+    for s, spec in zip(results.stages, project.stages, strict=True):
+        cmap = "<br>".join(
+            esc(f"{q}: '{c.column}' [{c.unit}]" + ("" if c.dilation_positive else ", reads down on dilation: flipped"))
+            for q, c in spec.columns.items()
+        )
+        rows.append((esc(s.stage_id), esc(s.relpath), f"{s.size_bytes:,}", f'<span class="sb-mono">{s.sha256}</span>', cmap))
+    return table(("stage", "file", "bytes", "SHA-256", "column map (unit in file)"), rows)
+
+
+def specimen_table(results: Results, project: Project) -> str:
+    rows = []
+    for s, spec in zip(results.stages, project.stages, strict=True):
+        sp, r = spec.specimen, s.reduced
+        size = f"{sp.shape} {sp.width_mm:g} mm"
+        rows.append((
+            esc(s.stage_id), esc(spec.test_set), esc(size), num(sp.height_mm, 2), num(sp.dry_mass_g, 1), num(sp.gs, 2),
+            esc(spec.normal_load.given_as), num(r.normal_force_n, 1), num(s.sigma_nominal_kpa, 1),
+            num(r.e_initial, 3), num(sp.consolidation_settlement_mm, 3), num(r.e_start, 3), num(r.seating_shift_mm, 3),
+        ))
+    return table(
+        ("stage", "test set", "box", "H0 (mm)", "Ms (g)", "Gs", "normal load given as", "N (N)", "sigma'n nominal (kPa)",
+         "e0", "consol. settlement (mm)", "e at start of shear", "seating slack removed (mm)"),
+        rows,
+    )
+
+
+def _pick_cells(s: StageResult) -> list[str]:
+    p, ps = s.peak, s.peak_suggested
+    if s.no_distinct_peak and s.peak_source == "suggested":
+        peak = [esc(s.no_distinct_peak)] + ["&ndash;"] * 3
+    else:
+        peak = [num(p.x_mm, 2), num(p.tau_kpa, 1), num(p.sigma_kpa, 1), num(math.degrees(math.atan(p.ratio)), 1)]
+    peak_src = esc(s.peak_source) + (f" (suggested at {num(ps.x_mm, 2)} mm, {num(ps.tau_kpa, 1)} kPa)" if s.peak_source == "manual" else "")
+    c, cs = s.cs, s.cs_suggested
+    cs_src = esc(s.cs_source) + (
+        f" (suggested {num(cs.x_from_mm, 2)}-{num(cs.x_to_mm, 2)} mm, {num(cs.tau_kpa, 1)} kPa)" if s.cs_source == "manual" else ""
+    )
+    return [
+        peak_src, *peak,
+        cs_src, f"{num(c.x_from_mm, 2)}&ndash;{num(c.x_to_mm, 2)}", num(c.tau_kpa, 1), num(c.tau_sd_kpa, 2),
+        num(c.sigma_kpa, 1), num(math.degrees(math.atan(c.ratio)), 1), f"{c.dydx:+.4f}", num(c.e, 3),
+    ]
+
+
+def picks_table(results: Results) -> str:
+    """Peak and critical-state picks per stage, the suggestion beside any manual value."""
+    rows = []
+    for s in results.stages:
+        inc = "yes" if s.included else f"<b>excluded</b>: {esc(s.exclusion_reason)}"
+        notes = "; ".join(esc(n) for n in (s.note, s.peak_note, s.cs_note) if n)
+        rows.append([esc(s.stage_id), num(s.sigma_nominal_kpa, 0), inc, *_pick_cells(s), notes])
+    headers = (
+        "stage", "sigma'n (kPa)", "included", "peak pick", "x (mm)", "tau (kPa)", "sigma' (kPa)", "phi' secant (deg)",
+        "critical-state pick", "window (mm)", "tau mean (kPa)", "tau s.d. (kPa)", "sigma' (kPa)", "phi' secant (deg)",
+        "dy/dx mean", "e", "notes",
+    )
+    return table(headers, rows)
+
+
+def _fit_row(e: EnvelopeResult, which: str) -> list[str]:
+    fit = e.free if which == "free" else e.origin
+    label = "c' free" if which == "free" else "through origin (c' = 0)"
+    chosen = " (reported)" if e.reported == which else ""
+    if fit is None:
+        return [esc(e.group), esc(e.kind.replace("_", " ")), esc(label), str(len(e.stage_ids))] + ["&ndash;"] * 5 + [esc(e.not_fitted or "")]
+    lo, hi = fit.phi_interval_deg
+    c_lo, c_hi = fit.c_interval_kpa
+    c = "0 (fixed)" if fit.through_origin else f"{fit.intercept:.1f} [{c_lo:.1f}, {c_hi:.1f}]"
+    warn = '<span class="sb-flag">negative c\' : consider c\' = 0</span>' if fit.negative_cohesion else ""
+    return [
+        esc(e.group), esc(e.kind.replace("_", " ")), esc(label + chosen), str(fit.n),
+        f"{fit.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]", c, f"{fit.r2:.4f}", f"{fit.residual_sd:.2f}",
+        ", ".join(f"{r:+.2f}" for r in fit.residuals), warn,
+    ]
+
+
+def envelope_table(results: Results) -> str:
+    """c' and phi' with their 95 % intervals for every envelope, both fits."""
+    rows = [_fit_row(e, w) for e in results.envelopes for w in ("free", "origin")]
+    level = results.envelopes[0].free.level if results.envelopes and results.envelopes[0].free else 0.95
+    pct = f"{level * 100:g} %"
+    return table(
+        ("group", "envelope", "fit", "n", f"phi' (deg) [{pct} CI]", f"c' (kPa) [{pct} CI]", "R^2", "s (kPa)",
+         "residuals (kPa)", "remarks"),
+        rows,
+    )
+
+
+def flags_table(results: Results) -> str:
+    rows = [(esc(s.stage_id), f'<span class="sb-flag">{esc(f)}</span>') for s in results.stages for f in s.flags]
+    rows += [(esc(s.stage_id), esc(s.no_distinct_peak)) for s in results.stages if s.no_distinct_peak]
+    if not rows:
+        return "<p>No flags raised.</p>"
+    return table(("stage", "flag"), rows)
+
+
+def provenance_table(results: Results, made_utc: str, interpretation_path: str, extra_versions: dict[str, str]) -> str:
+    p = results.provenance
+    rows = [("made (UTC)", esc(made_utc)), ("interpretation file", esc(interpretation_path)),
+            ("interpretation SHA-256", f'<span class="sb-mono">{esc(p["interpretation_sha256"])}</span>')]
+    rows += [(esc(f"version of {k}"), esc(v)) for k, v in {**p["versions"], **extra_versions}.items()]
+    rows += [("Python", esc(p["python"])), ("platform", esc(p["platform"]))]
+    return table(("item", "value"), rows)
+
+
+def caution_html() -> str:
+    return f'<div class="sb-caution"><b>Caution.</b> {esc(CAUTION)}</div>'

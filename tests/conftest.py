@@ -1,0 +1,51 @@
+"""Shared fixtures: a scratch copy of the example project and a headless Debian chromium."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parent.parent
+EXAMPLE = REPO / "example_project"
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMIUM_ARGS = [
+    "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
+    "--disable-component-update", "--disable-sync",
+]
+ARTIFACTS = REPO / "test-artifacts"
+
+
+@pytest.fixture
+def example_copy(tmp_path: Path) -> Path:
+    """A copy of the example project (project file and readings only) that a test may change."""
+    dst = tmp_path / "example_project"
+    shutil.copytree(EXAMPLE, dst, ignore=shutil.ignore_patterns("*.ipynb", "records", "interpretation.json"))
+    return dst
+
+
+@pytest.fixture(scope="session")
+def browser() -> Iterator[object]:
+    """Headless Debian chromium driven by Playwright. In CI a missing browser fails, never skips."""
+    if not CHROMIUM.exists():
+        if os.environ.get("CI"):
+            pytest.fail("Debian chromium is missing in CI: tests/run.sh installs it with apt-get")
+        pytest.skip("Debian chromium not installed (tests/run.sh installs it)")
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as pw, tempfile.TemporaryDirectory() as profile:
+        context = pw.chromium.launch_persistent_context(
+            profile, executable_path=str(CHROMIUM), headless=True, args=CHROMIUM_ARGS, viewport={"width": 1400, "height": 1000}
+        )
+        yield context
+        context.close()
+
+
+@pytest.fixture
+def artifacts() -> Path:
+    ARTIFACTS.mkdir(exist_ok=True)
+    return ARTIFACTS

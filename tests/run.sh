@@ -1,0 +1,25 @@
+#!/usr/bin/env bash
+# The whole Shearbook test suite on a fresh machine: a local venv with the package and its test
+# extras, Debian's chromium for the browser tests (installed with apt-get when missing), then pytest.
+# Extra arguments go to pytest. "No tests collected" (pytest exit 5) is a failure, never a pass.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+
+python3 -m venv .venv
+.venv/bin/python -m pip install --quiet --upgrade pip
+.venv/bin/python -m pip install --quiet -e '.[test]'
+
+if ! command -v chromium >/dev/null 2>&1; then
+  echo "tests/run.sh: installing Debian chromium for the browser tests"
+  if [ "$(id -u)" -eq 0 ]; then apt-get update -qq && apt-get install -y -qq chromium; else sudo apt-get update -qq && sudo apt-get install -y -qq chromium; fi
+fi
+
+set +e
+.venv/bin/python -m pytest "$@"
+rc=$?
+set -e
+if [ "$rc" -eq 5 ]; then
+  echo "tests/run.sh: pytest collected no tests: that is a failure" >&2
+  exit 1
+fi
+exit "$rc"

@@ -1,0 +1,132 @@
+"""The pure core imports no display or notebook machinery (STYLE habit 1)."""
+
+from __future__ import annotations
+
+import ast
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+import kernels_helpers
+
+PURE_MODULES = [
+    "errors",
+    "units",
+    "project",
+    "readings",
+    "reduce",
+    "picks",
+    "envelope",
+    "interpretation",
+    "results",
+    "pipeline",
+]
+FORBIDDEN = ("bokeh", "ipywidgets", "nbconvert", "nbclient", "jupyter_bokeh")
+PACKAGE_DIR = Path(kernels_helpers.__file__).parent
+
+PROBE = """
+import importlib, json, sys
+importlib.import_module({module!r})
+forbidden = {forbidden!r}
+print(json.dumps(sorted(m for m in sys.modules if m.split(".")[0] in forbidden)))
+"""
+
+
+MODULES = ["kernels_helpers", *(f"kernels_helpers.{m}" for m in PURE_MODULES)]
+
+
+Probes = dict[str, tuple[int, str, str]]  # key -> (return code, stdout, stderr)
+
+
+def _probe_all(jobs: dict[str, tuple[str, tuple[str, ...]]]) -> Probes:
+    """Run one fresh interpreter per probe, all at once (each pays the numpy/pandas import)."""
+    procs = {
+        key: subprocess.Popen(
+            [sys.executable, "-c", PROBE.format(module=module, forbidden=forbidden)],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        for key, (module, forbidden) in jobs.items()
+    }
+    out = {}
+    for key, proc in procs.items():
+        stdout, stderr = proc.communicate(timeout=180)
+        out[key] = (proc.returncode, stdout, stderr)
+    return out
+
+
+@pytest.fixture(scope="module")
+def probes() -> Probes:
+    jobs = {m: (m, FORBIDDEN) for m in MODULES}
+    # a control: the probe must be able to fail (json is imported by the probe itself)
+    jobs["control"] = ("kernels_helpers.units", ("json",))
+    return _probe_all(jobs)
+
+
+@pytest.mark.parametrize("module", MODULES)
+def test_import_in_fresh_interpreter_loads_no_display_packages(probes: Probes, module: str) -> None:
+    returncode, stdout, stderr = probes[module]
+    assert returncode == 0, stderr
+    assert json.loads(stdout.strip().splitlines()[-1]) == []
+
+
+def test_probe_detects_a_forbidden_import(probes: Probes) -> None:
+    returncode, stdout, stderr = probes["control"]
+    assert returncode == 0, stderr
+    assert "json" in json.loads(stdout.strip().splitlines()[-1])
+
+
+def _imported_roots(path: Path) -> set[str]:
+    """Top-level package names imported anywhere in a module (including inside functions)."""
+    roots: set[str] = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"), filename=str(path))):
+        if isinstance(node, ast.Import):
+            roots.update(alias.name.split(".")[0] for alias in node.names)
+        elif isinstance(node, ast.ImportFrom) and node.level == 0 and node.module:
+            roots.add(node.module.split(".")[0])
+        elif isinstance(node, ast.Call) and getattr(node.func, "attr", getattr(node.func, "id", "")) in (
+            "import_module",
+            "__import__",
+        ):
+            names = [a.value for a in node.args if isinstance(a, ast.Constant) and isinstance(a.value, str)]
+            roots.update(name.split(".")[0] for name in names)
+    return roots
+
+
+@pytest.mark.parametrize("module", ["__init__", *PURE_MODULES])
+def test_pure_module_source_has_no_forbidden_import(module: str) -> None:
+    path = PACKAGE_DIR / f"{module}.py"
+    assert path.is_file(), f"{path} is missing"
+    assert _imported_roots(path).isdisjoint(FORBIDDEN)
+
+
+def _relative_imports(path: Path) -> set[str]:
+    tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+    names: set[str] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom) and node.level > 0:
+            if node.module:
+                names.add(node.module.split(".")[0])
+            else:
+                names.update(alias.name for alias in node.names)
+    return names
+
+
+@pytest.mark.parametrize("module", ["__init__", *PURE_MODULES])
+def test_pure_modules_import_only_pure_modules(module: str) -> None:
+    # views, record and cli may use bokeh or nbconvert; the pure core must never reach them
+    assert _relative_imports(PACKAGE_DIR / f"{module}.py") <= set(PURE_MODULES)
+
+
+def test_ast_check_sees_imports(tmp_path: Path) -> None:
+    sample = tmp_path / "sample.py"
+    sample.write_text(
+        "import bokeh.plotting\nfrom ipywidgets import Button\n"
+        "def f():\n    import nbconvert\n    importlib.import_module('nbclient.client')\n",
+        encoding="utf-8",
+    )
+    assert _imported_roots(sample) >= {"bokeh", "ipywidgets", "nbconvert", "nbclient"}

@@ -1,0 +1,41 @@
+"""The command line: results as JSON, the record's path, clear errors with exit code 2."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from kernels_helpers import interpret
+from kernels_helpers.cli import main, workbook_in_project
+
+
+def test_results_prints_the_same_numbers_as_interpret(example_copy: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["results", str(example_copy)]) == 0
+    assert json.loads(capsys.readouterr().out) == json.loads(interpret(example_copy).to_json())
+
+
+def test_results_of_a_folder_without_project_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["results", str(tmp_path)]) == 2
+    err = capsys.readouterr().err
+    assert err == f"shearbook: error: {tmp_path / 'project.toml'}: no project file here. Point Shearbook at a project folder holding project.toml.\n"
+
+
+@pytest.mark.notebook
+def test_record_command_writes_the_file_it_prints(example_copy: Path, tmp_path: Path) -> None:
+    out = tmp_path / "out" / "rec.html"
+    done = subprocess.run([sys.executable, "-m", "kernels_helpers.cli", "record", str(example_copy), "-o", str(out)],
+                          capture_output=True, text=True, check=True, timeout=300)
+    assert done.stdout.strip() == str(out.resolve())
+    assert out.stat().st_size > 100_000
+
+
+def test_workbook_copy_points_at_its_own_project(example_copy: Path) -> None:
+    nb_path = workbook_in_project(example_copy)
+    text = nb_path.read_text(encoding="utf-8")
+    assert "project_dir = '.'" in text
+    nb_path.write_text(text + " ", encoding="utf-8")
+    assert workbook_in_project(example_copy).read_text(encoding="utf-8").endswith(" ")  # never overwritten

@@ -1,0 +1,208 @@
+"""The interpretation file: round trip, stable text, atomic and safe saves, and its errors."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+from pathlib import Path
+
+import pytest
+
+from kernels_helpers.errors import InterpretationFileError
+from kernels_helpers.interpretation import (
+    FitSettings,
+    Interpretation,
+    PeakChoice,
+    Settings,
+    SignOff,
+    StageDecision,
+    WindowChoice,
+    load_interpretation,
+    save_interpretation,
+)
+from kernels_helpers.picks import PickSettings
+from kernels_helpers.reduce import ReductionSettings
+
+
+def _full() -> Interpretation:
+    """An interpretation that uses every field, with values away from the defaults."""
+    return Interpretation(
+        stages={
+            "S2": StageDecision(included=False, exclusion_reason="specimen disturbed in trimming", note="see sheet"),
+            "S1": StageDecision(
+                peak=PeakChoice(source="manual", x_mm=2.375, author="A. Engineer", time_utc="2026-01-05T09:00:00Z",
+                                note="second maximum"),
+                critical_state=WindowChoice(source="manual", x_from_mm=8.0, x_to_mm=11.5, author="A. Engineer",
+                                            time_utc="2026-01-05T09:01:00Z", note="steady from 8 mm"),
+            ),
+        },
+        settings=Settings(
+            reduction=ReductionSettings(area_convention="nominal", smoothing_window_mm=0.8, seating_fraction=0.03,
+                                        peak_smoothing_mm=0.3),
+            picks=PickSettings(cs_window_mm=3.0, cs_rate_tolerance=0.02, cs_trend_tolerance=0.03,
+                               distinct_peak_margin=0.05),
+            fit=FitSettings(cohesion="zero", level=0.9),
+        ),
+        raw_files={"readings/S2.csv": "b" * 64, "readings/S1.csv": "a" * 64},
+        signoff=SignOff(
+            state="checked", history=({"state": "checked", "by": "B. Checker", "time_utc": "2026-01-06T10:00:00Z"},)
+        ),
+    )
+
+
+@pytest.mark.parametrize("make", [Interpretation, _full], ids=["default", "full"])
+def test_round_trip(tmp_path: Path, make: type[Interpretation]) -> None:
+    original = make()
+    path = save_interpretation(original, tmp_path / "interpretation.json")
+    loaded = load_interpretation(path)
+    assert loaded == original
+    assert loaded.to_json() == original.to_json()
+
+
+def test_stable_text(tmp_path: Path) -> None:
+    path = tmp_path / "interpretation.json"
+    save_interpretation(_full(), path)
+    first = path.read_bytes()
+    save_interpretation(load_interpretation(path), path)
+    assert path.read_bytes() == first  # identical text on re-save
+    text = first.decode("utf-8")
+    assert text.endswith("}\n") and "\r" not in text
+    data = json.loads(text)
+    assert text == json.dumps(data, indent=2, sort_keys=True, ensure_ascii=False) + "\n"  # sorted keys, 2 spaces
+    assert list(data["stages"]) == ["S1", "S2"] and list(data["raw_files"]) == sorted(data["raw_files"])
+    assert _full().sha256 == hashlib.sha256(first).hexdigest()
+
+
+def test_atomic_save_leaves_no_temporary_files(tmp_path: Path) -> None:
+    path = tmp_path / "interpretation.json"
+    save_interpretation(Interpretation(), path)
+    save_interpretation(_full(), path)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json"]
+
+
+def test_failed_save_keeps_the_old_file_and_cleans_up(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    path = tmp_path / "interpretation.json"
+    save_interpretation(Interpretation(), path)
+    before = path.read_bytes()
+
+    def refuse(src: str, dst: str) -> None:
+        raise OSError("disk full (simulated)")
+
+    monkeypatch.setattr(os, "replace", refuse)
+    with pytest.raises(OSError, match=re.escape("disk full (simulated)")):
+        save_interpretation(_full(), path)
+    assert path.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json"]
+
+
+@pytest.mark.parametrize(
+    ("text", "parts"),
+    [
+        ('{"schema": "shearbook.interpretation/1", "stages": {', ["not valid JSON", "The file is left untouched"]),
+        ("\u00e9t\u00e9", ["not valid JSON"]),
+        ("[1, 2]", ["expected a JSON object at the top level"]),
+        (
+            '{"schema": "something/else", "schema_version": 1}',
+            ["not a Shearbook interpretation file (schema 'something/else')"],
+        ),
+    ],
+)
+def test_corrupt_file_raises_and_is_not_overwritten(tmp_path: Path, text: str, parts: list[str]) -> None:
+    path = tmp_path / "interpretation.json"
+    path.write_text(text, encoding="utf-8")
+    before = path.read_bytes()
+    with pytest.raises(InterpretationFileError, match=re.escape(f"{path}: {parts[0]}")) as info:
+        load_interpretation(path)
+    for part in parts:
+        assert part in str(info.value)
+    with pytest.raises(InterpretationFileError, match=re.escape(parts[0])):
+        save_interpretation(Interpretation(), path)
+    assert path.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json"]
+
+
+def _edited(tmp_path: Path, edit: dict[str, object], stage: dict[str, object] | None = None) -> Path:
+    data = Interpretation().to_dict()
+    data.update(edit)
+    if stage is not None:
+        data["stages"] = {"S1": stage}
+    path = tmp_path / "interpretation.json"
+    path.write_text(json.dumps(data), encoding="utf-8")
+    return path
+
+
+@pytest.mark.parametrize("version", [2, 17])
+def test_future_schema_version(tmp_path: Path, version: int) -> None:
+    path = _edited(tmp_path, {"schema_version": version})
+    before = path.read_bytes()
+    expected = f"{path}: written with schema version {version}; this Shearbook reads up to 1."
+    with pytest.raises(InterpretationFileError, match=re.escape(expected)):
+        load_interpretation(path)
+    with pytest.raises(InterpretationFileError, match=re.escape(f"schema version {version}")):
+        save_interpretation(Interpretation(), path)
+    assert path.read_bytes() == before
+
+
+NO_REASON = "a stage can only be excluded with a stated reason"
+NO_WINDOW = "a manual critical-state window needs x_from_mm and x_to_mm"
+
+
+@pytest.mark.parametrize(
+    ("stage", "parts"),
+    [
+        ({"included": False, "exclusion_reason": ""}, ["stages.S1", NO_REASON]),
+        ({"included": False, "exclusion_reason": "   "}, ["stages.S1", NO_REASON]),
+        ({"peak": {"source": "manual"}}, ["stages.S1.peak", "a manual peak pick needs x_mm"]),
+        (
+            {"critical_state": {"source": "manual", "x_from_mm": 8.0}},
+            ["stages.S1.critical_state", NO_WINDOW],
+        ),
+        ({"peak": {"x": 2.0}}, ["stages.S1.peak", "unknown field(s) x"]),
+        ({"colour": "red"}, ["stages.S1", "unknown field(s) colour"]),
+    ],
+)
+def test_bad_decisions_in_the_file(tmp_path: Path, stage: dict[str, object], parts: list[str]) -> None:
+    path = _edited(tmp_path, {}, stage)
+    with pytest.raises(InterpretationFileError, match=re.escape(f"{path} {parts[0]}")) as info:
+        load_interpretation(path)
+    for part in parts:
+        assert part in str(info.value)
+
+
+@pytest.mark.parametrize(
+    ("section", "value", "part"),
+    [
+        ("fit", {"cohesion": "some"}, "settings.fit: cohesion must be 'free' or 'zero', not 'some'"),
+        ("fit", {"level": 1.5}, "settings.fit: level must be between 0.5 and 1, not 1.5"),
+        ("reduction", {"area_convention": "shrunk"}, "settings.reduction: area_convention must be"),
+        ("picks", {"cs_window_mm": 0}, "settings.picks: cs_window_mm must be positive, not 0"),
+    ],
+)
+def test_bad_settings_in_the_file(tmp_path: Path, section: str, value: dict[str, object], part: str) -> None:
+    settings = Interpretation().to_dict()["settings"]
+    settings[section] = {**settings[section], **value}
+    path = _edited(tmp_path, {"settings": settings})
+    with pytest.raises(InterpretationFileError, match=re.escape(f"{path} {part}")):
+        load_interpretation(path)
+
+
+@pytest.mark.parametrize(
+    ("build", "message"),
+    [
+        (lambda: StageDecision(included=False), NO_REASON),
+        (lambda: PeakChoice(source="manual"), "a manual peak pick needs x_mm"),
+        (lambda: WindowChoice(source="manual", x_to_mm=3.0), NO_WINDOW),
+    ],
+)
+def test_bad_decisions_in_code(build: object, message: str) -> None:
+    with pytest.raises(ValueError, match=re.escape(message)):
+        build()  # type: ignore[operator]
+
+
+def test_missing_file_gives_all_suggested(tmp_path: Path) -> None:
+    loaded = load_interpretation(tmp_path / "interpretation.json")
+    assert loaded == Interpretation()
+    assert loaded.decision("anything") == StageDecision()
+    assert not (tmp_path / "interpretation.json").exists()  # loading never creates the file

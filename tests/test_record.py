@@ -1,0 +1,102 @@
+"""The HTML record: headless execution of the template, offline export, escaping, refusal on error."""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import nbformat
+import pytest
+
+from kernels_helpers import interpret, save_interpretation
+from kernels_helpers.errors import RecordError
+from kernels_helpers.interpretation import Interpretation, StageDecision
+from kernels_helpers.record import TEMPLATE, execute_workbook, network_references, write_record
+
+pytestmark = pytest.mark.notebook
+EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"  # the bundled project: a record must not change it
+
+
+def _embedded(html_text: str, name: str) -> dict:
+    m = re.search(rf'<script type="application/json" id="{name}">(.*?)</script>', html_text, re.S)
+    assert m, f"record lacks the {name} block"
+    return json.loads(m.group(1))
+
+
+@pytest.fixture(scope="module")
+def record(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str]:
+    out = tmp_path_factory.mktemp("record") / "record.html"
+    rec = write_record(EXAMPLE, out)
+    return rec.path, rec.path.read_text(encoding="utf-8")
+
+
+def test_template_executes_headless_without_error(example_copy: Path) -> None:
+    nb = execute_workbook(example_copy)
+    errors = [o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"]
+    assert errors == []
+    assert any("injected-parameters" in c.metadata.get("tags", []) for c in nb.cells)
+
+
+def test_record_has_no_network_reference(record: tuple[Path, str]) -> None:
+    _, text = record
+    assert network_references(text) == []
+    # belt and braces on the raw text: no script or stylesheet is loaded from an http(s) address
+    assert not re.search(r"<script[^>]+src=[\"']?(https?:)?//", text)
+    assert not re.search(r"<link[^>]+href=[\"']?(https?:)?//", text)
+    assert "cdn.bokeh.org" not in text and "cdnjs.cloudflare.com" not in text
+
+
+def test_network_references_finds_what_a_page_would_fetch() -> None:
+    page = ('<script src="https://x.example/a.js"></script><link rel="stylesheet" href="//x.example/b.css">'
+            '<style>@import "https://x.example/c.css"; .a{background:url(http://x.example/d.png)}</style>'
+            '<img src="data:image/png;base64,AAAA"><script>var u = "https://not-fetched.example";</script>')
+    assert network_references(page) == ["<script src=https://x.example/a.js>", "<link href=//x.example/b.css>",
+                                        "css https://x.example/c.css", "css http://x.example/d.png"]
+
+
+def test_record_shows_inputs_picks_envelopes_versions_and_time(record: tuple[Path, str]) -> None:
+    _, text = record
+    results = _embedded(text, "shearbook-results")
+    assert results == json.loads(interpret(EXAMPLE).to_json())
+    for stage in results["stages"]:
+        assert stage["sha256"] in text
+        assert f"{stage['critical_state']['chosen']['tau_kpa']:.1f}" in text
+    for env in results["envelopes"]:
+        if env["free"]:
+            assert f"{env['free']['phi_deg']:.1f}" in text
+    assert "version of bokeh" in text and "version of numpy" in text
+    assert re.search(r"made \(UTC\)</td><td>\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ", text)
+    for stage in results["stages"]:  # every stage panel and every envelope plot is in the page
+        for quantity in ("tau", "y", "e"):
+            assert f'"name":"stage-{stage["id"]}-{quantity}"' in text
+    for group in {e["group"] for e in results["envelopes"]}:
+        assert f'"name":"envelope-{group}"' in text
+
+
+def test_user_text_is_escaped_in_the_record(example_copy: Path, tmp_path: Path) -> None:
+    evil = "<script>alert(1)</script><img src=x onerror=alert(2)>"
+    interp = Interpretation().with_decision("BH03-D2", StageDecision(note=evil))
+    interp = interp.with_decision("BH03-L1", StageDecision(included=False, exclusion_reason=evil))
+    save_interpretation(interp, example_copy / "interpretation.json")
+    text = write_record(example_copy, tmp_path / "r.html").path.read_text(encoding="utf-8")
+    assert "<script>alert(1)</script>" not in text and "<img src=x onerror" not in text
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text
+    assert network_references(text) == []
+
+
+def test_failed_cell_stops_the_export(example_copy: Path, tmp_path: Path) -> None:
+    nb = nbformat.read(TEMPLATE, as_version=4)
+    nb.cells.append(nbformat.v4.new_code_cell("raise RuntimeError('stage table is inconsistent')"))
+    broken = tmp_path / "broken.ipynb"
+    nbformat.write(nb, broken)
+    out = tmp_path / "never.html"
+    with pytest.raises(RecordError, match=r"broken\.ipynb: cell \d+ \(\"raise RuntimeError.*\) raised RuntimeError: stage table is inconsistent\. No record was written"):
+        write_record(example_copy, out, template=broken)
+    assert not out.exists()
+
+
+def test_record_does_not_touch_the_raw_readings(example_copy: Path, tmp_path: Path) -> None:
+    before = {p: p.read_bytes() for p in (example_copy / "readings").iterdir()}
+    write_record(example_copy, tmp_path / "r.html")
+    assert {p: p.read_bytes() for p in (example_copy / "readings").iterdir()} == before
