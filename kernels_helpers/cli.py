@@ -3,6 +3,7 @@
     shearbook open PROJECT            open the workbook on PROJECT in JupyterLab (prints the URL)
     shearbook record PROJECT [-o F]   write the HTML record headless and print its path
     shearbook results PROJECT         print the results as JSON
+    shearbook diff PROJECT OLD NEW    what changed between two interpretation files, in words
 """
 
 from __future__ import annotations
@@ -28,6 +29,19 @@ WORKBOOK_NAME = "shear_interpretation.ipynb"
 def _results(args: argparse.Namespace) -> int:
     results = interpret(load_project(args.project), args.interpretation)
     sys.stdout.write(results.to_json())
+    return 0
+
+
+def _diff(args: argparse.Namespace) -> int:
+    from .diff import diff_interpretations
+    from .interpretation import load_interpretation
+
+    for path in (args.before, args.after):
+        if not path.is_file():
+            raise ShearbookError(f"{path}: interpretation file not found.")
+    before, after = load_interpretation(args.before), load_interpretation(args.after)
+    report = diff_interpretations(load_project(args.project), before, after)
+    sys.stdout.write(report.to_text(str(args.before), str(args.after)))
     return 0
 
 
@@ -82,6 +96,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-i", "--interpretation", type=Path, help="interpretation file (default: PROJECT/interpretation.json)")
     p.add_argument("--view", choices=("report", "audit"), default="report", help="report hides the code; audit shows it")
     p.set_defaults(func=_record)
+    p = sub.add_parser("diff", help="what changed between two interpretation files of a project, in words")
+    p.add_argument("project", type=Path)
+    p.add_argument("before", type=Path, help="the earlier interpretation file")
+    p.add_argument("after", type=Path, help="the later interpretation file")
+    p.set_defaults(func=_diff)
     p = sub.add_parser("results", help="print the results of a project as JSON")
     p.add_argument("project", type=Path)
     p.add_argument("-i", "--interpretation", type=Path)

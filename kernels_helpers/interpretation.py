@@ -110,6 +110,8 @@ class StageDecision:
     note: str = ""
     peak: PeakChoice = field(default_factory=PeakChoice)
     critical_state: WindowChoice = field(default_factory=WindowChoice)
+    author: str = ""  # who last changed the inclusion or the note
+    time_utc: str = ""
 
     def __post_init__(self) -> None:
         if not self.included and not self.exclusion_reason.strip():
@@ -139,6 +141,51 @@ class Interpretation:
 
     def with_decision(self, stage_id: str, decision: StageDecision) -> Interpretation:
         return dataclasses.replace(self, stages={**self.stages, stage_id: decision})
+
+    # --- edits an engineer makes (each returns a new Interpretation; the widgets call these) ---
+
+    def _edit(self, stage_id: str, **changes: Any) -> Interpretation:
+        return self.with_decision(stage_id, dataclasses.replace(self.decision(stage_id), **changes))
+
+    def with_peak(self, stage_id: str, x_mm: float, author: str, note: str = "") -> Interpretation:
+        """A manual peak at displacement ``x_mm`` (it snaps to the nearest reading)."""
+        return self._edit(stage_id, peak=PeakChoice("manual", float(x_mm), author, utc_now(), note))
+
+    def with_critical_state(self, stage_id: str, x_from_mm: float, x_to_mm: float, author: str,
+                            note: str = "") -> Interpretation:
+        """A manual critical-state window from ``x_from_mm`` to ``x_to_mm``."""
+        lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
+        return self._edit(stage_id, critical_state=WindowChoice("manual", lo, hi, author, utc_now(), note))
+
+    def back_to_suggestion(self, stage_id: str, pick: Literal["peak", "critical_state"]) -> Interpretation:
+        return self._edit(stage_id, **{pick: PeakChoice() if pick == "peak" else WindowChoice()})
+
+    def excluded(self, stage_id: str, reason: str, author: str) -> Interpretation:
+        """Exclude a stage from the envelopes; a reason is required. It stays visible, greyed."""
+        return self._edit(stage_id, included=False, exclusion_reason=reason, author=author, time_utc=utc_now())
+
+    def restored(self, stage_id: str, author: str) -> Interpretation:
+        return self._edit(stage_id, included=True, exclusion_reason="", author=author, time_utc=utc_now())
+
+    def with_note(self, stage_id: str, note: str, author: str) -> Interpretation:
+        return self._edit(stage_id, note=note, author=author, time_utc=utc_now())
+
+    def with_raw_files(self, hashes: Mapping[str, str]) -> Interpretation:
+        """Record the SHA-256 of every raw file the decisions were made against."""
+        return dataclasses.replace(self, raw_files=dict(hashes))
+
+    def with_signoff(self, state: Literal["draft", "checked", "approved"], who: str, note: str = "") -> Interpretation:
+        """Move the sign-off state: draft -> checked -> approved, or back to draft. Who and when are kept."""
+        order = ("draft", "checked", "approved")
+        if state not in order:
+            raise ValueError(f"sign-off state must be one of {', '.join(order)}, not {state!r}")
+        now = order.index(self.signoff.state)
+        if state != "draft" and order.index(state) != now + 1:
+            raise ValueError(f"sign-off goes draft -> checked -> approved; cannot go from {self.signoff.state} to {state}")
+        if not who.strip():
+            raise ValueError("a sign-off needs the name of the person")
+        event = {"state": state, "who": who, "time_utc": utc_now(), "note": note}
+        return dataclasses.replace(self, signoff=SignOff(state, (*self.signoff.history, event)))
 
     def to_dict(self) -> dict[str, Any]:
         return {

@@ -20,6 +20,7 @@ from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage
 from .reduce import reduce_stage
 from .results import EnvelopeResult, Results, StageResult
+from .sensitivity import leave_one_out
 
 __all__ = ["analyse_stage", "fit_envelopes", "interpret", "provenance", "read_all"]
 
@@ -107,11 +108,15 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
     free = fit_line(sigma, tau, fit.level) if len(used) >= 3 and len(set(sigma)) > 1 else None
     origin = fit_through_origin(sigma, tau, fit.level) if len(used) >= 2 else None
     reason = None
+    reported = fit.cohesion
     if free is None:
         reason = f"{len(used)} included stage(s) with a {kind.replace('_', '-')} value: a fit with c' free needs 3 or more"
         if kind == "peak" and len(used) < len(members):
             reason += " (stages without a distinct peak and excluded stages do not count)"
-    return EnvelopeResult(group, kind, ids, sigma, tau, free, origin, fit.cohesion, reason)
+        if origin is not None:
+            reported = "zero"
+            reason += "; the through-origin fit (c' = 0) is reported instead"
+    return EnvelopeResult(group, kind, ids, sigma, tau, free, origin, reported, reason)
 
 
 def fit_envelopes(stages: Iterable[StageResult], fit: FitSettings) -> tuple[EnvelopeResult, ...]:
@@ -163,6 +168,7 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
         analyse_stage(s, readings[s.id], interp.decision(s.id), interp.settings, interp.raw_files.get(s.relpath))
         for s in proj.stages
     )
+    envelopes = fit_envelopes(stages, interp.settings.fit)
     return Results(
         project={"name": proj.name, **dict(proj.meta)},
         conventions={
@@ -173,6 +179,7 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
         },
         settings=dataclasses.asdict(interp.settings),
         stages=stages,
-        envelopes=fit_envelopes(stages, interp.settings.fit),
+        envelopes=envelopes,
         provenance=provenance(proj, readings, interp),
+        sensitivity=tuple(row for e in envelopes for row in leave_one_out(e, interp.settings.fit.level)),
     )

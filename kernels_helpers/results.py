@@ -11,11 +11,14 @@ import json
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .envelope import LineFit
 from .picks import PointValues, WindowValues
 from .reduce import ReducedStage
+
+if TYPE_CHECKING:
+    from .sensitivity import LeaveOneOut
 
 __all__ = ["EnvelopeResult", "Results", "StageResult"]
 
@@ -113,6 +116,7 @@ class Results:
     stages: tuple[StageResult, ...]
     envelopes: tuple[EnvelopeResult, ...]
     provenance: Mapping[str, Any]
+    sensitivity: tuple[LeaveOneOut, ...] = ()  # leave-one-out refits of every reported envelope
 
     def stage(self, stage_id: str) -> StageResult:
         for s in self.stages:
@@ -186,6 +190,7 @@ class Results:
             "stages": stages,
             "envelopes": envelopes,
             "provenance": dict(self.provenance),
+            "sensitivity": [dataclasses.asdict(r) for r in self.sensitivity],
         }
 
     def to_json(self) -> str:

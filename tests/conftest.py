@@ -24,7 +24,7 @@ ARTIFACTS = REPO / "test-artifacts"
 def example_copy(tmp_path: Path) -> Path:
     """A copy of the example project (project file and readings only) that a test may change."""
     dst = tmp_path / "example_project"
-    shutil.copytree(EXAMPLE, dst, ignore=shutil.ignore_patterns("*.ipynb", "records", "interpretation.json"))
+    shutil.copytree(EXAMPLE, dst, ignore=shutil.ignore_patterns("*.ipynb", "records"))
     return dst
 
 

@@ -23,6 +23,8 @@ PURE_MODULES = [
     "interpretation",
     "results",
     "pipeline",
+    "sensitivity",
+    "diff",
 ]
 FORBIDDEN = ("bokeh", "ipywidgets", "nbconvert", "nbclient", "jupyter_bokeh")
 PACKAGE_DIR = Path(kernels_helpers.__file__).parent

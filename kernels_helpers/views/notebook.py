@@ -74,6 +74,8 @@ def show_envelopes(results: Results) -> None:
     for group in dict.fromkeys(e.group for e in results.envelopes):
         show(envelope_figure(results, group))
     display(HTML(tables.envelope_table(results)))
+    _h("Sensitivity: each stage left out in turn")
+    display(HTML(tables.sensitivity_table(results)))
     display(HTML(tables.caution_html()))
 
 

@@ -23,6 +23,7 @@ __all__ = [
     "inputs_table",
     "picks_table",
     "provenance_table",
+    "sensitivity_table",
     "specimen_table",
 ]
 
@@ -169,6 +170,21 @@ def envelope_table(results: Results) -> str:
          "residuals (kPa)", "remarks"),
         rows,
     )
+
+
+def sensitivity_table(results: Results) -> str:
+    """Leave-one-out: every envelope refitted without each of its stages in turn."""
+    def change(v: float | None, digits: int) -> str:
+        return "&ndash;" if v is None else f"{v:+.{digits}f}"
+
+    rows = [
+        (esc(r.group), esc(r.kind.replace("_", " ")), esc(r.left_out), str(r.n_left), num(r.phi_deg, 1),
+         change(r.phi_change_deg, 2), num(r.c_kpa, 1), change(r.c_change_kpa, 2), num(r.phi_origin_deg, 1),
+         change(r.phi_origin_change_deg, 2), esc(r.method))
+        for r in results.sensitivity
+    ]
+    return table(("group", "envelope", "stage left out", "n left", "phi' (deg)", "change", "c' (kPa)", "change",
+                  "phi' c'=0 (deg)", "change", "how"), rows)
 
 
 def flags_table(results: Results) -> str:

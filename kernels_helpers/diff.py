@@ -1,0 +1,127 @@
+"""What changed between two interpretations of one project, in words an engineer reads.
+
+Both interpretations are run through the same pipeline on the same readings, so the report says
+not only which decisions changed but what that did to the picks and to c' and phi'.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from .interpretation import Interpretation
+from .pipeline import interpret
+from .project import Project
+from .results import Results, StageResult
+
+__all__ = ["InterpretationDiff", "diff_interpretations"]
+
+
+@dataclass(frozen=True)
+class InterpretationDiff:
+    """Sentences grouped by topic; empty when the two interpretations give the same answer."""
+
+    stages: tuple[str, ...]
+    settings: tuple[str, ...]
+    signoff: tuple[str, ...]
+    envelopes: tuple[str, ...]
+
+    @property
+    def empty(self) -> bool:
+        return not (self.stages or self.settings or self.signoff or self.envelopes)
+
+    def to_text(self, before: str = "before", after: str = "after") -> str:
+        if self.empty:
+            return f"No difference between {before} and {after}.\n"
+        out = [f"Changes from {before} to {after}:"]
+        for title, lines in (("Stages", self.stages), ("Settings", self.settings), ("Sign-off", self.signoff),
+                             ("Envelopes", self.envelopes)):
+            if lines:
+                out.append(f"{title}:")
+                out.extend(f"  - {line}" for line in lines)
+        return "\n".join(out) + "\n"
+
+
+def _flat(d: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for k, v in d.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, Mapping):
+            out.update(_flat(v, key + "."))
+        else:
+            out[key] = v
+    return out
+
+
+def _stage_lines(a: StageResult, b: StageResult) -> list[str]:
+    sid, lines = a.stage_id, []
+    if a.included != b.included:
+        lines.append(f"{sid}: excluded ({b.exclusion_reason})" if not b.included else f"{sid}: restored to the envelopes")
+    elif not b.included and a.exclusion_reason != b.exclusion_reason:
+        lines.append(f"{sid}: reason for exclusion changed to \"{b.exclusion_reason}\"")
+    pa, pb = a.peak, b.peak
+    if (a.peak_source, pa.index) != (b.peak_source, pb.index):
+        lines.append(
+            f"{sid}: peak {a.peak_source} at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) -> {b.peak_source} at "
+            f"x = {pb.x_mm:.2f} mm (tau {pb.tau_kpa:.1f} kPa): moved {pb.x_mm - pa.x_mm:+.2f} mm, "
+            f"tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa" + (f"; note: {b.peak_note}" if b.peak_note else "")
+        )
+    ca, cb = a.cs, b.cs
+    if (a.cs_source, ca.x_from_mm, ca.x_to_mm) != (b.cs_source, cb.x_from_mm, cb.x_to_mm):
+        lines.append(
+            f"{sid}: critical-state window {a.cs_source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm (tau {ca.tau_kpa:.1f} kPa)"
+            f" -> {b.cs_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
+            f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa" + (f"; note: {b.cs_note}" if b.cs_note else "")
+        )
+    if a.note != b.note:
+        lines.append(f"{sid}: note changed to \"{b.note}\"" if b.note else f"{sid}: note removed")
+    return lines
+
+
+def _f(value: float, sign: str = "") -> str:
+    """Two decimals, never "-0.00"."""
+    text = f"{value:{sign}.2f}"
+    return "0.00" if float(text) == 0 else text
+
+
+def _form(reported: str) -> str:
+    return "c' = 0" if reported == "zero" else "c' free"
+
+
+def _envelope_lines(ra: Results, rb: Results) -> list[str]:
+    lines = []
+    for eb in rb.envelopes:
+        ea = ra.envelope(eb.group, eb.kind)
+        fa, fb = ea.chosen, eb.chosen
+        name = f"{eb.group}, {eb.kind.replace('_', ' ')}"
+        if fa is None and fb is None:
+            continue
+        if fa is None or fb is None:
+            lines.append(f"{name}: {'no longer fitted' if fb is None else 'now fitted'}"
+                         + (f" (phi' {fb.phi_deg:.1f} deg, c' {fb.intercept:.1f} kPa)" if fb else ""))
+            continue
+        if (fa.slope, fa.intercept, ea.stage_ids) == (fb.slope, fb.intercept, eb.stage_ids):
+            continue
+        form = "" if ea.reported == eb.reported else f" (fit {_form(ea.reported)} -> {_form(eb.reported)})"
+        lines.append(
+            f"{name}: phi' {_f(fa.phi_deg)} -> {_f(fb.phi_deg)} deg ({_f(fb.phi_deg - fa.phi_deg, '+')}), "
+            f"c' {_f(fa.intercept)} -> {_f(fb.intercept)} kPa ({_f(fb.intercept - fa.intercept, '+')}), "
+            f"stages {len(ea.stage_ids)} -> {len(eb.stage_ids)}{form}"
+        )
+    return lines
+
+
+def diff_interpretations(project: Project, before: Interpretation, after: Interpretation) -> InterpretationDiff:
+    """Compare two interpretations of ``project`` by their decisions and by their results."""
+    ra, rb = interpret(project, before), interpret(project, after)
+    stages = [line for sa, sb in zip(ra.stages, rb.stages, strict=True) for line in _stage_lines(sa, sb)]
+    fa, fb = _flat(dataclasses.asdict(before.settings)), _flat(dataclasses.asdict(after.settings))
+    settings = [f"{k}: {fa.get(k)!r} -> {fb.get(k)!r}" for k in sorted(set(fa) | set(fb)) if fa.get(k) != fb.get(k)]
+    signoff = []
+    if before.signoff.state != after.signoff.state:
+        last = after.signoff.history[-1] if after.signoff.history else {}
+        who = f" by {last.get('who')} at {last.get('time_utc')}" if last else ""
+        signoff.append(f"{before.signoff.state} -> {after.signoff.state}{who}")
+    return InterpretationDiff(tuple(stages), tuple(settings), tuple(signoff), tuple(_envelope_lines(ra, rb)))
