@@ -8,6 +8,7 @@ field at fault and say what to do next.
 from __future__ import annotations
 
 __all__ = [
+    "ImportFolderError",
     "InterpretationFileError",
     "ProjectFileError",
     "ReadingsError",
@@ -27,6 +28,10 @@ class ProjectFileError(ShearbookError, ValueError):
 
 class ReadingsError(ShearbookError, ValueError):
     """A readings file cannot be read with the column map and units given."""
+
+
+class ImportFolderError(ShearbookError, ValueError):
+    """A folder of laboratory files cannot be turned into a project without being told more."""
 
 
 class UnitError(ShearbookError, ValueError):

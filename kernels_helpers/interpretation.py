@@ -19,12 +19,14 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Final, Literal
 
+from .design import PARTIAL_FACTOR_SETS
 from .errors import InterpretationFileError
 from .picks import PickSettings
 from .reduce import ReductionSettings
 
 __all__ = [
     "INTERPRETATION_FILE",
+    "DesignChoices",
     "FitSettings",
     "Interpretation",
     "PeakChoice",
@@ -127,6 +129,55 @@ class SignOff:
 
 
 @dataclass(frozen=True)
+class DesignChoices:
+    """The engineer's characteristic/design choices, with who, when and why (see ``design.py``).
+
+    ``limit_state`` "large zone" takes the lower bound of the mean line, "local" the prediction
+    bound (a 5 % fractile). ``parameter_set`` says whether peak or critical-state parameters suit
+    the application (e.g. small anticipated strains vs large deformations); ``group`` is the
+    envelope group ("" = the pooled stratum group when there is one, else the first group).
+    ``expressed`` "tangent" gives c'_k and phi'_k, "secant" a line through the origin. Partial
+    factors: ``gamma_phi`` on tan phi', ``gamma_c`` on c'; the names "M1" and "M2" carry the
+    EN 1997-1 Table A.4 values, other values need a name of their own (e.g. the National Annex).
+    ``v_known``: a coefficient of variation of tan phi' known from experience (EN 1990 D7.2).
+    """
+
+    limit_state: Literal["large zone", "local"] = "large zone"
+    parameter_set: Literal["peak", "critical_state"] = "critical_state"
+    group: str = ""
+    expressed: Literal["tangent", "secant"] = "tangent"
+    partial_factors: str = "M2"
+    gamma_phi: float = 1.25
+    gamma_c: float = 1.25
+    c_k_zero: bool = False
+    c_k_zero_reason: str = ""
+    v_known: float | None = None
+    note: str = ""
+    author: str = ""
+    time_utc: str = ""
+
+    def __post_init__(self) -> None:
+        for name, allowed in (("limit_state", ("large zone", "local")), ("parameter_set", ("peak", "critical_state")),
+                              ("expressed", ("tangent", "secant"))):
+            if getattr(self, name) not in allowed:
+                raise ValueError(f"{name} must be one of {', '.join(map(repr, allowed))}, not {getattr(self, name)!r}")
+        if not (self.gamma_phi > 0 and self.gamma_c > 0):
+            raise ValueError(f"partial factors must be positive, not gamma_phi {self.gamma_phi!r}, gamma_c {self.gamma_c!r}")
+        table = PARTIAL_FACTOR_SETS.get(self.partial_factors)
+        if table is not None and table != (self.gamma_phi, self.gamma_c):
+            raise ValueError(
+                f"set {self.partial_factors} of EN 1997-1 Table A.4 is gamma_phi {table[0]}, gamma_c {table[1]}; "
+                "to use other values give them a name of your own (e.g. the National Annex)"
+            )
+        if not self.partial_factors.strip():
+            raise ValueError("the partial factor set needs a name (M1, M2 or your own, e.g. the National Annex)")
+        if self.c_k_zero and not self.c_k_zero_reason.strip():
+            raise ValueError("c'_k can only be set to zero with a stated reason")
+        if self.v_known is not None and not 0 < self.v_known < 1:
+            raise ValueError(f"v_known is a coefficient of variation between 0 and 1, not {self.v_known!r}")
+
+
+@dataclass(frozen=True)
 class Interpretation:
     """The engineer's decisions for a project; the single source of truth for the widgets."""
 
@@ -135,6 +186,7 @@ class Interpretation:
     raw_files: Mapping[str, str] = field(default_factory=dict)  # relpath -> SHA-256 when last saved
     signoff: SignOff = field(default_factory=SignOff)
     schema: str = SCHEMA
+    design: DesignChoices = field(default_factory=DesignChoices)
 
     def decision(self, stage_id: str) -> StageDecision:
         return self.stages.get(stage_id, StageDecision())
@@ -187,6 +239,11 @@ class Interpretation:
         event = {"state": state, "who": who, "time_utc": utc_now(), "note": note}
         return dataclasses.replace(self, signoff=SignOff(state, (*self.signoff.history, event)))
 
+    def with_design(self, author: str, **changes: Any) -> Interpretation:
+        """Change the characteristic/design choices (fields of :class:`DesignChoices`), stamping who and when."""
+        choices = dataclasses.replace(self.design, **changes, author=author, time_utc=utc_now())
+        return dataclasses.replace(self, design=choices)
+
     def to_dict(self) -> dict[str, Any]:
         return {
             "schema": self.schema,
@@ -195,6 +252,7 @@ class Interpretation:
             "stages": {k: dataclasses.asdict(v) for k, v in sorted(self.stages.items())},
             "raw_files": dict(sorted(self.raw_files.items())),
             "signoff": {"state": self.signoff.state, "history": [dict(h) for h in self.signoff.history]},
+            "design": dataclasses.asdict(self.design),
         }
 
     def to_json(self) -> str:
@@ -244,7 +302,9 @@ def from_dict(data: Mapping[str, Any], where: str) -> Interpretation:
         stages[sid] = _build(StageDecision, {**raw, "peak": peak, "critical_state": cs}, w)
     so = data.get("signoff", {})
     signoff = _build(SignOff, {**so, "history": tuple(so.get("history", ()))}, f"{where} signoff")
-    return Interpretation(stages=stages, settings=settings, raw_files=dict(data.get("raw_files", {})), signoff=signoff)
+    design = _build(DesignChoices, data.get("design", {}), f"{where} design")  # absent in older files: defaults
+    return Interpretation(stages=stages, settings=settings, raw_files=dict(data.get("raw_files", {})), signoff=signoff,
+                          design=design)
 
 
 def load_interpretation(path: str | Path) -> Interpretation:

@@ -17,13 +17,23 @@ Rules (also stated in the contributor guide and the record):
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Literal
 
 import numpy as np
 import pandas as pd
 
 from .reduce import ReducedStage
 
-__all__ = ["PickSettings", "PointValues", "WindowValues", "at_point", "over_window", "suggest_critical_state", "suggest_peak"]
+__all__ = [
+    "PickSettings",
+    "PointValues",
+    "WindowValues",
+    "at_point",
+    "over_window",
+    "peak_flags",
+    "suggest_critical_state",
+    "suggest_peak",
+]
 
 
 @dataclass(frozen=True)
@@ -34,11 +44,18 @@ class PickSettings:
     cs_rate_tolerance: float = 0.01
     cs_trend_tolerance: float = 0.02
     distinct_peak_margin: float = 0.03
+    peak_rule: Literal["tau", "ratio"] = "tau"  # maximum shear stress, or maximum stress ratio tau/sigma
+    peak_dilation_offset_mm: float = 0.5  # flag when the peak is further than this from the maximum dilation rate
+    stick_slip_fraction: float = 0.02  # flag when the readings scatter about the smoothed peak by more than this
+    residual_tolerance: float = 0.03  # successive forward passes agree within this fraction
 
     def __post_init__(self) -> None:
-        for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin"):
+        for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin",
+                     "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance"):
             if not getattr(self, name) > 0:
                 raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
+        if self.peak_rule not in ("tau", "ratio"):
+            raise ValueError(f"peak_rule must be 'tau' or 'ratio', not {self.peak_rule!r}")
 
 
 @dataclass(frozen=True)
@@ -79,7 +96,11 @@ class WindowValues:
 
 
 def _shear_rows(curve: pd.DataFrame) -> pd.DataFrame:
-    return curve[curve["in_shear"].to_numpy()]
+    """Readings a pick may use: shearing (after the seating slack), first pass, not flagged as spikes."""
+    keep = curve["in_shear"].to_numpy() & (curve["pass_no"].to_numpy() == 1)
+    if "spike" in curve:
+        keep &= ~curve["spike"].to_numpy(dtype=bool)
+    return curve[keep]
 
 
 def at_point(reduced: ReducedStage, x_mm: float) -> PointValues:
@@ -152,15 +173,49 @@ def suggest_critical_state(reduced: ReducedStage, settings: PickSettings) -> tup
 def suggest_peak(reduced: ReducedStage, cs: WindowValues, settings: PickSettings) -> tuple[float, str | None]:
     """Suggested peak position (mm) and, when there is no distinct peak, the reason in words."""
     rows = _shear_rows(reduced.curve)
-    i = int(np.argmax(rows["tau_smooth_kpa"].to_numpy()))
+    smooth = rows["tau_smooth_kpa"].to_numpy()
+    score = smooth if settings.peak_rule == "tau" else smooth / rows["sigma_kpa"].to_numpy()
+    i = int(np.nanargmax(score))
     x_peak = float(rows["x_mm"].iloc[i])
-    tau_peak = float(rows["tau_smooth_kpa"].iloc[i])
-    excess = tau_peak / cs.tau_kpa - 1.0
+    excess = float(score[i]) / (cs.tau_kpa if settings.peak_rule == "tau" else cs.ratio) - 1.0
     if x_peak >= cs.x_from_mm:
         return x_peak, "no distinct peak: the maximum shear stress lies in the critical-state window"
     if excess < settings.distinct_peak_margin:
         return x_peak, (
-            f"no distinct peak: the maximum shear stress exceeds the critical state by {excess * 100:.1f} % "
+            f"no distinct peak: the maximum {'shear stress' if settings.peak_rule == 'tau' else 'stress ratio'} exceeds "
+            f"the critical state by {excess * 100:.1f} % "
             f"(less than {settings.distinct_peak_margin * 100:g} %)"
         )
     return x_peak, None
+
+
+def peak_flags(reduced: ReducedStage, peak: PointValues, settings: PickSettings) -> tuple[str, ...]:
+    """Checks on a peak an engineer should see (REFERENCES sec. 5 and 9, common practice).
+
+    * The peak should coincide with the maximum rate of dilation (stress-dilatancy): flagged when
+      they are further apart than ``peak_dilation_offset_mm`` and a quarter of the peak displacement.
+    * Stick-slip or noise: flagged when the readings within 0.5 mm of the peak scatter about the
+      smoothed curve by more than ``stick_slip_fraction`` of the peak (95th percentile of the
+      deviation), or when the raw maximum lies more than 0.5 mm from the smoothed one.
+    """
+    rows = _shear_rows(reduced.curve)
+    x = rows["x_mm"].to_numpy()
+    flags = []
+    rate = rows["dydx"].to_numpy()
+    if np.isfinite(rate).any() and np.nanmax(rate) > settings.cs_rate_tolerance:
+        x_dil = float(x[int(np.nanargmax(rate))])
+        limit = max(settings.peak_dilation_offset_mm, 0.25 * peak.x_mm)
+        if abs(x_dil - peak.x_mm) > limit:
+            flags.append(f"peak at {peak.x_mm:.2f} mm but maximum rate of dilation at {x_dil:.2f} mm "
+                         f"(apart by more than {limit:.2f} mm): they should coincide; check the pick")
+    near = np.abs(x - peak.x_mm) <= 0.5
+    dev = np.abs(rows["tau_kpa"].to_numpy()[near] - rows["tau_smooth_kpa"].to_numpy()[near])
+    if dev.size and float(np.percentile(dev, 95)) > settings.stick_slip_fraction * peak.tau_kpa:
+        flags.append(f"stick-slip or noise near the peak: readings scatter by {float(np.percentile(dev, 95)):.1f} kPa "
+                     f"({float(np.percentile(dev, 95)) / peak.tau_kpa * 100:.1f} % of the peak) about the smoothed curve; "
+                     "the peak value is uncertain by about that much")
+    x_raw_max = float(x[int(np.argmax(rows["tau_kpa"].to_numpy()))])
+    if abs(x_raw_max - peak.x_mm) > 0.5:
+        flags.append(f"the largest single reading is at {x_raw_max:.2f} mm, {abs(x_raw_max - peak.x_mm):.2f} mm from the "
+                     f"peak of the smoothed curve at {peak.x_mm:.2f} mm: noise or stick-slip may move the peak")
+    return tuple(flags)

@@ -7,22 +7,27 @@ pure function of the ones above it; nothing here reads widgets or writes files.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import importlib.metadata
 import platform
 import sys
 from collections.abc import Iterable, Mapping
 from pathlib import Path
 
+from .derived import derive
 from .envelope import fit_line, fit_through_origin
 from .interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, Settings, StageDecision, load_interpretation
-from .picks import at_point, over_window, suggest_critical_state, suggest_peak
+from .multistage import expand_multistage
+from .passes import pass_stresses, residual_strength
+from .picks import at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
 from .project import Project, StageSpec, load_project
-from .readings import StageReadings, read_stage
-from .reduce import reduce_stage
+from .readings import StageReadings, read_stage, sha256_of
+from .reduce import ReducedStage, reduce_stage
 from .results import EnvelopeResult, Results, StageResult
+from .stage_checks import check_stage
 from .sensitivity import leave_one_out
 
-__all__ = ["analyse_stage", "fit_envelopes", "interpret", "provenance", "read_all"]
+__all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance", "read_all", "stage_units"]
 
 DEPENDENCIES = ("numpy", "scipy", "pandas")
 
@@ -32,10 +37,31 @@ def read_all(project: Project) -> dict[str, StageReadings]:
     return {s.id: read_stage(s) for s in project.stages}
 
 
+def stage_units(project: Project, readings: Mapping[str, StageReadings]) -> list[tuple[StageSpec, StageReadings, bool]]:
+    """The stages to analyse, in order: each declared stage, multi-stage tests split into theirs.
+
+    The third item is True for a later stage of a multi-stage test that continues from the previous
+    displacement (it takes the x origin of the test's first stage).
+    """
+    units: list[tuple[StageSpec, StageReadings, bool]] = []
+    for spec in project.stages:
+        if spec.test_type == "multi-stage":
+            units.extend(expand_multistage(spec, readings[spec.id]))
+        else:
+            units.append((spec, readings[spec.id], False))
+    return units
+
+
 def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecision, settings: Settings,
-                  saved_sha256: str | None = None) -> StageResult:
-    """Reduce one stage, suggest its picks and evaluate the picks the engineer chose."""
-    reduced = reduce_stage(spec, readings, settings.reduction)
+                  saved_sha256: str | None = None, origin_mm: float | None = None,
+                  reduced: ReducedStage | None = None) -> StageResult:
+    """Reduce one stage, suggest its picks and evaluate the picks the engineer chose.
+
+    ``reduced``: this stage's reduction under ``settings.reduction`` when the caller already has it
+    (the live workbook: a pick does not change the reduction); computed here otherwise.
+    """
+    if reduced is None:
+        reduced = reduce_stage(spec, readings, settings.reduction, origin_mm)
     cs_from, cs_to = suggest_critical_state(reduced, settings.picks)
     cs_suggested = over_window(reduced, cs_from, cs_to, settings.picks)
     choice = decision.critical_state
@@ -54,6 +80,19 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         peak = peak_suggested
     stale = saved_sha256 is not None and saved_sha256 != readings.sha256
     flags = list(cs.flags)
+    if no_peak is None:
+        flags.extend(peak_flags(reduced, peak, settings.picks))
+    # specimen, spike, normal-load, consolidation and drained-rate checks (stage_checks.py)
+    checks = check_stage(spec, readings, reduced, peak.x_mm if no_peak is None else cs.x_from_mm)
+    flags.extend(checks.flags)
+    passes, residual = (), None
+    if spec.test_type == "reversal":
+        c = reduced.curve[reduced.curve["in_shear"]]
+        passes = pass_stresses(c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(),
+                               c["pass_no"].to_numpy())
+        residual = residual_strength(passes, settings.picks.residual_tolerance)
+        if not residual.reached:
+            flags.append(residual.message)
     if stale:
         manual = [k for k, c in (("peak", decision.peak), ("critical state", choice)) if c.source == "manual"]
         flags.append(
@@ -82,7 +121,40 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         cs_note=choice.note,
         flags=tuple(flags),
         stale=stale,
+        passes=passes,
+        residual=residual,
+        consolidation=checks.consolidation,
+        rate=checks.rate,
     )
+
+
+def pair_flags(stages: tuple[StageResult, ...], ratio_tolerance: float = 0.05, e_tolerance: float = 0.05,
+               ) -> tuple[StageResult, ...]:
+    """Flag stages of one stratum, from different test sets, at about the same normal stress (within 10 %),
+    whose critical states clearly differ: tau/sigma by more than ``ratio_tolerance`` (relative) or void
+    ratio by more than ``e_tolerance``. Dense and loose specimens of one soil should reach the same
+    critical state (common practice; REFERENCES sec. 5)."""
+    extra: dict[str, list[str]] = {s.stage_id: [] for s in stages}
+    for i, a in enumerate(stages):
+        for b in stages[i + 1 :]:
+            if not a.stratum or a.stratum != b.stratum or a.test_set == b.test_set:
+                continue
+            if abs(a.sigma_nominal_kpa - b.sigma_nominal_kpa) > 0.1 * max(a.sigma_nominal_kpa, b.sigma_nominal_kpa):
+                continue
+            dr = abs(a.cs.ratio - b.cs.ratio) / max(a.cs.ratio, b.cs.ratio)
+            de = abs(a.cs.e - b.cs.e)
+            for me, other in ((a, b), (b, a)):
+                if dr > ratio_tolerance:
+                    extra[me.stage_id].append(
+                        f"critical-state stress ratio {me.cs.ratio:.3f} differs from {other.cs.ratio:.3f} of {other.stage_id} "
+                        f"({other.test_set}) at the same normal stress by {dr * 100:.1f} %: dense and loose specimens should "
+                        "reach the same critical state; check both picks")
+                if de > e_tolerance:
+                    extra[me.stage_id].append(
+                        f"void ratio at critical state {me.cs.e:.3f} differs from {other.cs.e:.3f} of {other.stage_id} "
+                        f"({other.test_set}) by {de:.3f}: the specimen-average void ratio may not represent the shear zone, "
+                        "or critical state was not reached")
+    return tuple(dataclasses.replace(s, flags=(*s.flags, *extra[s.stage_id])) if extra[s.stage_id] else s for s in stages)
 
 
 def _groups(stages: Iterable[StageResult]) -> dict[str, list[StageResult]]:
@@ -100,10 +172,15 @@ def _groups(stages: Iterable[StageResult]) -> dict[str, list[StageResult]]:
 
 
 def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSettings) -> EnvelopeResult:
-    used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)]
-    points = [(s.peak if kind == "peak" else s.cs) for s in used]
-    sigma = tuple(p.sigma_kpa for p in points)
-    tau = tuple(p.tau_kpa for p in points)
+    if kind == "residual":
+        used = [s for s in members if s.included and s.residual is not None and s.residual.reached]
+        sigma = tuple(float(s.residual.sigma_kpa) for s in used)  # type: ignore[union-attr, arg-type]
+        tau = tuple(float(s.residual.tau_kpa) for s in used)  # type: ignore[union-attr, arg-type]
+    else:
+        used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)]
+        points = [(s.peak if kind == "peak" else s.cs) for s in used]
+        sigma = tuple(p.sigma_kpa for p in points)
+        tau = tuple(p.tau_kpa for p in points)
     ids = tuple(s.stage_id for s in used)
     free = fit_line(sigma, tau, fit.level) if len(used) >= 3 and len(set(sigma)) > 1 else None
     origin = fit_through_origin(sigma, tau, fit.level) if len(used) >= 2 else None
@@ -120,12 +197,12 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
 
 
 def fit_envelopes(stages: Iterable[StageResult], fit: FitSettings) -> tuple[EnvelopeResult, ...]:
-    """Peak and critical-state envelopes for every group of stages."""
-    return tuple(
-        _envelope(group, kind, members, fit)
-        for group, members in _groups(list(stages)).items()
-        for kind in ("peak", "critical_state")
-    )
+    """Peak and critical-state envelopes for every group of stages (and residual for reversal tests)."""
+    out = []
+    for group, members in _groups(list(stages)).items():
+        kinds = ["peak", "critical_state"] + (["residual"] if any(s.residual is not None for s in members) else [])
+        out.extend(_envelope(group, kind, members, fit) for kind in kinds)
+    return tuple(out)
 
 
 def provenance(project: Project, readings: Mapping[str, StageReadings], interpretation: Interpretation) -> dict[str, object]:
@@ -133,7 +210,9 @@ def provenance(project: Project, readings: Mapping[str, StageReadings], interpre
     versions = {"kernels_helpers": _version("shearbook")}
     versions.update({d: _version(d) for d in DEPENDENCIES})
     return {
-        "raw_files": {r.relpath: {"sha256": r.sha256, "size_bytes": r.size_bytes} for r in readings.values()},
+        "raw_files": {r.relpath: {"sha256": r.sha256, "size_bytes": r.size_bytes} for r in readings.values()}
+        | {s.consolidation.relpath: {"sha256": sha256_of(s.consolidation.file), "size_bytes": s.consolidation.file.stat().st_size}
+           for s in project.stages if s.consolidation is not None and s.consolidation.file.is_file()},
         "interpretation_sha256": interpretation.sha256,
         "versions": versions,
         "python": sys.version.split()[0],
@@ -141,6 +220,7 @@ def provenance(project: Project, readings: Mapping[str, StageReadings], interpre
     }
 
 
+@functools.lru_cache(maxsize=None)  # a metadata look-up costs milliseconds; the live workbook refits on every drag
 def _version(dist: str) -> str:
     try:
         return importlib.metadata.version(dist)
@@ -164,10 +244,25 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
         interpretation = proj.root / INTERPRETATION_FILE
     interp = interpretation if isinstance(interpretation, Interpretation) else load_interpretation(interpretation)
     readings = read_all(proj)
-    stages = tuple(
-        analyse_stage(s, readings[s.id], interp.decision(s.id), interp.settings, interp.raw_files.get(s.relpath))
-        for s in proj.stages
-    )
+    analysed: list[StageResult] = []
+    origin: float | None = None
+    for spec, part, continued in stage_units(proj, readings):
+        result = analyse_stage(spec, part, interp.decision(spec.id), interp.settings, interp.raw_files.get(spec.relpath),
+                               origin if continued else None)
+        if not continued:
+            origin = result.reduced.seating_shift_mm
+        analysed.append(result)
+    return assemble_results(proj, readings, interp, tuple(analysed))
+
+
+def assemble_results(proj: Project, readings: Mapping[str, StageReadings], interp: Interpretation,
+                     analysed: tuple[StageResult, ...]) -> Results:
+    """Results from stage results as :func:`analyse_stage` gives them (before :func:`pair_flags`).
+
+    The tail of :func:`interpret`; the live workbook calls it after re-analysing only the stage
+    that changed, so both give the same results for the same interpretation.
+    """
+    stages = pair_flags(analysed)
     envelopes = fit_envelopes(stages, interp.settings.fit)
     return Results(
         project={"name": proj.name, **dict(proj.meta)},
@@ -182,4 +277,6 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
         envelopes=envelopes,
         provenance=provenance(proj, readings, interp),
         sensitivity=tuple(row for e in envelopes for row in leave_one_out(e, interp.settings.fit.level)),
+        **derive(stages, envelopes, interp.design, proj.design_stress_range_kpa,
+                 {s.id: s.specimen.relative_density for s in proj.stages}, interp.settings.fit.cohesion == "zero"),
     )

@@ -20,9 +20,11 @@ from .units import QUANTITY_OF, to_canonical_factor
 __all__ = [
     "PROJECT_FILE",
     "ColumnSpec",
+    "ConsolidationSpec",
     "CsvFormat",
     "NormalLoad",
     "Project",
+    "SampleSpec",
     "Specimen",
     "StageSpec",
     "load_project",
@@ -46,6 +48,9 @@ class Specimen:
     dry_mass_g: float
     gs: float
     consolidation_settlement_mm: float = 0.0  # positive = compression during consolidation
+    max_particle_mm: float | None = None  # largest particle size d_max, when the laboratory gives it
+    water_content_pct: float | None = None  # initial water content w in %, when given
+    relative_density: float | None = None  # I_D as a fraction 0-1 (for Bolton's index), when given
 
     @property
     def area0_mm2(self) -> float:
@@ -72,6 +77,7 @@ class ColumnSpec:
     unit: str
     factor: float  # multiply the file's values by this to get canonical units
     dilation_positive: bool = True  # vertical gauge only: False when it reads down on dilation
+    zero: float = 0.0  # zero offset in the file's unit: canonical = (reading - zero) x factor
 
 
 @dataclass(frozen=True)
@@ -82,6 +88,19 @@ class CsvFormat:
     decimal: str = "."
     header_row: int = 0  # 0-based line of the header; lines above it are preamble
     encoding: str = "utf-8-sig"
+    format: Literal["text", "xlsx"] = "text"  # "xlsx" for a workbook (openpyxl); default by the file's suffix
+    sheet: str = ""  # xlsx only: the sheet to read ("" = the first)
+    time_order: Literal["strict", "flag"] = "strict"  # "flag": non-increasing times raise a flag, not an error
+
+
+@dataclass(frozen=True)
+class ConsolidationSpec:
+    """The time-settlement readings of a stage's consolidation stage (optional)."""
+
+    file: Path  # absolute path of the readings file
+    relpath: str
+    columns: Mapping[str, ColumnSpec]  # time and vertical_displacement (with its dilation sense)
+    csv: CsvFormat
 
 
 @dataclass(frozen=True)
@@ -99,6 +118,26 @@ class StageSpec:
     stratum: str = ""
     test_type: str = "single-stage"
     description: str = ""
+    consolidation: ConsolidationSpec | None = None
+    sample: SampleSpec | None = None  # [stage.sample]: where the specimen came from (AGS4 export)
+
+
+@dataclass(frozen=True)
+class SampleSpec:
+    """Sample and specimen identification of a stage (``[stage.sample]``, every field optional; depths in m).
+
+    Only the AGS4 export needs them (``ags4_export.py`` names any that is missing).
+    """
+
+    location_id: str | None = None  # borehole or pit, e.g. "BH03"
+    sample_top_m: float | None = None  # depth to the top of the sample
+    sample_ref: str | None = None
+    sample_type: str | None = None  # AGS4 SAMP_TYPE code, e.g. "B" (bulk disturbed), "U" (undisturbed)
+    sample_id: str = ""  # unique sample identifier, when the project uses one
+    specimen_ref: str | None = None
+    specimen_depth_m: float | None = None  # depth to the top of the specimen
+    description: str = ""  # specimen description
+    condition: str = ""  # "undisturbed" | "remoulded" | "" (not stated)
 
 
 @dataclass(frozen=True)
@@ -180,6 +219,50 @@ def _specimen(t: _Fields) -> Specimen:
         dry_mass_g=t.number("dry_mass_g"),
         gs=t.number("gs"),
         consolidation_settlement_mm=t.number("consolidation_settlement_mm", positive=False, default=0.0),
+        max_particle_mm=t.number("max_particle_mm") if "max_particle_mm" in t.table else None,
+        water_content_pct=t.number("water_content_pct", positive=False) if "water_content_pct" in t.table else None,
+        relative_density=_relative_density(t),
+    )
+
+
+def _relative_density(t: _Fields) -> float | None:
+    if "relative_density" not in t.table:
+        return None
+    value = t.number("relative_density", positive=False)
+    if not 0.0 <= value <= 1.0:
+        raise ProjectFileError(
+            f"{t.where}: field 'relative_density' is I_D as a fraction between 0 and 1 (e.g. 0.65), not {value!r}."
+        )
+    return value
+
+
+def _sample(t: _Fields) -> SampleSpec | None:
+    if not t.table:
+        return None
+    known = set(SampleSpec.__dataclass_fields__)
+    unknown = sorted(set(t.table) - known)
+    if unknown:
+        raise ProjectFileError(
+            f"{t.where}: unknown field(s) {', '.join(unknown)}. Known fields: {', '.join(sorted(known))}.")
+    condition = t.text("condition", "")
+    if condition not in ("", "undisturbed", "remoulded"):
+        raise ProjectFileError(f"{t.where}: condition must be \"undisturbed\" or \"remoulded\", not {condition!r}.")
+
+    def text(key: str) -> str | None:
+        return t.text(key) if key in t.table else None
+
+    def depth(key: str) -> float | None:
+        if key not in t.table:
+            return None
+        value = t.number(key, positive=False)
+        if value < 0:
+            raise ProjectFileError(f"{t.where}: field {key!r} is a depth below ground in m (0 or more), not {value!r}.")
+        return value
+
+    return SampleSpec(
+        location_id=text("location_id"), sample_top_m=depth("sample_top_m"), sample_ref=text("sample_ref"),
+        sample_type=text("sample_type"), sample_id=t.text("sample_id", ""), specimen_ref=text("specimen_ref"),
+        specimen_depth_m=depth("specimen_depth_m"), description=t.text("description", ""), condition=condition,
     )
 
 
@@ -200,7 +283,7 @@ def _normal_load(t: _Fields, specimen: Specimen) -> NormalLoad:
     return NormalLoad(value * lever * G_N, f"hanger_mass_kg = {value:g} kg x lever_ratio {lever:g} x g_n")
 
 
-def _columns(t: _Fields, file_label: str) -> dict[str, ColumnSpec]:
+def _columns(t: _Fields, file_label: str, consolidation: bool = False) -> dict[str, ColumnSpec]:
     cols: dict[str, ColumnSpec] = {}
     for quantity, spec in t.table.items():
         where = f"{t.where}.{quantity}"
@@ -229,24 +312,66 @@ def _columns(t: _Fields, file_label: str) -> dict[str, ColumnSpec]:
             unit=unit,
             factor=factor,
             dilation_positive=sense == "positive",
+            zero=f.number("zero", positive=False, default=0.0),
         )
-    missing = [q for q in REQUIRED_COLUMNS if q not in cols]
-    if "shear_force" not in cols and "shear_stress" not in cols:
+    if consolidation:  # time and settlement only (settlement = compression = -vertical displacement)
+        missing = [q for q in ("time", "vertical_displacement") if q not in cols]
+    else:
+        missing = [q for q in REQUIRED_COLUMNS if q not in cols]
+    if not consolidation and "shear_force" not in cols and "shear_stress" not in cols:
         missing.append("shear_force (or shear_stress)")
     if missing:
         raise ProjectFileError(f"{t.where}: the column map lacks {', '.join(missing)}.")
     return cols
 
 
-def _csv(t: _Fields) -> CsvFormat:
+def _csv(t: _Fields, default_format: str = "text") -> CsvFormat:
     header_row = t.table.get("header_row", 0)
     if not isinstance(header_row, int) or isinstance(header_row, bool) or header_row < 0:
         raise ProjectFileError(f"{t.where}: header_row must be a whole number >= 0, not {header_row!r}.")
+    fmt = t.text("format", default_format)
+    if fmt not in ("text", "xlsx"):
+        raise ProjectFileError(f"{t.where}: format must be \"text\" or \"xlsx\", not {fmt!r}.")
+    order = t.text("time_order", "strict")
+    if order not in ("strict", "flag"):
+        raise ProjectFileError(f"{t.where}: time_order must be \"strict\" or \"flag\", not {order!r}.")
     return CsvFormat(
         delimiter=t.text("delimiter", ","),
         decimal=t.text("decimal", "."),
         header_row=header_row,
         encoding=t.text("encoding", "utf-8-sig"),
+        format=fmt,  # type: ignore[arg-type]
+        sheet=t.text("sheet", ""),
+        time_order=order,  # type: ignore[arg-type]
+    )
+
+
+def _inside(root: Path, relpath: str, where: str) -> Path:
+    """The absolute path of a readings file, which must lie inside the project folder."""
+    path = (root / relpath).resolve()
+    if not path.is_relative_to(root):
+        raise ProjectFileError(
+            f"{where}: readings path {relpath!r} points outside the project folder {root}. Copy the file into the "
+            "project folder (`shearbook import` does this) and give its path relative to the folder."
+        )
+    return path
+
+
+def _suffix_format(relpath: str) -> str:
+    return "xlsx" if relpath.lower().endswith((".xlsx", ".xlsm")) else "text"
+
+
+def _consolidation(root: Path, top: _Fields) -> ConsolidationSpec | None:
+    relpath = top.table.get("consolidation_file")
+    if relpath is None:
+        return None
+    relpath = top.text("consolidation_file")
+    where = f"{top.where} consolidation"
+    return ConsolidationSpec(
+        file=_inside(root, relpath, f"{top.where}: consolidation_file"),
+        relpath=relpath,
+        columns=_columns(_Fields(top.table_of("consolidation_columns"), f"{where}_columns"), relpath, consolidation=True),
+        csv=_csv(_Fields(top.table_of("consolidation_csv"), f"{where}_csv"), _suffix_format(relpath)),
     )
 
 
@@ -259,16 +384,18 @@ def _stage(root: Path, raw: Mapping[str, Any], defaults: Mapping[str, Any], inde
     specimen = _specimen(_Fields(top.table_of("specimen"), f"{top.where} specimen"))
     return StageSpec(
         id=stage_id,
-        file=(root / relpath).resolve(),
+        file=_inside(root, relpath, f"{top.where}: file"),
         relpath=relpath,
         specimen=specimen,
         normal_load=_normal_load(_Fields(top.table_of("normal_load"), f"{top.where} normal_load"), specimen),
         columns=_columns(_Fields(top.table_of("columns"), f"{top.where} columns"), relpath),
-        csv=_csv(_Fields(top.table_of("csv"), f"{top.where} csv")),
+        csv=_csv(_Fields(top.table_of("csv"), f"{top.where} csv"), _suffix_format(relpath)),
         test_set=top.text("test_set", ""),
         stratum=top.text("stratum", ""),
         test_type=top.text("test_type", "single-stage"),
         description=top.text("description", ""),
+        consolidation=_consolidation(root, top),
+        sample=_sample(_Fields(top.table_of("sample"), f"{top.where} sample")),
     )
 
 

@@ -1,24 +1,29 @@
 """Reading a stage's raw readings file into canonical units.
 
 The file is read once as bytes: the SHA-256 is taken of exactly the bytes that are parsed, and the
-file is never written. Columns are picked by the column map of the project file, converted to
-mm, N, kPa and s, and the vertical gauge is flipped when it reads down on dilation.
+file is never written. Columns are picked by the column map of the project file, zero offsets
+removed, converted to mm, N, kPa and s, and the vertical gauge is flipped when it reads down on
+dilation. Delimited text goes through pandas' C parser with numeric columns; only when a value is
+not a number is the file parsed again as text, to name the line and column at fault. Workbooks
+(``.xlsx``) are read with openpyxl.
 """
 
 from __future__ import annotations
 
 import hashlib
 import io
-from dataclasses import dataclass
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from .errors import ReadingsError
-from .project import StageSpec
+from .project import ColumnSpec, CsvFormat, StageSpec
 
-__all__ = ["StageReadings", "read_stage", "sha256_of"]
+__all__ = ["StageReadings", "read_consolidation", "read_stage", "read_table", "sha256_of"]
 
 #: canonical column names of a readings table, with their units
 CANONICAL_COLUMNS = {
@@ -30,6 +35,9 @@ CANONICAL_COLUMNS = {
     "normal_force": "normal_force_n",
     "normal_stress": "normal_stress_nominal_kpa",
 }
+MIN_SHEAR_ROWS = 10
+MIN_CONSOLIDATION_ROWS = 8
+_BLANK_LINE = re.compile(rb"\n[ \t]*\r?\n|\n[ \t]+\Z")
 
 
 @dataclass(frozen=True)
@@ -38,7 +46,8 @@ class StageReadings:
 
     ``table`` has ``time_s``, ``x_mm`` (positive in the direction of shearing), ``y_mm``
     (positive for dilation) and ``shear_force_n`` or ``shear_stress_nominal_kpa``, plus the
-    normal columns when the file has them. Row order is the file's.
+    normal columns when the file has them. Row order is the file's. ``notes`` are flags raised
+    while reading (e.g. times that do not increase, with ``csv.time_order = "flag"``).
     """
 
     stage_id: str
@@ -47,6 +56,14 @@ class StageReadings:
     size_bytes: int
     relpath: str
     first_data_line: int  # 1-based line number of the first data row in the file
+    lines: np.ndarray | None = field(default=None, repr=False)  # line of each row; None: consecutive
+    notes: tuple[str, ...] = ()
+
+    def line(self, row: int) -> int:
+        """1-based line (text) or sheet row (xlsx) of data row ``row``, as a person sees it."""
+        if self.lines is None:
+            return self.first_data_line + int(row)
+        return int(self.lines[min(int(row), len(self.lines) - 1)])
 
 
 def sha256_of(path: Path) -> str:
@@ -54,14 +71,16 @@ def sha256_of(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def _decode(stage: StageSpec, data: bytes) -> str:
+def _decode(path: Path, fmt: CsvFormat, data: bytes) -> str:
     try:
-        return data.decode(stage.csv.encoding)
+        return data.decode(fmt.encoding)
     except UnicodeDecodeError as exc:
         raise ReadingsError(
-            f"{stage.file}: cannot be decoded as {stage.csv.encoding} (byte {exc.start}). "
+            f"{path}: cannot be decoded as {fmt.encoding} (byte {exc.start}). "
             "Set csv.encoding in the project file (e.g. \"latin-1\")."
         ) from exc
+    except LookupError as exc:
+        raise ReadingsError(f"{path}: unknown encoding {fmt.encoding!r}; set csv.encoding to e.g. \"utf-8\".") from exc
 
 
 def _line_numbers(text: str, header_row: int) -> tuple[int, list[int]]:
@@ -75,74 +94,199 @@ def _line_numbers(text: str, header_row: int) -> tuple[int, list[int]]:
     return (filled[0], filled[1:]) if filled else (header_row + 1, [])
 
 
-def _parse(stage: StageSpec, text: str) -> pd.DataFrame:
-    fmt = stage.csv
+def _header_line_fast(data: bytes, header_row: int) -> tuple[int, int] | None:
+    """(1-based header line, byte offset after it) when no blank line follows it; else None."""
+    if b"\n" not in data and b"\r" in data:
+        return None
+    pos, line = 0, 0
+    while True:
+        end = data.find(b"\n", pos)
+        chunk = data[pos : len(data) if end < 0 else end]
+        if line >= header_row and chunk.strip():
+            break
+        if end < 0:
+            return None
+        pos, line = end + 1, line + 1
+    after = len(data) if end < 0 else end
+    return (line + 1, after) if not _BLANK_LINE.search(data, after) else None
+
+
+def _read_csv(path: Path, fmt: CsvFormat, source: bytes | str, usecols: list[str] | None,
+              as_text: bool) -> pd.DataFrame:
+    buffer = io.StringIO(source) if isinstance(source, str) else io.BytesIO(source)
+    options: dict[str, object] = {"dtype": str, "keep_default_na": False} if as_text else {}
     try:
         return pd.read_csv(
-            io.StringIO(text),
-            sep=fmt.delimiter,
-            decimal=fmt.decimal,
-            skiprows=fmt.header_row,
-            header=0,
-            skipinitialspace=True,
-            dtype=str,
-            keep_default_na=False,
+            buffer, sep=fmt.delimiter, decimal=fmt.decimal, skiprows=fmt.header_row, header=0, skipinitialspace=True,
+            usecols=usecols, encoding=None if isinstance(source, str) else fmt.encoding, **options,
         )
-    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise ReadingsError(f"{stage.file}: cannot be parsed as delimited text ({exc}). Check csv.delimiter and csv.header_row.") from exc
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
+        if isinstance(exc, UnicodeDecodeError):
+            raise
+        raise ReadingsError(
+            f"{path}: cannot be parsed as delimited text ({exc}). Check csv.delimiter and csv.header_row."
+        ) from exc
 
 
-def _numeric(stage: StageSpec, frame: pd.DataFrame, column: str, lines: list[int]) -> np.ndarray:
+def _xlsx_frame(path: Path, fmt: CsvFormat, data: bytes) -> tuple[pd.DataFrame, int, list[int]]:
+    """All cells of one sheet as text, the header's sheet row and each data row's sheet row."""
+    import openpyxl  # imported here: only workbooks need it
+
+    try:
+        book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
+    except Exception as exc:  # openpyxl raises zip, XML and key errors for files that are not workbooks
+        raise ReadingsError(f"{path}: not a readable .xlsx workbook ({type(exc).__name__}: {exc}). "
+                            "Save it again as .xlsx, or as CSV and set csv.format = \"text\".") from exc
+    try:
+        if fmt.sheet and fmt.sheet not in book.sheetnames:
+            raise ReadingsError(f"{path}: no sheet {fmt.sheet!r}; the workbook has {book.sheetnames}. Set csv.sheet.")
+        sheet = book[fmt.sheet] if fmt.sheet else book.worksheets[0]
+        rows: list[list[str]] = []
+        numbers: list[int] = []
+        for r, values in enumerate(sheet.iter_rows(values_only=True)):
+            cells = ["" if v is None else (repr(v) if isinstance(v, float) else str(v)) for v in values]
+            if r >= fmt.header_row and any(c.strip() for c in cells):
+                rows.append(cells)
+                numbers.append(r + 1)
+    finally:
+        book.close()
+    if not rows:
+        raise ReadingsError(f"{path}: the sheet has no header row at or below row {fmt.header_row + 1}. "
+                            "Check csv.header_row.")
+    header = [h.strip() for h in rows[0]]
+    width = len(header)
+    body = [(row + [""] * width)[:width] for row in rows[1:]]
+    return pd.DataFrame(body, columns=header, dtype=str), numbers[0], numbers[1:]
+
+
+def _numeric(path: Path, fmt: CsvFormat, frame: pd.DataFrame, column: str, lines: list[int]) -> np.ndarray:
     raw = frame[column].astype(str).str.strip()
-    if stage.csv.decimal != ".":
-        raw = raw.str.replace(stage.csv.decimal, ".", regex=False)
+    if fmt.decimal != ".":
+        raw = raw.str.replace(fmt.decimal, ".", regex=False)
     values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     bad = np.flatnonzero(~np.isfinite(values))
     if bad.size:
         i = int(bad[0])
         line = lines[min(i, len(lines) - 1)] if lines else i + 1  # lines has one entry per data row
         raise ReadingsError(
-            f"{stage.file}, line {line}, column {column!r}: {frame[column].iloc[i]!r} is not a number "
+            f"{path}, line {line}, column {column!r}: {frame[column].iloc[i]!r} is not a number "
             f"({bad.size} such value(s) in this column). Fix the file's copy or the column map; Shearbook never edits raw readings."
         )
     return values
 
 
-def read_stage(stage: StageSpec) -> StageReadings:
-    """Read the readings file of ``stage`` into canonical units.
+def _check_columns(path: Path, columns: Mapping[str, ColumnSpec], header: list[str], header_line: int) -> None:
+    absent = [c.column for c in columns.values() if c.column not in header]
+    if absent:
+        found = ", ".join(repr(c) for c in header)
+        raise ReadingsError(
+            f"{path}: column(s) {', '.join(repr(a) for a in absent)} named in the column map are not in the header "
+            f"(line {header_line}). Header has: {found}. Correct the column map in the project file (or re-import "
+            "with --column QUANTITY=NAME)."
+        )
+
+
+def _values(path: Path, fmt: CsvFormat, data: bytes, columns: Mapping[str, ColumnSpec]
+            ) -> tuple[dict[str, np.ndarray], int, np.ndarray | None]:
+    """Raw numbers of every mapped column, the first data line and the line of each row."""
+    if fmt.format == "xlsx":
+        frame, header_line, lines = _xlsx_frame(path, fmt, data)
+        _check_columns(path, columns, list(frame.columns), header_line)
+        values = {q: _numeric(path, fmt, frame, c.column, lines) for q, c in columns.items()}
+        return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64)
+    fast = _header_line_fast(data, fmt.header_row)
+    if fast is not None:  # fast path: C parser, numeric columns, consecutive lines
+        try:
+            header = list(pd.read_csv(io.BytesIO(data), sep=fmt.delimiter, skiprows=fmt.header_row, nrows=0,
+                                      skipinitialspace=True, encoding=fmt.encoding).columns)
+            _check_columns(path, columns, header, fast[0])
+            wanted = list(dict.fromkeys(c.column for c in columns.values()))
+            frame = _read_csv(path, fmt, data, wanted, as_text=False)
+        except UnicodeDecodeError:
+            _decode(path, fmt, data)  # raises with the byte position
+            raise
+        except (pd.errors.ParserError, pd.errors.EmptyDataError, LookupError):
+            frame = None  # the slow path below says what is wrong
+        if frame is not None:
+            values = {q: frame[c.column].to_numpy() for q, c in columns.items()}
+            if all(v.dtype.kind in "fiu" for v in values.values()):
+                floats = {q: v.astype(float, copy=False) for q, v in values.items()}
+                if all(np.isfinite(v).all() for v in floats.values()):
+                    return floats, fast[0] + 1, None
+    text = _decode(path, fmt, data)  # slow path: locate the line at fault
+    header_line, lines = _line_numbers(text, fmt.header_row)
+    if not text.strip():
+        raise ReadingsError(f"{path}: the file is empty. Ask the laboratory for the readings, or remove this stage.")
+    frame = _read_csv(path, fmt, text, None, as_text=True)
+    _check_columns(path, columns, list(frame.columns), header_line)
+    values = {q: _numeric(path, fmt, frame, c.column, lines) for q, c in columns.items()}
+    return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64)
+
+
+def _time_order(path: Path, fmt: CsvFormat, column: str, time_s: np.ndarray, line) -> tuple[str, ...]:
+    bad = np.flatnonzero(np.diff(time_s) <= 0)
+    if not bad.size:
+        return ()
+    i = int(bad[0]) + 1
+    kind = "repeats" if time_s[i] == time_s[i - 1] else "goes back from"
+    where = f"line {line(i)}, column {column!r}"
+    fact = (f"time {kind} the previous reading ({time_s[i - 1]:g} s then {time_s[i]:g} s; {bad.size} reading(s) out "
+            "of order)")
+    what = f"{path}, {where}: {fact}"
+    if fmt.time_order == "strict":
+        raise ReadingsError(f"{what}. Ask the laboratory for a corrected file, or set csv.time_order = \"flag\" in the "
+                            "project file to read it anyway with a flag.")
+    return (f"timestamps do not increase: {where} of {path.name}: {fact}; the readings are used in file order",)
+
+
+def read_table(path: Path, relpath: str, label: str, fmt: CsvFormat, columns: Mapping[str, ColumnSpec],
+               min_rows: int = MIN_SHEAR_ROWS, kind: str = "shear") -> StageReadings:
+    """Read one readings file with its column map into canonical units (see :class:`StageReadings`).
 
     Raises
     ------
     ReadingsError
-        Naming the file, line and column when a column is missing or a value is not a number.
+        Naming the file, line and column when the file is empty, a column is missing, a value is
+        not a number or the times do not increase.
     """
-    path = stage.file
     if not path.is_file():
-        raise ReadingsError(f"{path}: readings file of stage {stage.id!r} not found. Check 'file' in the project file.")
+        raise ReadingsError(f"{path}: readings file of {label} not found. Check 'file' in the project file.")
     data = path.read_bytes()
-    text = _decode(stage, data)
-    frame = _parse(stage, text)
-    header_line, lines = _line_numbers(text, stage.csv.header_row)
-    absent = [c.column for c in stage.columns.values() if c.column not in frame.columns]
-    if absent:
-        found = ", ".join(repr(c) for c in frame.columns)
-        raise ReadingsError(
-            f"{path}: column(s) {', '.join(repr(a) for a in absent)} named in the column map are not in the header "
-            f"(line {header_line}). Header has: {found}."
-        )
-    if len(frame) < 10:
-        raise ReadingsError(f"{path}: only {len(frame)} data rows; a shear stage needs many more. Check csv.header_row.")
+    if not data.strip():
+        raise ReadingsError(f"{path}: the file is empty. Ask the laboratory for the readings, or remove this stage.")
+    raw, first, lines = _values(path, fmt, data, columns)
+    n = len(next(iter(raw.values())))
+    if n == 0:
+        raise ReadingsError(f"{path}: the header (line {first - 1}) has no data rows below it. Check csv.header_row "
+                            "or ask the laboratory for the complete file.")
+    if n < min_rows:
+        raise ReadingsError(f"{path}: only {n} data rows; a {kind} stage needs many more. Check csv.header_row.")
     out: dict[str, np.ndarray] = {}
-    for quantity, spec in stage.columns.items():
-        values = _numeric(stage, frame, spec.column, lines) * spec.factor
+    for quantity, spec in columns.items():
+        values = raw[quantity]
+        if spec.zero:
+            values = values - spec.zero
+        values = values * spec.factor if spec.factor != 1.0 else values
         if quantity == "vertical_displacement" and not spec.dilation_positive:
             values = -values
         out[CANONICAL_COLUMNS[quantity]] = values
-    return StageReadings(
-        stage_id=stage.id,
-        table=pd.DataFrame(out),
-        sha256=hashlib.sha256(data).hexdigest(),
-        size_bytes=len(data),
-        relpath=stage.relpath,
-        first_data_line=lines[0] if lines else header_line + 1,
-    )
+    readings = StageReadings(label, pd.DataFrame(out, copy=False), hashlib.sha256(data).hexdigest(), len(data), relpath,
+                             first, lines)
+    notes = _time_order(path, fmt, columns["time"].column, out["time_s"], readings.line)
+    return readings if not notes else StageReadings(**{**readings.__dict__, "notes": notes})
+
+
+def read_stage(stage: StageSpec) -> StageReadings:
+    """Read the (shear) readings file of ``stage`` into canonical units."""
+    r = read_table(stage.file, stage.relpath, f"stage {stage.id!r}", stage.csv, stage.columns)
+    return StageReadings(**{**r.__dict__, "stage_id": stage.id})
+
+
+def read_consolidation(stage: StageSpec) -> StageReadings | None:
+    """Read the consolidation (time-settlement) readings of ``stage``, or None when it has none."""
+    c = stage.consolidation
+    if c is None:
+        return None
+    r = read_table(c.file, c.relpath, f"the consolidation stage of {stage.id!r}", c.csv, c.columns,
+                   MIN_CONSOLIDATION_ROWS, "consolidation")
+    return StageReadings(**{**r.__dict__, "stage_id": stage.id})

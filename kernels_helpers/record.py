@@ -23,11 +23,12 @@ import nbformat
 from nbclient import NotebookClient
 from nbclient.exceptions import CellExecutionError
 from nbconvert import HTMLExporter
+from nbconvert.preprocessors import TagRemovePreprocessor
 
 from .errors import RecordError
 from .interpretation import INTERPRETATION_FILE, load_interpretation
-from .pipeline import interpret
 from .project import load_project
+from .results import INTERPRETATION_MIME, RESULTS_MIME
 
 __all__ = ["TEMPLATE", "execute_workbook", "network_references", "write_record"]
 
@@ -35,6 +36,7 @@ REPO = Path(__file__).resolve().parent.parent
 TEMPLATE = REPO / "workbook" / "shear_interpretation.ipynb"
 TEMPLATES_DIR = Path(__file__).resolve().parent / "templates"
 View = Literal["report", "audit"]
+LIVE_TAG = "interactive"  # cells of the live screen: executed headless, left out of the record
 
 
 def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> nbformat.NotebookNode:
@@ -75,8 +77,7 @@ def execute_workbook(project_dir: Path, interpretation_file: Path | None = None,
 class _Refs(HTMLParser):
     """Collects every URL an HTML page would fetch by itself."""
 
-    ATTRS = {("script", "src"), ("link", "href"), ("img", "src"), ("iframe", "src"), ("source", "src"),
-             ("video", "src"), ("audio", "src"), ("embed", "src"), ("object", "data")}
+    FETCHING = ("src", "data", "poster", "srcset")  # attributes a browser fetches by itself, on any element
 
     def __init__(self) -> None:
         super().__init__()
@@ -86,7 +87,8 @@ class _Refs(HTMLParser):
     def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
         self._in_style = tag == "style"
         for name, value in attrs:
-            if (tag, name) in self.ATTRS and value and not value.startswith(("data:", "#")):
+            fetches = name in self.FETCHING or (tag == "link" and name == "href")  # <a href> is a link, not a fetch
+            if fetches and value and not value.startswith(("data:", "#")):
                 self.refs.append(f"<{tag} {name}={value}>")
 
     def handle_endtag(self, tag: str) -> None:
@@ -112,8 +114,21 @@ def export_html(nb: nbformat.NotebookNode, view: View) -> str:
     exporter.exclude_input = view == "report"
     exporter.exclude_input_prompt = True
     exporter.exclude_output_prompt = True
+    # The live screen (cells tagged "interactive") needs a kernel; the record keeps the static cells.
+    exporter.register_preprocessor(TagRemovePreprocessor(remove_cell_tags={LIVE_TAG}, enabled=True), enabled=True)
+    nb = nbformat.from_dict({**nb, "metadata": {k: v for k, v in nb.metadata.items() if k != "widgets"}})  # their state too
     body, _ = exporter.from_notebook_node(nb, resources={"metadata": {"name": "Shearbook record"}})
     return body
+
+
+def _published(nb: nbformat.NotebookNode, mime: str, template: Path) -> str:
+    """The JSON the workbook published under ``mime`` (views.show_provenance), as canonical text."""
+    for cell in nb.cells:
+        for out in cell.get("outputs", []):
+            if mime in out.get("data", {}):
+                return json.dumps(out["data"][mime], indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False)
+    raise RecordError(f"{template.name}: the workbook published no {mime} output (views.show_provenance); "
+                      "no record was written.")
 
 
 def _embed(html_text: str, blocks: dict[str, str]) -> str:
@@ -151,17 +166,17 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
                  view: View = "report", template: Path = TEMPLATE) -> Record:
     """Execute the workbook on ``project_dir`` and write the HTML record; return where and what."""
     root = Path(project_dir).resolve()
-    project = load_project(root)  # fail early with the project file's own message
+    load_project(root)  # fail early with the project file's own message
     interp_path = Path(interpretation_file).resolve() if interpretation_file else root / INTERPRETATION_FILE
-    interpretation = load_interpretation(interp_path)
-    results = interpret(project, interpretation)
+    load_interpretation(interp_path)
     nb = execute_workbook(root, interp_path, template)
+    results_json = _published(nb, RESULTS_MIME, template) + "\n"
+    interpretation_json = _published(nb, INTERPRETATION_MIME, template) + "\n"
     html_text = export_html(nb, view)
     refs = network_references(html_text)
     if refs:
         raise RecordError(f"the exported record would fetch from the network: {', '.join(refs[:5])}. Nothing was written.")
-    results_json = results.to_json()
-    html_text = _embed(html_text, {"shearbook-results": results_json, "shearbook-interpretation": interpretation.to_json(),
+    html_text = _embed(html_text, {"shearbook-results": results_json, "shearbook-interpretation": interpretation_json,
                                    "shearbook-record": json.dumps({"view": view, "schema": "shearbook.record/1"})})
     path = Path(out).resolve() if out else default_record_path(root, view)
     _write_atomic(path, html_text)

@@ -13,7 +13,9 @@ import pandas as pd
 from scipy.signal import savgol_filter
 
 from .errors import ReadingsError
+from .passes import label_passes
 from .project import Specimen, StageSpec
+from .checks import hampel_spikes
 from .readings import StageReadings
 
 __all__ = [
@@ -25,6 +27,7 @@ __all__ = [
     "reduce_stage",
     "seating_shift_mm",
     "smooth_on_x",
+    "stresses_kpa",
     "void_ratio",
 ]
 
@@ -147,7 +150,11 @@ class ReducedStage:
     ``curve`` columns: ``time_s``, ``x_raw_mm`` (as read), ``x_mm`` (after the seating shift),
     ``y_mm`` (dilation positive, zero at the first reading), ``area_mm2`` (the area forces were
     divided by), ``tau_kpa``, ``tau_smooth_kpa`` (lightly smoothed, to locate picks), ``sigma_kpa``, ``ratio`` (tau/sigma), ``height_mm``, ``e``,
-    ``dydx`` and ``in_shear`` (False for seating readings, which are kept but not used for picks).
+    ``dydx``, ``in_shear`` (False for seating readings, which are kept but not used for picks) and
+    ``pass_no`` (1 for the first forward pass; reversal tests count their passes). Also
+    ``rho_d_mg_m3`` (dry density), ``ratio_taylor`` (tau/sigma - dy/dx) and ``spike`` (isolated
+    spike, Hampel filter: kept and shown, left out of the smoothing and of suggestions). Stresses
+    on the other area convention: :func:`stresses_kpa`.
     """
 
     stage_id: str
@@ -161,17 +168,35 @@ class ReducedStage:
     area_convention: AreaConvention
 
 
-def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionSettings) -> ReducedStage:
-    """Reduce one stage's readings to stresses, void ratio and rate of dilation."""
+def stresses_kpa(reduced: ReducedStage, specimen: Specimen, convention: AreaConvention) -> tuple[np.ndarray, np.ndarray]:
+    """Shear and normal stress (kPa) at every reading on the ``"nominal"`` or ``"corrected"`` area.
+
+    Either convention is available whichever one the curve was reduced with: the force is
+    ``tau_kpa x area_mm2``. Computed on demand, so a long curve does not carry four more columns.
+    """
+    c = reduced.curve
+    force = c["tau_kpa"].to_numpy() * c["area_mm2"].to_numpy()  # N x 1000
+    if convention == "nominal":
+        area: np.ndarray | float = reduced.area0_mm2
+    else:
+        area = corrected_area_mm2(specimen.shape, specimen.width_mm, np.clip(c["x_mm"].to_numpy(), 0.0, None))
+    return force / area, reduced.normal_force_n * 1000.0 / area * np.ones(len(c))
+
+
+def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionSettings,
+                 origin_mm: float | None = None) -> ReducedStage:
+    """Reduce one stage's readings to stresses, void ratio and rate of dilation.
+
+    ``origin_mm``: for a later stage of a multi-stage test that continues from the previous
+    displacement, the zero of x found on the first stage (no new seating slack is sought).
+    """
     t = readings.table
-    if "shear_force_n" not in t:
-        raise ReadingsError(
-            f"{stage.file}: only shear forces are reduced in this version; map a shear_force column."
-        )
     x_raw = t["x_mm"].to_numpy()
-    force = t["shear_force_n"].to_numpy()
+    # a laboratory may give shear stress on the nominal area instead of force: back to a force
+    force = t["shear_force_n"].to_numpy() if "shear_force_n" in t else (
+        t["shear_stress_nominal_kpa"].to_numpy() * stage.specimen.area0_mm2 / 1000.0)
     try:
-        shift, start = seating_shift_mm(x_raw, force, settings.seating_fraction)
+        shift, start = (origin_mm, 0) if origin_mm is not None else seating_shift_mm(x_raw, force, settings.seating_fraction)
     except ValueError as exc:
         raise ReadingsError(f"{stage.file}: {exc}; check the shear force column and its unit.") from exc
     x = x_raw - shift
@@ -188,13 +213,25 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
     h_start = spec.height_mm - spec.consolidation_settlement_mm
     height = h_start + y
     in_shear = np.arange(len(x)) >= start
+    e = void_ratio(height, hs)
     dydx = np.full_like(x, np.nan)
     tau_smooth = np.full_like(x, np.nan)
-    try:
-        dydx[in_shear] = dilation_rate(x[in_shear], y[in_shear], settings.smoothing_window_mm)
-        tau_smooth[in_shear] = smooth_on_x(x[in_shear], tau[in_shear], settings.peak_smoothing_mm)
-    except ValueError as exc:
-        raise ReadingsError(f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column.") from exc
+    # isolated spikes (Hampel filter, checks.py): kept as read; the smoothing sees the moving median instead
+    spike_tau, tau_rest = hampel_spikes(tau[start:])  # the readings from the start of shear on
+    spike_y, y_rest = hampel_spikes(y[start:])
+    spike = np.concatenate((np.zeros(start, dtype=bool), spike_tau | spike_y))
+    tau_clean, y_clean = np.concatenate((tau[:start], tau_rest)), np.concatenate((y[:start], y_rest))
+    # Each pass of a reversal test is smoothed on its own (x runs both ways); other tests are one pass.
+    pass_no = label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64)
+    for p in np.unique(pass_no):
+        sel = in_shear & (pass_no == p)
+        if p > 1 and (not sel.any() or np.ptp(x[sel]) < 2 * settings.smoothing_window_mm):
+            continue  # a short return pass: no rate of dilation, readings kept
+        try:
+            dydx[sel] = dilation_rate(x[sel], y_clean[sel], settings.smoothing_window_mm)
+            tau_smooth[sel] = smooth_on_x(x[sel], tau_clean[sel], settings.peak_smoothing_mm)
+        except ValueError as exc:
+            raise ReadingsError(f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column.") from exc
     curve = pd.DataFrame(
         {
             "time_s": t["time_s"].to_numpy(),
@@ -207,10 +244,15 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
             "sigma_kpa": sigma,
             "ratio": tau / sigma,
             "height_mm": height,
-            "e": void_ratio(height, hs),
+            "e": e,
             "dydx": dydx,
             "in_shear": in_shear,
-        }
+            "pass_no": pass_no,
+            "rho_d_mg_m3": spec.gs / (1.0 + e),  # rho_d = G_s rho_w / (1 + e), rho_w = 1 Mg/m3
+            "ratio_taylor": tau / sigma - dydx,  # Taylor's interlocking-free ratio tau/sigma - dy/dx
+            "spike": spike,
+        },
+        copy=False,
     )
     return ReducedStage(
         stage_id=stage.id,

@@ -13,16 +13,25 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from .consolidation import ConsolidationResult, RateCheck, consolidation_dict
 from .envelope import LineFit
+from .passes import PassStress, Residual
 from .picks import PointValues, WindowValues
 from .reduce import ReducedStage
 
 if TYPE_CHECKING:
+    from .compare import SetComparison
+    from .critical_state import CriticalStateLine
+    from .derived import DesignResult, EnvelopeStatistics
+    from .dilatancy import StageDilatancy
     from .sensitivity import LeaveOneOut
 
 __all__ = ["EnvelopeResult", "Results", "StageResult"]
 
 RESULTS_SCHEMA = "shearbook.results/1"
+#: mimetypes under which the workbook publishes its results and interpretation for the record
+RESULTS_MIME = "application/vnd.shearbook.results+json"
+INTERPRETATION_MIME = "application/vnd.shearbook.interpretation+json"
 
 
 @dataclass(frozen=True)
@@ -50,6 +59,10 @@ class StageResult:
     cs_note: str
     flags: tuple[str, ...]
     stale: bool  # the raw file changed since the interpretation was saved
+    passes: tuple[PassStress, ...] = ()  # reversal tests: the stress at the end of every pass
+    residual: Residual | None = None  # reversal tests: residual strength from the forward passes
+    consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
+    rate: RateCheck | None = None  # required time to failure against the actual test
 
     @property
     def sigma_nominal_kpa(self) -> float:
@@ -106,6 +119,19 @@ def _window(w: WindowValues) -> dict[str, Any]:
     return d
 
 
+def _derived_dict(r: Results) -> dict[str, Any]:
+    """JSON form of the fields made by ``derived.py`` (documented in the contributor guide)."""
+    from .derived import plain  # derived.py imports this module
+
+    return {
+        "envelope_statistics": plain(r.envelope_statistics),
+        "set_comparisons": plain(r.set_comparisons),
+        "critical_state_lines": plain(r.critical_state_lines),
+        "dilatancy": plain(r.dilatancy),
+        "design": plain(r.design),
+    }
+
+
 @dataclass(frozen=True)
 class Results:
     """All results of one interpretation of one project."""
@@ -117,6 +143,18 @@ class Results:
     envelopes: tuple[EnvelopeResult, ...]
     provenance: Mapping[str, Any]
     sensitivity: tuple[LeaveOneOut, ...] = ()  # leave-one-out refits of every reported envelope
+    # derived.py: bands and curved fits per envelope, sets vs pooled, critical-state lines, dilatancy, design
+    envelope_statistics: tuple[EnvelopeStatistics, ...] = ()
+    set_comparisons: tuple[SetComparison, ...] = ()
+    critical_state_lines: tuple[CriticalStateLine, ...] = ()
+    dilatancy: tuple[StageDilatancy, ...] = ()
+    design: DesignResult | None = None
+
+    def statistics(self, group: str, kind: str) -> EnvelopeStatistics:
+        for e in self.envelope_statistics:
+            if e.group == group and e.kind == kind:
+                return e
+        raise KeyError((group, kind))
 
     def stage(self, stage_id: str) -> StageResult:
         for s in self.stages:
@@ -166,6 +204,10 @@ class Results:
                         "chosen": _window(s.cs),
                     },
                     "flags": list(s.flags),
+                    "passes": [{**dataclasses.asdict(p), "ratio": p.ratio} for p in s.passes],
+                    "residual": None if s.residual is None else dataclasses.asdict(s.residual),
+                    "consolidation": consolidation_dict(s.consolidation),
+                    "rate_check": None if s.rate is None else dataclasses.asdict(s.rate),
                 }
             )
         envelopes = [
@@ -191,6 +233,7 @@ class Results:
             "envelopes": envelopes,
             "provenance": dict(self.provenance),
             "sensitivity": [dataclasses.asdict(r) for r in self.sensitivity],
+            **_derived_dict(self),
         }
 
     def to_json(self) -> str:

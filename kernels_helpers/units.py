@@ -11,7 +11,7 @@ from typing import Final
 
 from .errors import UnitError
 
-__all__ = ["CANONICAL", "QUANTITY_OF", "to_canonical_factor"]
+__all__ = ["CANONICAL", "DIMENSION_OF", "QUANTITY_OF", "to_canonical_factor"]
 
 _LBF_N: Final = 4.4482216152605  # exact by definition of the pound-force (avoirdupois pound, g_n)
 _KGF_N: Final = 9.80665  # exact by definition (standard gravity)
@@ -49,7 +49,27 @@ _FACTORS: Final[dict[str, tuple[str, float]]] = {
     "psi": ("stress", _LBF_N / _IN_MM**2 * 1000.0),  # lbf/in2 -> N/mm2 = MPa -> kPa
     "psf": ("stress", _LBF_N / (12 * _IN_MM) ** 2 * 1000.0),
     "ksf": ("stress", _LBF_N / (12 * _IN_MM) ** 2 * 1e6),
+    # further spellings met in laboratory headers (same exact definitions)
+    "ms": ("time", 1e-3),
+    "secs": ("time", 1.0),
+    "seconds": ("time", 1.0),
+    "mins": ("time", 60.0),
+    "minutes": ("time", 60.0),
+    "hrs": ("time", 3600.0),
+    "hours": ("time", 3600.0),
+    "inch": ("length", _IN_MM),
+    "inches": ("length", _IN_MM),
+    "kn/m2": ("stress", 1.0),
+    "kn/m²": ("stress", 1.0),
+    "n/mm2": ("stress", 1000.0),
+    "n/mm²": ("stress", 1000.0),
+    "bar": ("stress", 100.0),  # exact: 1 bar = 100 kPa
+    "kgf/cm2": ("stress", _KGF_N / 100.0 * 1000.0),  # kgf per 100 mm2 -> N/mm2 -> kPa = 98.0665
+    "kgf/cm²": ("stress", _KGF_N / 100.0 * 1000.0),
 }
+
+#: the dimension of every known unit spelling, for guessing a column's quantity from its header
+DIMENSION_OF: Final[dict[str, str]] = {unit: dim for unit, (dim, _) in _FACTORS.items()}
 
 #: the physical dimension each canonical quantity of a readings file must have
 QUANTITY_OF: Final[dict[str, str]] = {

@@ -14,6 +14,8 @@ import kernels_helpers
 
 PURE_MODULES = [
     "errors",
+    "export_tables",
+    "ags4_export",
     "units",
     "project",
     "readings",
@@ -25,6 +27,20 @@ PURE_MODULES = [
     "pipeline",
     "sensitivity",
     "diff",
+    "passes",
+    "summary",
+    "verify",
+    "multistage",
+    "design",
+    "dilatancy",
+    "compare",
+    "critical_state",
+    "derived",
+    "sniff",
+    "importer",
+    "checks",
+    "consolidation",
+    "stage_checks",
 ]
 FORBIDDEN = ("bokeh", "ipywidgets", "nbconvert", "nbclient", "jupyter_bokeh")
 PACKAGE_DIR = Path(kernels_helpers.__file__).parent

@@ -74,6 +74,22 @@ def test_record_shows_inputs_picks_envelopes_versions_and_time(record: tuple[Pat
         assert f'"name":"envelope-{group}"' in text
 
 
+def test_record_shows_bands_curved_fit_and_design_values_with_cautions(record: tuple[Path, str]) -> None:
+    _, text = record
+    results = _embedded(text, "shearbook-results")
+    for st in results["envelope_statistics"]:  # a tau-sigma plot with bands for every fitted envelope
+        if st["bands"]:
+            assert f'"name":"statistics-{st["group"]}-{st["kind"]}"' in text
+    for line in results["critical_state_lines"]:
+        if line["group"].startswith("stratum "):
+            assert f'"name":"csl-{line["group"]}"' in text
+    d = results["design"]
+    assert f"{d['phi_k_deg']:.1f}" in text and f"{d['design'][0]['phi_d_deg']:.1f}" in text
+    assert "Caution: design values." in text and "National Annex" in text
+    assert "lower one-sided 95 % bound of the mean line" in text  # the method is written out
+    assert "EN 1997-1 Annex A Table A.4, recommended" in text
+
+
 def test_user_text_is_escaped_in_the_record(example_copy: Path, tmp_path: Path) -> None:
     evil = "<script>alert(1)</script><img src=x onerror=alert(2)>"
     interp = Interpretation().with_decision("BH03-D2", StageDecision(note=evil))

@@ -11,6 +11,33 @@ from pathlib import Path
 import nbformat
 from nbformat.v4 import new_code_cell, new_markdown_cell, new_notebook
 
+LIVE = {"tags": ["interactive"]}  # the live screen: executed headless too, dropped from the exported record
+INTERACTIVE_CELLS = [
+    new_markdown_cell(
+        "## Live interpretation\n"
+        "Type your name first: every decision records who made it and when, and is saved at once to the\n"
+        "interpretation file. Drag the peak (amber diamond) or the ends of the critical-state window (teal\n"
+        "squares) on a shear stress plot, or type the displacements; exclude a stage in the table (a reason is\n"
+        "required). The envelopes and parameters below follow every change. Reopening restores every decision.",
+        metadata=LIVE,
+    ),
+    new_code_cell(
+        "from kernels_helpers.views.widgets import live_workbook\n\n"
+        "live = live_workbook(project_dir, interpretation_file)\n"
+        "live.top",
+        metadata=LIVE,
+    ),
+    new_markdown_cell("### Stages\nShear stress, vertical displacement, stress ratio and rate of dilation; "
+                      "the four plots share the horizontal axis.", metadata=LIVE),
+    new_code_cell("live.stages", metadata=LIVE),
+    new_markdown_cell("### Stage table", metadata=LIVE),
+    new_code_cell("live.table", metadata=LIVE),
+    new_markdown_cell("### Envelopes", metadata=LIVE),
+    new_code_cell("live.envelopes", metadata=LIVE),
+    new_markdown_cell("### Summary", metadata=LIVE),
+    new_code_cell("live.summary", metadata=LIVE),
+]
+
 CELLS = [
     new_markdown_cell(
         "# Direct shear interpretation\n\n"
@@ -30,6 +57,8 @@ CELLS = [
         "from kernels_helpers.interpretation import INTERPRETATION_FILE\n\n"
         "views.setup_notebook()"
     ),
+    *INTERACTIVE_CELLS,
+    new_markdown_cell("# The record\nWhat the exported record shows, computed from the interpretation file as saved."),
     new_code_cell(
         "project = load_project(project_dir)\n"
         "interpretation_path = Path(interpretation_file or project.root / INTERPRETATION_FILE)\n"
@@ -39,9 +68,37 @@ CELLS = [
     new_markdown_cell("## Stages\nShear stress, vertical displacement and void ratio against horizontal displacement."),
     new_code_cell("views.show_stages(results)"),
     new_code_cell("views.show_tables(results)"),
+    new_markdown_cell(
+        "## Consolidation and rate of shearing\nEach consolidation stage on log time (Casagrande: d_0, d_100 "
+        "from the tangent and the secondary branch, t_50) and root time (Taylor: the 1.15 line, t_90), then the "
+        "required time to failure (the largest of 50 t_50, 11.6 t_90 and 12.7 t_100) against the test."
+    ),
+    new_code_cell("views.show_consolidation(results)"),
     new_markdown_cell("## Envelopes"),
     new_code_cell("views.show_envelopes(results)"),
-    new_markdown_cell("## Provenance"),
+    new_markdown_cell(
+        "## Envelope statistics and curvature\n"
+        "95 % confidence band of the mean line (shaded), 95 % prediction band for one new specimen (dashed), the\n"
+        "power law tau = a sigma'^b fitted on tau, and the secant angle of every stage."
+    ),
+    new_code_cell(
+        "# normal stresses (kPa) at which to give the power-law secant and tangent angles;\n"
+        "# None: the ends and the middle of the design range\n"
+        "views.show_envelope_statistics(results, angles_at_kpa=None)"
+    ),
+    new_markdown_cell("## Test sets within a stratum\nEach set's envelope beside the pooled one, and whether they belong together."),
+    new_code_cell("views.show_set_comparison(results)"),
+    new_markdown_cell("## Critical-state line\nVoid ratio at critical state against ln sigma', dense and loose together."),
+    new_code_cell("views.show_critical_state_line(results)"),
+    new_markdown_cell("## Stress-dilatancy (interpretation aids)"),
+    new_code_cell("views.show_dilatancy(results)"),
+    new_markdown_cell(
+        "## Characteristic and design values\n"
+        "The choices (limit state, peak or critical state, partial factors, c'_k = 0) live in the interpretation\n"
+        "file's `design` entry; the method and the cautions are written out below."
+    ),
+    new_code_cell("views.show_design(results)"),
+    new_markdown_cell("## Sign-off and provenance"),
     new_code_cell("views.show_provenance(results, str(interpretation_path))"),
 ]
 

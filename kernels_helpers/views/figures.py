@@ -19,6 +19,7 @@ __all__ = ["DISPLAY_POINTS", "decimate", "envelope_figure", "stage_figure"]
 DISPLAY_POINTS = 1500
 # Colours of our own: ink for curves, amber for peaks, teal for critical state, grey for excluded.
 INK, PEAK, CRIT, GREY, SUGGESTED = "#1f3b57", "#d9822b", "#1b8a7a", "#a0a7ad", "#7a5195"
+RESIDUAL = "#8c564b"
 TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
 
 
@@ -100,17 +101,15 @@ def envelope_figure(results: Results, group: str):
     members = {e.kind: e for e in results.envelopes if e.group == group}
     sigma_max = 1.0
     items = []
-    for kind, colour, marker in (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle")):
+    styles = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"), ("residual", RESIDUAL, "square"))
+    for kind, colour, marker in [st for st in styles if st[0] in members]:
         env: EnvelopeResult = members[kind]
-        used = set(env.stage_ids)
         name = kind.replace("_", " ")
-        pts_in = [(s.peak if kind == "peak" else s.cs) for s in results.stages if s.stage_id in used]
-        src = ColumnDataSource({"sigma": [q.sigma_kpa for q in pts_in], "tau": [q.tau_kpa for q in pts_in],
-                                "stage": [s.stage_id for s in results.stages if s.stage_id in used]})
+        src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids)})
         r = p.scatter("sigma", "tau", source=src, size=10, color=colour, marker=marker)
         sigma_max = max([sigma_max, *src.data["sigma"]])
         out = [s for s in results.stages if (s.test_set == group or group.startswith("stratum")) and not s.included]
-        if out:
+        if out and kind != "residual":
             gx = [(s.peak if kind == "peak" else s.cs) for s in out]
             items.append((f"{name} excluded", [p.scatter([q.sigma_kpa for q in gx], [q.tau_kpa for q in gx], size=9,
                                                           color=GREY, marker=marker, alpha=0.7)]))

@@ -7,13 +7,16 @@ the page and the exported record work offline.
 from __future__ import annotations
 
 import importlib.metadata
+import json
 from datetime import UTC, datetime
 
 from bokeh.io import output_notebook, show
 from bokeh.resources import Resources
 from IPython.display import HTML, display
 
+from ..interpretation import load_interpretation
 from ..project import Project
+from ..results import INTERPRETATION_MIME, RESULTS_MIME
 from ..results import Results
 from . import tables
 from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
@@ -65,6 +68,10 @@ def show_stages(results: Results) -> None:
 def show_tables(results: Results) -> None:
     _h("Picks")
     display(HTML(tables.picks_table(results)))
+    residual = tables.residual_table(results)
+    if residual:
+        _h("Residual strength (reversal tests)")
+        display(HTML(residual))
     _h("Flags")
     display(HTML(tables.flags_table(results)))
 
@@ -87,4 +94,11 @@ def show_provenance(results: Results, interpretation_path: str) -> None:
             extra[name] = importlib.metadata.version(name)
         except importlib.metadata.PackageNotFoundError:
             extra[name] = "not installed"
+    interpretation = load_interpretation(interpretation_path)
+    _h("Sign-off")
+    display(HTML(tables.signoff_table(interpretation.signoff)))
+    _h("Provenance")
     display(HTML(tables.provenance_table(results, made, interpretation_path, extra)))
+    # machine-readable copies for the record (not shown; the record embeds them as JSON blocks)
+    display({RESULTS_MIME: json.loads(results.to_json()), INTERPRETATION_MIME: json.loads(interpretation.to_json()),
+             "text/plain": ""}, raw=True)

@@ -11,6 +11,7 @@ import math
 from collections.abc import Iterable, Sequence
 from typing import Any
 
+from ..interpretation import SignOff
 from ..project import Project
 from ..results import EnvelopeResult, Results, StageResult
 
@@ -23,7 +24,9 @@ __all__ = [
     "inputs_table",
     "picks_table",
     "provenance_table",
+    "residual_table",
     "sensitivity_table",
+    "signoff_table",
     "specimen_table",
 ]
 
@@ -172,6 +175,22 @@ def envelope_table(results: Results) -> str:
     )
 
 
+def residual_table(results: Results) -> str:
+    """Reversal tests: the stress at the end of every pass, and the residual strength."""
+    rows = []
+    for s in results.stages:
+        if s.residual is None:
+            continue
+        passes = "<br>".join(f"pass {p.pass_no} ({'forward' if p.forward else 'back'}, {p.travel_mm:.1f} mm): "
+                             f"{p.tau_kpa:.1f} kPa, tau/sigma {p.ratio:.3f}" for p in s.passes)
+        r = s.residual
+        value = f"{num(r.tau_kpa, 1)} kPa at {num(r.sigma_kpa, 1)} kPa" if r.tau_kpa is not None else "&ndash;"
+        rows.append((esc(s.stage_id), passes, value, esc(r.message)))
+    if not rows:
+        return ""
+    return table(("stage", "end of each pass", "residual", "rule"), rows)
+
+
 def sensitivity_table(results: Results) -> str:
     """Leave-one-out: every envelope refitted without each of its stages in turn."""
     def change(v: float | None, digits: int) -> str:
@@ -193,6 +212,15 @@ def flags_table(results: Results) -> str:
     if not rows:
         return "<p>No flags raised.</p>"
     return table(("stage", "flag"), rows)
+
+
+def signoff_table(signoff: SignOff) -> str:
+    """The sign-off state and every step of it: who, when, with what remark."""
+    state = {"draft": "DRAFT - not checked", "checked": "checked, not yet approved", "approved": "approved"}[signoff.state]
+    rows = [(esc(h.get("state", "")), esc(h.get("who", "")), esc(h.get("time_utc", "")), esc(h.get("note", "")))
+            for h in signoff.history]
+    head = f'<p>Sign-off state: <b>{esc(state)}</b></p>'
+    return head + (table(("step", "who", "when (UTC)", "remark"), rows) if rows else "<p>No sign-off recorded.</p>")
 
 
 def provenance_table(results: Results, made_utc: str, interpretation_path: str, extra_versions: dict[str, str]) -> str:

@@ -1,0 +1,134 @@
+"""Checks on a stage an engineer should see: isolated spikes, specimen size and phase, normal load.
+
+Pure functions; each check returns flags (words with the numbers) rather than raising, so a
+doubtful stage is still shown. Rules and tolerances (also in the contributor guide):
+
+* Spikes (Hampel filter): a reading is an isolated spike when it departs from the median of the
+  ``2 * HAMPEL_HALF_WINDOW + 1`` readings around it by more than ``HAMPEL_THRESHOLD`` robust
+  standard deviations (1.4826 x the median absolute departure over the whole series: a local
+  MAD over 15 readings is itself so noisy that it flagged ~1 % of clean readings) and by more
+  than ``HAMPEL_FLOOR`` of the series' range. Applied to shear stress and vertical displacement
+  during shear. Spikes are kept and drawn; smoothing and suggestions do not use them.
+* Specimen size (REFERENCES sec. 1, from memory except width >= 10 d_max): width or diameter
+  >= 50 mm, initial height >= 12.5 mm, width/height >= 2; with d_max given, height >= 6 d_max
+  and width >= 10 d_max.
+* Phase (common practice): e > 0 throughout; e0 between 0.2 and 4 for a soil; with the water
+  content given, S_r = w G_s / e0 <= 100 % (+ 2 points for measurement error).
+* Normal load (common practice): when the file has a normal force or stress column, each reading
+  during shear within ``NORMAL_TOLERANCE`` of the load declared in the project file.
+"""
+
+from __future__ import annotations
+
+from typing import Final
+
+import numpy as np
+from scipy.ndimage import median_filter
+
+from .project import StageSpec
+
+__all__ = ["hampel_spikes", "normal_load_flags", "phase_flags", "size_flags", "spike_flags"]
+
+HAMPEL_HALF_WINDOW: Final = 7
+HAMPEL_THRESHOLD: Final = 6.0
+HAMPEL_FLOOR: Final = 0.005  # fraction of the series' range
+MAD_SCALE: Final = 1.4826  # 1 / Phi^-1(3/4): MAD -> standard deviation for normal noise
+NORMAL_TOLERANCE: Final = 0.03
+SR_TOLERANCE: Final = 0.02
+E0_RANGE: Final = (0.2, 4.0)
+
+
+def hampel_spikes(values: np.ndarray, half_window: int = HAMPEL_HALF_WINDOW, threshold: float = HAMPEL_THRESHOLD,
+                  floor: float = HAMPEL_FLOOR) -> tuple[np.ndarray, np.ndarray]:
+    """Isolated spikes of a series in reading order, and the series with each spike replaced by its median.
+
+    Parameters
+    ----------
+    values
+        Readings in the order they were taken (any unit).
+    half_window
+        Readings on each side of the one tested.
+    threshold
+        Departure from the moving median, in robust standard deviations of the whole series.
+    floor
+        Smallest departure flagged, as a fraction of the range of ``values`` (so a noise-free or
+        quantised series, whose MAD is zero, is not flagged everywhere).
+    """
+    v = np.asarray(values, dtype=float)
+    if v.size < 2 * half_window + 1:
+        return np.zeros(v.size, dtype=bool), v.copy()
+    size = 2 * half_window + 1
+    med = median_filter(v, size=size, mode="nearest")
+    dev = np.abs(v - med)
+    sample = dev[:: max(1, dev.size // 100_000)]  # the scale from at most ~100,000 readings, evenly spread
+    limit = max(threshold * MAD_SCALE * float(np.median(sample)), floor * float(np.ptp(v)))
+    spike = dev > limit
+    return spike, np.where(spike, med, v)
+
+
+def spike_flags(spike: np.ndarray, line_of, quantity: str) -> list[str]:
+    """A flag naming the lines of the spikes found in one series (none when there are none)."""
+    rows = np.flatnonzero(spike)
+    if not rows.size:
+        return []
+    lines = ", ".join(str(line_of(int(i))) for i in rows[:8]) + (" ..." if rows.size > 8 else "")
+    return [f"{rows.size} isolated spike(s) in {quantity} (Hampel filter) at line(s) {lines}: kept and shown, "
+            "left out of the smoothing and the suggestions; look at the file if there are many"]
+
+
+def size_flags(spec: StageSpec) -> list[str]:
+    """Specimen size ratios (REFERENCES sec. 1)."""
+    s = spec.specimen
+    w, h, name = s.width_mm, s.height_mm, "side" if s.shape == "square" else "diameter"
+    out = []
+    if w < 50.0:
+        out.append(f"specimen {name} {w:g} mm is below 50 mm")
+    if h < 12.5:
+        out.append(f"specimen height {h:g} mm is below 12.5 mm")
+    if w / h < 2.0:
+        out.append(f"{name} to height ratio {w / h:.2f} is below 2")
+    if s.max_particle_mm is not None:
+        d = s.max_particle_mm
+        if h < 6 * d:
+            out.append(f"height {h:g} mm is less than 6 x the largest particle ({d:g} mm): needs {6 * d:g} mm")
+        if w < 10 * d:
+            out.append(f"{name} {w:g} mm is less than 10 x the largest particle ({d:g} mm): needs {10 * d:g} mm")
+    return out
+
+
+def phase_flags(spec: StageSpec, e_initial: float, e_start: float, e_min: float) -> list[str]:
+    """Plausibility of void ratio and degree of saturation (common practice)."""
+    s = spec.specimen
+    out = []
+    fix = "check dry_mass_g, gs, height_mm and the consolidation settlement"
+    if min(e_initial, e_start, e_min) <= 0:
+        out.append(f"void ratio is not positive (e0 {e_initial:.3f}, at start of shear {e_start:.3f}, least "
+                   f"{e_min:.3f}): impossible; {fix}")
+    elif not E0_RANGE[0] <= e_initial <= E0_RANGE[1]:
+        out.append(f"initial void ratio {e_initial:.3f} is outside {E0_RANGE[0]:g}-{E0_RANGE[1]:g}, unusual for a "
+                   f"soil; {fix}")
+    if s.water_content_pct is not None and e_initial > 0:
+        sr = s.water_content_pct / 100.0 * s.gs / e_initial
+        if sr > 1.0 + SR_TOLERANCE:
+            out.append(f"degree of saturation S_r = w G_s / e0 = {s.water_content_pct:g} % x {s.gs:g} / "
+                       f"{e_initial:.3f} = {sr * 100:.0f} % exceeds 100 %; {fix} and water_content_pct")
+    return out
+
+
+def normal_load_flags(spec: StageSpec, force_n: np.ndarray | None, in_shear: np.ndarray, line_of,
+                      tolerance: float = NORMAL_TOLERANCE) -> list[str]:
+    """Normal force read during shear against the load declared in the project file."""
+    if force_n is None:
+        return []
+    declared = spec.normal_load.force_n
+    rows = np.flatnonzero(in_shear)
+    if not rows.size:
+        return []
+    dev = np.abs(force_n[rows] - declared) / declared
+    worst = int(np.argmax(dev))
+    if dev[worst] <= tolerance:
+        return []
+    n_out = int(np.count_nonzero(dev > tolerance))
+    return [f"normal load not constant: {force_n[rows[worst]]:.1f} N at line {line_of(int(rows[worst]))} against "
+            f"{declared:.1f} N declared ({dev[worst] * 100:.1f} % off; {n_out} reading(s) beyond "
+            f"{tolerance * 100:g} %); check the loading system and the normal_load of the project file"]

@@ -1,0 +1,66 @@
+"""All checks of one reduced stage, gathered for the pipeline: flags, consolidation and rate.
+
+Pure apart from reading the stage's consolidation file (read only, like every raw file).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .checks import normal_load_flags, phase_flags, size_flags, spike_flags
+from .consolidation import ConsolidationResult, RateCheck, analyse_consolidation, rate_check
+from .project import StageSpec
+from .readings import StageReadings, read_consolidation
+from .reduce import ReducedStage
+
+__all__ = ["StageChecks", "check_stage"]
+
+
+@dataclass(frozen=True)
+class StageChecks:
+    """Flags in words, the consolidation stage's analysis and the drained-rate check (when possible)."""
+
+    flags: tuple[str, ...]
+    consolidation: ConsolidationResult | None
+    consolidation_sha256: str | None
+    rate: RateCheck | None
+
+
+def _normal_force(spec: StageSpec, readings: StageReadings) -> np.ndarray | None:
+    t = readings.table
+    if "normal_force_n" in t:
+        return t["normal_force_n"].to_numpy()
+    if "normal_stress_nominal_kpa" in t:
+        return t["normal_stress_nominal_kpa"].to_numpy() * spec.specimen.area0_mm2 / 1000.0
+    return None
+
+
+def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, x_failure_mm: float) -> StageChecks:
+    """Every check of one stage; ``x_failure_mm`` is where failure was picked (for the rate check)."""
+    c = reduced.curve
+    in_shear = c["in_shear"].to_numpy()
+    flags = [*readings.notes]
+    if "spike" in c:
+        flags += spike_flags(c["spike"].to_numpy(dtype=bool), readings.line, "shear stress or vertical displacement")
+    flags += size_flags(spec)
+    flags += phase_flags(spec, reduced.e_initial, reduced.e_start, float(np.nanmin(c["e"].to_numpy())))
+    flags += normal_load_flags(spec, _normal_force(spec, readings), in_shear, readings.line)
+    cons_readings = read_consolidation(spec)
+    if cons_readings is None:
+        return StageChecks(tuple(flags), None, None, None)
+    t = cons_readings.table
+    result = analyse_consolidation(t["time_s"].to_numpy(), -t["y_mm"].to_numpy(), spec.specimen.height_mm,
+                                   spec.specimen.consolidation_settlement_mm)
+    relpath = spec.consolidation.relpath  # type: ignore[union-attr]
+    flags += [f"consolidation stage ({relpath}): {f}" for f in result.flags]
+    rows = np.flatnonzero(in_shear & (c["pass_no"].to_numpy() == 1) if "pass_no" in c else in_shear)
+    rate = None
+    if rows.size >= 3:
+        x = c["x_mm"].to_numpy()
+        failure = int(rows[np.argmin(np.abs(x[rows] - x_failure_mm))])
+        rate = rate_check(c["time_s"].to_numpy(), x, int(rows[0]), failure, result)
+        if rate is not None and rate.flag:
+            flags.append(rate.flag)
+    return StageChecks(tuple(flags), result, cons_readings.sha256, rate)

@@ -1,0 +1,174 @@
+"""Re-run a record from the raw files and say, number by number, whether the results still match.
+
+A record embeds its results JSON and the interpretation it was made with. ``verify_record`` reads
+both, re-runs :func:`interpret` on the project folder with that interpretation, and compares:
+
+* every raw file's SHA-256 (a changed or missing file is named);
+* every number of the results (stages, picks, envelopes, sensitivity, design values). With the same
+  software versions the numbers must be bit-identical; across versions they are compared with the
+  tolerance :data:`REL_TOL` (relative) and :data:`ABS_TOL` (absolute, in the result's own unit).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import RecordError, ShearbookError
+from .interpretation import from_dict
+from .pipeline import interpret
+from .project import load_project
+from .readings import sha256_of
+
+__all__ = ["ABS_TOL", "REL_TOL", "Verification", "read_record", "verify_record"]
+
+REL_TOL = 1e-6
+ABS_TOL = 1e-9
+SKIP = ("provenance.platform", "provenance.python", "provenance.versions")  # described, not compared
+
+
+def _block(text: str, name: str, path: Path) -> Any:
+    m = re.search(rf'<script type="application/json" id="{name}">(.*?)</script>', text, re.S)
+    if not m:
+        raise RecordError(f"{path}: not a Shearbook record (no {name} block). Verify only records written by `shearbook record`.")
+    try:
+        return json.loads(m.group(1))
+    except json.JSONDecodeError as exc:
+        raise RecordError(f"{path}: the {name} block is damaged ({exc}); the record cannot be verified.") from exc
+
+
+def read_record(path: str | Path) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The results JSON and the interpretation JSON embedded in a record."""
+    p = Path(path)
+    if not p.is_file():
+        raise RecordError(f"{p}: record not found.")
+    text = p.read_text(encoding="utf-8")
+    return _block(text, "shearbook-results", p), _block(text, "shearbook-interpretation", p)
+
+
+def _leaves(value: Any, prefix: str = "") -> Iterator[tuple[str, Any]]:
+    if isinstance(value, dict):
+        for k in sorted(value):
+            yield from _leaves(value[k], f"{prefix}.{k}" if prefix else k)
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            yield from _leaves(v, f"{prefix}[{i}]")
+    else:
+        yield prefix, value
+
+
+def _same(a: Any, b: Any, exact: bool) -> bool:
+    if isinstance(a, bool) or isinstance(b, bool) or not isinstance(a, int | float) or not isinstance(b, int | float):
+        return a == b
+    return a == b if exact else math.isclose(a, b, rel_tol=REL_TOL, abs_tol=ABS_TOL)
+
+
+@dataclass(frozen=True)
+class Verification:
+    """The outcome of re-running one record."""
+
+    record: Path
+    project: Path
+    exact: bool  # same software versions: bit-identical required
+    changed_files: tuple[str, ...]
+    mismatches: tuple[str, ...]  # "path: recorded -> now"
+    compared: int
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def ok(self) -> bool:
+        return not self.changed_files and not self.mismatches
+
+    def to_text(self) -> str:
+        mode = "bit-identical (same versions)" if self.exact else f"within rel {REL_TOL:g} / abs {ABS_TOL:g} (versions differ)"
+        lines = [f"{self.record}: {'MATCH' if self.ok else 'MISMATCH'} - {self.compared} values compared, {mode}"]
+        lines += [f"  raw file changed: {f}" for f in self.changed_files]
+        lines += [f"  moved: {m}" for m in self.mismatches[:50]]
+        if len(self.mismatches) > 50:
+            lines.append(f"  ... and {len(self.mismatches) - 50} more")
+        lines += [f"  note: {n}" for n in self.notes]
+        return "\n".join(lines) + "\n"
+
+
+def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
+    """Re-execute the interpretation of ``record`` on ``project_dir`` and compare every number."""
+    rec_path, root = Path(record).resolve(), Path(project_dir).resolve()
+    recorded, interp_json = read_record(rec_path)
+    project = load_project(root)
+    then_files = recorded.get("provenance", {}).get("raw_files", {})
+    now_files = {name: {"sha256": sha256_of(root / name)} for name in then_files if (root / name).is_file()}
+    changed = tuple(
+        f"{name} (SHA-256 was {info['sha256'][:16]}..., now "
+        + (f"{now_files[name]['sha256'][:16]}...)" if name in now_files else "missing)")
+        for name, info in sorted(then_files.items())
+        if now_files.get(name, {}).get("sha256") != info["sha256"]
+    )
+    try:
+        now = json.loads(interpret(project, from_dict(interp_json, f"{rec_path} (embedded interpretation)")).to_json())
+    except ShearbookError as exc:
+        return Verification(rec_path, root, False, changed, (f"the re-run failed: {exc}",), 0)
+    versions_then = (recorded["provenance"].get("versions"), recorded["provenance"].get("python"))
+    exact = versions_then == (now["provenance"]["versions"], now["provenance"]["python"])
+    a = {k: v for k, v in _leaves(recorded) if not k.startswith(SKIP)}
+    b = {k: v for k, v in _leaves(now) if not k.startswith(SKIP)}
+    mismatches = [f"{k}: {a.get(k)!r} -> {b.get(k)!r}" for k in sorted(set(a) | set(b))
+                  if k not in a or k not in b or not _same(a[k], b[k], exact)]
+    notes = () if exact else (f"software versions differ: recorded {versions_then[0]}, now {now['provenance']['versions']}",)
+    return Verification(rec_path, root, exact, changed, tuple(mismatches), len(a), notes)
+
+
+def project_of(record: Path) -> Path:
+    """The project folder of a record: the nearest folder above it holding project.toml."""
+    for folder in record.resolve().parents:
+        if (folder / "project.toml").is_file():
+            return folder
+    raise RecordError(f"{record}: no project.toml in any folder above this record; name the project folder with --project.")
+
+
+def _verify_one(args: tuple[Path, Path | None]) -> tuple[Path, Verification | None, str]:
+    record, project = args
+    try:
+        return record, verify_record(record, project or project_of(record)), ""
+    except Exception as exc:  # a batch reports every record; one broken record must not stop the others
+        return record, None, f"{type(exc).__name__}: {exc}"
+
+
+def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Path | None = None,
+                  jobs: int | None = None, progress: Any = None) -> list[tuple[Path, Verification | None, str]]:
+    """Verify every ``*.html`` record under ``folder`` in parallel; write a CSV summary table.
+
+    ``progress`` is called as ``progress(done, total, record)`` after each record.
+    """
+    import csv
+    import os
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    records = sorted(Path(folder).rglob("*.html"))
+    if not records:
+        raise RecordError(f"{folder}: no .html records under this folder.")
+    proj = Path(project).resolve() if project else None
+    out: list[tuple[Path, Verification | None, str]] = []
+    with ProcessPoolExecutor(max_workers=jobs or os.cpu_count() or 1) as pool:
+        futures = [pool.submit(_verify_one, (r, proj)) for r in records]
+        for done, fut in enumerate(as_completed(futures), start=1):
+            out.append(fut.result())
+            if progress:
+                progress(done, len(records), out[-1][0])
+    out.sort(key=lambda item: str(item[0]))
+    path = Path(summary_csv)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["record", "project", "status", "changed_raw_files", "values_moved", "values_compared", "mode", "error"])
+        for rec, v, err in out:
+            if v is None:
+                w.writerow([rec, "", "error", "", "", "", "", err])
+            else:
+                w.writerow([rec, v.project, "match" if v.ok else "mismatch", "; ".join(v.changed_files), len(v.mismatches),
+                            v.compared, "exact" if v.exact else f"rel {REL_TOL:g}", ""])
+    return out

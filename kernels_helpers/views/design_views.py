@@ -1,0 +1,262 @@
+"""Tables and notebook display of the derived results: envelope statistics and curvature, sets
+against their pooled envelope, critical-state lines, stress-dilatancy aids, and the characteristic
+and design values with their method and cautions.
+
+All user text (group, set and stage names, notes, reasons) is escaped with :func:`.tables.esc`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from bokeh.io import show
+from IPython.display import HTML, display
+
+from ..compare import overlaps_pooled
+from ..design import PARTIAL_FACTOR_SETS
+from ..dilatancy import DAVIS_JEWELL_ASSUMPTIONS
+from ..results import Results
+from .strength_figures import critical_state_figure, statistics_figure, taylor_figure
+from .tables import caution_html, esc, num, table
+
+__all__ = [
+    "critical_state_table",
+    "design_caution_html",
+    "design_html",
+    "dilatancy_table",
+    "power_law_angle_table",
+    "set_comparison_table",
+    "show_critical_state_line",
+    "show_design",
+    "show_dilatancy",
+    "show_envelope_statistics",
+    "show_set_comparison",
+    "statistics_table",
+]
+
+
+def _kind(kind: str) -> str:
+    return esc(kind.replace("_", " "))
+
+
+def statistics_table(results: Results) -> str:
+    """Per envelope: secant angle per stage, the power law with secant/tangent angles, residuals side by side."""
+    dash = "&ndash;"
+    rows = []
+    for st in results.envelope_statistics:
+        if not st.stage_ids:
+            continue
+        pw, cv = st.power, st.curvature
+        law = dash if pw is None else f"a {pw.a:.4g} (SE {num(pw.a_se, 3)}), b {pw.b:.4f} (SE {num(pw.b_se, 4)})"
+        remark = esc(cv.statement) if cv else esc(st.power_not_fitted or "")
+        sigma = results.envelope(st.group, st.kind).sigma_kpa
+        for i, sid in enumerate(st.stage_ids):
+            rows.append((
+                esc(st.group), _kind(st.kind), esc(sid), num(sigma[i], 1), num(st.secant_phi_deg[i], 1),
+                num(st.power_phi_secant_deg[i], 1) if pw else dash, num(st.power_phi_tangent_deg[i], 1) if pw else dash,
+                f"{cv.line_residuals[i]:+.2f}" if cv else dash, f"{cv.power_residuals[i]:+.2f}" if cv else dash,
+                law if i == 0 else "", remark if i == 0 else "",
+            ))
+    return table(("group", "envelope", "stage", "sigma' (kPa)", "phi' secant (deg)", "power law phi' secant (deg)",
+                  "power law phi' tangent (deg)", "straight-line residual (kPa)", "power-law residual (kPa)",
+                  "power law tau = a sigma'^b (kPa)", "curvature"), rows)
+
+
+def power_law_angle_table(results: Results, stresses_kpa: Sequence[float] | None = None) -> str:
+    """Power-law secant and tangent angles at the stresses named (default: ends and middle of the design range)."""
+    if stresses_kpa is None:
+        rng = results.design.stress_range_kpa if results.design is not None else None
+        if not rng:
+            return ""
+        stresses_kpa = (rng[0], (rng[0] + rng[1]) / 2, rng[1])
+    stresses = tuple(float(s) for s in stresses_kpa)
+    rows = []
+    for st in results.envelope_statistics:
+        if st.power is None:
+            continue
+        pw = st.power
+        cells = [f"{float(pw.phi_secant_deg(s)):.1f} / {float(pw.phi_tangent_deg(s)):.1f}" for s in stresses]
+        rows.append((esc(st.group), _kind(st.kind), *cells))
+    heads = ("group", "envelope", *(f"secant / tangent phi' at {s:g} kPa (deg)" for s in stresses))
+    return "<p>Power-law secant and tangent friction angles at the stresses named:</p>" + table(heads, rows)
+
+
+def set_comparison_table(results: Results) -> str:
+    """Each test set's phi' (and c') with its interval beside the pooled envelope, and the F-test statement."""
+    if not results.set_comparisons:
+        return "<p>No stratum holds more than one test set: nothing to compare.</p>"
+    rows = []
+    for cmp in results.set_comparisons:
+        named = [(n, f) for n, f in zip(cmp.sets, cmp.fits, strict=True)]
+        if cmp.pooled is not None:
+            named.append(("pooled (these sets)", cmp.pooled))
+        for name, f in named:
+            lo, hi = f.phi_interval_deg
+            c_lo, c_hi = f.c_interval_kpa
+            c = "0 (fixed)" if f.through_origin else f"{f.intercept:.1f} [{c_lo:.1f}, {c_hi:.1f}]"
+            overlap = ""
+            if cmp.pooled is not None and f is not cmp.pooled:
+                inside = overlaps_pooled(f, cmp.pooled)
+                overlap = "overlaps pooled" if inside else '<span class="sb-flag">outside pooled</span>'
+            rows.append((esc(cmp.group), _kind(cmp.kind), esc(name), str(f.n), f"{f.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]",
+                         c, overlap))
+        rows.append((esc(cmp.group), _kind(cmp.kind), "<b>test</b>", "", "", "",
+                     esc(cmp.statement) + "".join(f"<br>{esc(x)}" for x in cmp.left_out)))
+    method = esc(results.set_comparisons[0].method)
+    heads = ("group", "envelope", "set", "n", "phi' (deg) [95 % CI]", "c' (kPa) [95 % CI]", "comparison")
+    return table(heads, rows) + f"<p>Method: {method}. Interval overlap is a visual aid, not a test.</p>"
+
+
+def _by_set(line) -> str:
+    """Mean residual of e per test set: dense and loose on one line give means near zero, of mixed sign."""
+    sets: dict[str, list[float]] = {}
+    for t, r in zip(line.test_sets, line.fit.residuals, strict=True):
+        sets.setdefault(t, []).append(r)
+    return ", ".join(f"{esc(t or 'stages')} {sum(v) / len(v):+.3f}" for t, v in sets.items())
+
+
+def critical_state_table(results: Results) -> str:
+    rows = []
+    for line in results.critical_state_lines:
+        f = line.fit
+        rows.append((esc(line.group), str(f.n), f"{line.lambda_:.4f} (SE {f.slope_se:.4f})",
+                     f"{line.e_1kpa:.3f} (SE {f.intercept_se:.3f})", f"{line.e_at(100.0):.3f}", f"{f.r2:.3f}",
+                     ", ".join(f"{esc(i)} {r:+.3f}" for i, r in zip(line.stage_ids, f.residuals, strict=True)),
+                     _by_set(line)))
+    if not rows:
+        return "<p>No group has three or more critical-state values: no critical-state line.</p>"
+    return table(("group", "n", "lambda (slope of e on ln sigma')", "e at 1 kPa", "e at 100 kPa", "R^2",
+                  "residuals of e", "mean residual by test set"), rows) + (
+        "<p>e_cs = e_1 - lambda ln(sigma'/1 kPa), least squares (n - 2 dof). In the shear box the normal stress "
+        "stands in for p': these are box values, not triaxial ones. The void ratio is a specimen average; the "
+        "shear zone may differ.</p>")
+
+
+def dilatancy_table(results: Results) -> str:
+    rows = []
+    for d in results.dilatancy:
+        b = d.bolton
+        bolton = ["&ndash;"] * 4 if b is None else [
+            f"{b.relative_density:.2f}", f"{b.i_r:.2f}", num(b.dphi_plane_strain_deg), num(b.dphi_triaxial_deg)]
+        rows.append((
+            esc(d.stage_id), num(d.phi_peak_ds_deg), num(d.psi_peak_deg), num(d.taylor_peak_deg), num(d.phi_cs_ds_deg),
+            num(d.measured_dphi_ds_deg), num(d.phi_peak_ps_deg), num(d.phi_cs_ps_deg), num(d.measured_dphi_ps_deg),
+            *bolton, esc(d.note),
+        ))
+    return table(("stage", "phi' peak ds (deg)", "psi at peak atan(dy/dx) (deg)", "Taylor at peak (deg)",
+                  "phi' crit ds (deg)", "measured peak - crit ds (deg)", "phi' peak ps est. (deg)",
+                  "phi' crit ps est. (deg)",
+                  "measured peak - crit ps est. (deg)", "I_D", "I_R (Bolton)", "expected 5 I_R ps (deg)",
+                  "expected 3 I_R tx (deg)", "notes"), rows) + (
+        "<p>ds: direct shear (secant angles); ps est.: plane-strain estimate by the Davis/Jewell relation. "
+        f"{esc(DAVIS_JEWELL_ASSUMPTIONS)}. Taylor: atan(tau/sigma' - dy/dx), the ratio with the work of dilation "
+        "removed (Taylor 1948). Bolton (1986): I_R = I_D (10 - ln p') - 1, clipped to 0-4; compare 5 I_R with the "
+        "plane-strain estimate of the measured difference.</p>")
+
+
+def _kpa(value: float | None) -> str:
+    """One decimal, without a "-0.0" for a tiny negative value."""
+    return num(None if value is None else round(value, 1) + 0.0, 1)
+
+
+def design_caution_html(text: str) -> str:
+    return f'<div class="sb-caution"><b>Caution: design values.</b> {esc(text)}</div>'
+
+
+def _statistics_rows(st) -> str:
+    if st is None:
+        return "<p>EN 1990 Annex D statistics need three or more stages in the envelope.</p>"
+    rows = [
+        ("per-stage secant tan phi'", esc(", ".join(f"{v:.4f}" for v in st.values))),
+        ("mean, sample s.d. (n - 1), V", f"{st.mean:.4f}, {st.sd:.5f}, {st.v_sample:.4f}"),
+        ("V used", f"{st.v_used:.4f} ({'known, given by the engineer' if st.v_known else 'unknown: from the sample'})"),
+        (f"k_n ({esc(st.target)})", f"{st.kn:.4f} ({esc(st.kn_source)})"),
+        ("tan phi'_k = m (1 - k_n V)", f"{st.tan_phi_k:.4f} (phi'_k {st.phi_k_deg:.1f} deg)"),
+        ("Schneider: m (1 - 0.5 V)", f"{st.schneider:.4f} ({st.phi_schneider_deg:.1f} deg), for comparison"),
+    ]
+    return table(("EN 1990 Annex D on tan phi'", "value"), rows)
+
+
+def design_html(results: Results) -> str:
+    """Characteristic values with the method, the EN 1990 comparison and design values with partial factors."""
+    d = results.design
+    if d is None:
+        return "<p>No design values were derived.</p>"
+    ch = d.choices
+    who = f"{esc(ch.author)} at {esc(ch.time_utc)}" if ch.author else "<b>not yet chosen by an engineer (defaults)</b>"
+    choice_rows = [
+        ("envelope", f"{esc(d.group)}, {_kind(d.kind)}"), ("parameter choice", esc(d.parameter_note)),
+        ("limit state", esc(ch.limit_state) + (" (mean: large zone governs)" if ch.limit_state == "large zone" else
+                                               " (5 % fractile: local failure)")),
+        ("design normal-stress range", f"{num(d.stress_range_kpa[0] if d.stress_range_kpa else None, 0)}&ndash;"
+                                       f"{num(d.stress_range_kpa[1] if d.stress_range_kpa else None, 0)} kPa "
+                                       f"({esc(d.range_source)})"),
+        ("chosen by", who),
+    ]
+    out = [design_caution_html(d.caution), table(("choice", "value"), choice_rows)]
+    if d.not_derived:
+        out.append(f'<p class="sb-flag">Not derived: {esc(d.not_derived)}</p>')
+        return "".join(out)
+    out.append(table(("characteristic value", "value"), [
+        ("c'_k (kPa)", _kpa(d.c_k_kpa)), ("phi'_k (deg)", num(d.phi_k_deg, 1)), ("tan phi'_k", num(d.tan_phi_k, 4)),
+        ("method", esc(d.method)),
+    ]))
+    out += [f'<p class="sb-flag">{esc(f)}</p>' for f in d.flags]
+    out.append(_statistics_rows(d.tan_phi_statistics))
+    rows = []
+    for v in d.design:
+        table_a4 = v.set_name in PARTIAL_FACTOR_SETS
+        src = " (EN 1997-1 Annex A Table A.4, recommended)" if table_a4 else " (engineer's values)"
+        chosen = " <b>(chosen)</b>" if v is d.design[0] else ""
+        rows.append((esc(v.set_name) + esc(src) + chosen, f"{v.gamma_phi:g}", f"{v.gamma_c:g}", _kpa(v.c_d_kpa),
+                     num(v.tan_phi_d, 4), num(v.phi_d_deg, 1)))
+    heads = ("partial factor set", "gamma_phi' (on tan phi')", "gamma_c'", "c'_d (kPa)", "tan phi'_d", "phi'_d (deg)")
+    out.append(table(heads, rows))
+    out.append("<p>tan phi'_d = tan phi'_k / gamma_phi'; c'_d = c'_k / gamma_c'. The National Annex or local code in "
+               "force governs the factors and the design approach; edit them in the interpretation file's "
+               "<code>design</code> choices.</p>")
+    return "".join(out)
+
+
+def _h(text: str) -> None:
+    display(HTML(f"<h3>{esc(text)}</h3>"))
+
+
+def show_envelope_statistics(results: Results, angles_at_kpa: Sequence[float] | None = None) -> None:
+    """Bands and curved fit on the tau-sigma plot of every fitted envelope, and the statistics tables.
+
+    ``angles_at_kpa``: normal stresses (kPa) at which to give the power-law secant and tangent angles;
+    None gives the ends and middle of the design range.
+    """
+    for st in results.envelope_statistics:
+        if st.bands:
+            show(statistics_figure(results, st.group, st.kind))
+    display(HTML(statistics_table(results) + power_law_angle_table(results, angles_at_kpa)))
+
+
+def show_set_comparison(results: Results) -> None:
+    display(HTML(set_comparison_table(results)))
+
+
+def show_critical_state_line(results: Results) -> None:
+    lines = results.critical_state_lines
+    pooled = [line for line in lines if line.group.startswith("stratum ")]
+    for line in pooled or lines:  # dense and loose together where a stratum pools them
+        show(critical_state_figure(results, line))
+    display(HTML(critical_state_table(results)))
+
+
+def show_dilatancy(results: Results) -> None:
+    """Taylor's ratio along the curves of each test set, and the angle table (interpretation aids)."""
+    sets: dict[str, list[str]] = {}
+    for s in results.stages:
+        sets.setdefault(s.test_set or "all stages", []).append(s.stage_id)
+    for ids in sets.values():
+        show(taylor_figure(results, ids))
+    display(HTML(dilatancy_table(results)))
+
+
+def show_design(results: Results) -> None:
+    """Characteristic and design values with the method, the caution and the general caution."""
+    display(HTML(design_html(results)))
+    display(HTML(caution_html()))

@@ -1,0 +1,233 @@
+"""The controller of the live workbook: one Interpretation, edited by the widgets, saved at once.
+
+The controller holds the project, the readings (read and hashed once), the stage results and the
+:class:`~kernels_helpers.interpretation.Interpretation` - the single source of truth. An edit
+(a pick moved, a stage excluded, a note written, c' = 0 switched on) goes through one of the
+Interpretation's edit methods; the controller then re-analyses only the stage it touches
+(:func:`~kernels_helpers.pipeline.analyse_stage`), assembles new results
+(:func:`~kernels_helpers.pipeline.assemble_results`, the same tail as ``interpret``), saves the
+interpretation atomically with who and when and the raw-file hashes, and tells its listeners
+(the figures and widgets) to redraw.
+
+Every edit is idempotent: repeating it, or receiving the echo of our own redraw, changes nothing
+and writes nothing (jupyter_bokeh calls Python callbacks twice and echoes Python's own writes).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Literal
+
+from ..interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, load_interpretation, save_interpretation
+from ..picks import at_point
+from ..pipeline import analyse_stage, assemble_results, read_all, stage_units
+from ..project import load_project
+from ..results import Results, StageResult
+
+__all__ = ["Controller"]
+
+Listener = Callable[[Results, frozenset[str]], None]
+Pick = Literal["peak", "critical_state"]
+
+
+class Controller:
+    """Edits of one project's interpretation, each saved at once and followed by new results.
+
+    Parameters
+    ----------
+    project_dir
+        The project folder (holds ``project.toml``).
+    interpretation_path
+        The interpretation file; None for the project's own ``interpretation.json``. Opening it
+        restores every decision; nothing is written until the first edit.
+    author
+        Who makes the decisions (recorded with each one); edits are refused while it is empty.
+    """
+
+    def __init__(self, project_dir: str | Path, interpretation_path: str | Path | None = None,
+                 author: str = "") -> None:
+        self.project = load_project(project_dir)
+        self.path = Path(interpretation_path or self.project.root / INTERPRETATION_FILE)
+        self.interpretation = load_interpretation(self.path)
+        self.author = author
+        self.message = ""  # the last refusal or confirmation, in words
+        self.history: list[Interpretation] = []
+        self.last_refresh_s = 0.0  # time of the last edit: analysis + refit + save + redraw
+        self._listeners: list[Listener] = []
+        self.readings = read_all(self.project)
+        units = stage_units(self.project, self.readings)
+        self._units = {spec.id: (spec, part, continued) for spec, part, continued in units}
+        self._origin: dict[str, float | None] = {}
+        self._analysed: dict[str, StageResult] = {}
+        self._snapped: dict[tuple[str, float], float] = {}
+        origin: float | None = None
+        for sid, (_, _, continued) in self._units.items():
+            self._origin[sid] = origin if continued else None
+            self._analysed[sid] = self._analyse(sid, self.interpretation)
+            if not continued:
+                origin = self._analysed[sid].reduced.seating_shift_mm
+        self.results = self._assemble(self.interpretation)
+
+    # --- reading the state ---------------------------------------------------------------------
+
+    @property
+    def stage_ids(self) -> tuple[str, ...]:
+        return tuple(self._units)
+
+    def stage(self, stage_id: str) -> StageResult:
+        """The stage as the results show it (with the flags that compare stages)."""
+        return self.results.stage(stage_id)
+
+    def subscribe(self, listener: Listener) -> None:
+        """Call ``listener(results, changed_stage_ids)`` after every edit that changed something."""
+        self._listeners.append(listener)
+
+    # --- the edits (each returns True when it changed and saved the interpretation) ------------
+
+    def move_peak(self, stage_id: str, x_mm: float) -> bool:
+        """A manual peak at the reading nearest ``x_mm``; no change if that is the current peak."""
+        x = self._snap(stage_id, float(x_mm))
+        if x == self.stage(stage_id).peak.x_mm:
+            return self._unchanged(f"{stage_id}: the peak is already at {x:.3f} mm")
+        return self._edit(lambda i: i.with_peak(stage_id, x, self.author), stage_id,
+                          f"{stage_id}: peak moved to {x:.3f} mm")
+
+    def set_window(self, stage_id: str, x_from_mm: float, x_to_mm: float) -> bool:
+        """A manual critical-state window, its ends snapped to the nearest readings."""
+        lo, hi = sorted(self._snap(stage_id, float(v)) for v in (x_from_mm, x_to_mm))
+        cs = self.stage(stage_id).cs
+        if (lo, hi) == (cs.x_from_mm, cs.x_to_mm):
+            return self._unchanged(f"{stage_id}: the critical-state window is already {lo:.3f}-{hi:.3f} mm")
+        return self._edit(lambda i: i.with_critical_state(stage_id, lo, hi, self.author), stage_id,
+                          f"{stage_id}: critical-state window set to {lo:.3f}-{hi:.3f} mm")
+
+    def back_to_suggestion(self, stage_id: str, pick: Pick) -> bool:
+        if getattr(self.interpretation.decision(stage_id), pick).source == "suggested":
+            return self._unchanged(f"{stage_id}: the {pick.replace('_', '-')} pick is already the suggestion")
+        return self._edit(lambda i: i.back_to_suggestion(stage_id, pick), stage_id,
+                          f"{stage_id}: {pick.replace('_', '-')} pick back to the suggestion")
+
+    def exclude(self, stage_id: str, reason: str) -> bool:
+        """Exclude a stage from the envelopes; refused (with a message) without a reason."""
+        reason = reason.strip()
+        if not reason:
+            return self._refuse(f"{stage_id} was not excluded: type the reason for excluding it first.")
+        d = self.interpretation.decision(stage_id)
+        if not d.included and d.exclusion_reason == reason:
+            return self._unchanged(f"{stage_id} is already excluded for that reason")
+        return self._edit(lambda i: i.excluded(stage_id, reason, self.author), stage_id,
+                          f"{stage_id} excluded: {reason}")
+
+    def restore(self, stage_id: str) -> bool:
+        if self.interpretation.decision(stage_id).included:
+            return self._unchanged(f"{stage_id} is already included")
+        return self._edit(lambda i: i.restored(stage_id, self.author), stage_id, f"{stage_id} included again")
+
+    def set_note(self, stage_id: str, note: str) -> bool:
+        if self.interpretation.decision(stage_id).note == note:
+            return self._unchanged(f"{stage_id}: note unchanged")
+        return self._edit(lambda i: i.with_note(stage_id, note, self.author), stage_id, f"{stage_id}: note saved")
+
+    def set_cohesion(self, cohesion: Literal["free", "zero"]) -> bool:
+        """Which fit gives the reported c' and phi': c' free or through the origin (c' = 0)."""
+        fit = self.interpretation.settings.fit
+        if fit.cohesion == cohesion:
+            return self._unchanged(f"c' is already {cohesion}")
+
+        def edit(i: Interpretation) -> Interpretation:
+            settings = dataclasses.replace(i.settings, fit=FitSettings(cohesion=cohesion, level=fit.level))
+            return dataclasses.replace(i, settings=settings)
+
+        words = "c' = 0 (envelopes through the origin)" if cohesion == "zero" else "c' free"
+        return self._edit(edit, None, f"reported fits: {words}")
+
+    def undo(self) -> bool:
+        """Go back to the interpretation before the last change (saved at once, like any edit)."""
+        if not self.history:
+            return self._refuse("nothing to undo")
+        before = self.history[-1]
+        changed = {sid for sid in self._units
+                   if before.decision(sid) != self.interpretation.decision(sid)}
+        if not self._commit(before, changed, "last change undone", remember=False):
+            return False
+        self.history.pop()
+        return True
+
+    # --- the machinery -------------------------------------------------------------------------
+
+    def _refuse(self, message: str) -> bool:
+        self.message = message
+        return False
+
+    def _unchanged(self, message: str) -> bool:
+        """Nothing to do (a repeated callback, an echo): the status line keeps the last real event."""
+        del message  # kept at the call sites: it says why nothing happens
+        return False
+
+    def _edit(self, change: Callable[[Interpretation], Interpretation], stage_id: str | None, message: str) -> bool:
+        if not self.author.strip():
+            return self._refuse("type your name in the author box first: every decision records who made it.")
+        try:
+            new = change(self.interpretation)
+        except ValueError as exc:
+            return self._refuse(f"refused: {exc}")
+        return self._commit(new, {stage_id} if stage_id else set(), message)
+
+    def _commit(self, new: Interpretation, changed: set[str], message: str, remember: bool = True) -> bool:
+        start = time.perf_counter()
+        old = self.interpretation
+        if (new.settings.reduction, new.settings.picks) != (old.settings.reduction, old.settings.picks):
+            changed = set(self._units)  # every stage's picks follow these settings (the fit settings: no stage)
+        new = new.with_raw_files(self._hashes(new, changed))
+        changed |= {sid for sid, (spec, _, _) in self._units.items()  # stages sharing a file whose hash was renewed
+                    if new.raw_files.get(spec.relpath) != old.raw_files.get(spec.relpath)}
+        try:
+            fresh = {sid: self._analyse(sid, new) for sid in changed}
+        except ValueError as exc:  # e.g. a window holding too few readings: nothing is saved
+            return self._refuse(f"refused: {exc}")
+        save_interpretation(new, self.path)
+        if remember:
+            self.history.append(self.interpretation)
+        self.interpretation = new
+        self._analysed.update(fresh)
+        self.results = self._assemble(new)
+        self.message = message
+        for listener in self._listeners:
+            listener(self.results, frozenset(changed))
+        self.last_refresh_s = time.perf_counter() - start
+        return True
+
+    def _hashes(self, new: Interpretation, changed: set[str]) -> dict[str, str]:
+        """Raw-file hashes to save: every file's first hash, renewed for the stages just decided.
+
+        A file whose hash differs from the saved one keeps its stale flag on the stages nobody
+        has looked at since; touching a stage records that its picks were made on the new file.
+        """
+        hashes = dict(new.raw_files)
+        for sid, (spec, part, _) in self._units.items():
+            if spec.relpath not in hashes or sid in changed:
+                hashes[spec.relpath] = part.sha256
+        return hashes
+
+    def _snap(self, stage_id: str, x_mm: float) -> float:
+        """The displacement of the reading a pick at ``x_mm`` snaps to (remembered: callbacks come twice)."""
+        key = (stage_id, x_mm)
+        if key not in self._snapped:
+            if len(self._snapped) > 256:
+                self._snapped.clear()
+            self._snapped[key] = at_point(self._analysed[stage_id].reduced, x_mm).x_mm
+        return self._snapped[key]
+
+    def _analyse(self, stage_id: str, interp: Interpretation) -> StageResult:
+        """Analyse one stage; its reduction is reused while the reduction settings stay the same."""
+        spec, part, _ = self._units[stage_id]
+        known = self._analysed.get(stage_id)
+        same = known is not None and interp.settings.reduction == self.interpretation.settings.reduction
+        return analyse_stage(spec, part, interp.decision(stage_id), interp.settings, interp.raw_files.get(spec.relpath),
+                             self._origin[stage_id], known.reduced if same and known else None)
+
+    def _assemble(self, interp: Interpretation) -> Results:
+        return assemble_results(self.project, self.readings, interp, tuple(self._analysed.values()))

@@ -1,0 +1,204 @@
+"""Bokeh figures of the live workbook, with the sources the controller pushes new data into.
+
+A stage panel shows four plots sharing the horizontal-displacement axis: shear stress, vertical
+displacement, stress ratio and rate of dilation. The peak marker and the two ends of the
+critical-state window are one-point / two-point sources edited by a ``PointDrawTool``; whatever the
+browser sends, the marker is snapped back onto the readings by the controller. Curves are decimated
+for display only (:func:`~kernels_helpers.views.figures.decimate`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+from bokeh.layouts import column, row
+from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Legend, LegendItem, PointDrawTool, Span
+from bokeh.plotting import figure
+
+from ..envelope import confidence_band, fit_power_law
+from ..results import EnvelopeResult, Results, StageResult
+from .figures import CRIT, GREY, INK, PEAK, SUGGESTED, decimate
+
+__all__ = ["EnvelopePlot", "StagePlots", "marker_data", "window_data"]
+
+TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
+CURVES = (("tau_kpa", "shear stress tau (kPa)", "shear stress"),
+          ("y_mm", "vertical displacement (mm, dilation +)", "vertical displacement"),
+          ("ratio", "stress ratio tau/sigma' (-)", "stress ratio"),
+          ("dydx", "rate of dilation dy/dx (-)", "rate of dilation"))
+Callback = Callable[[str, Any, Any], None]
+
+
+def marker_data(s: StageResult) -> dict[str, list[float]]:
+    """The peak marker: the chosen peak reading (x mm, smoothed tau kPa)."""
+    return {"x": [s.peak.x_mm], "y": [s.peak.tau_kpa]}
+
+
+def window_data(s: StageResult) -> dict[str, list[float]]:
+    """The two ends of the critical-state window, drawn at the window's mean shear stress."""
+    return {"x": [s.cs.x_from_mm, s.cs.x_to_mm], "y": [s.cs.tau_kpa, s.cs.tau_kpa]}
+
+
+def _curve_data(s: StageResult) -> dict[str, np.ndarray]:
+    c = s.reduced.curve
+    shear = c[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == 1)]
+    keep = decimate(shear["x_mm"].to_numpy(), [shear[k].to_numpy() for k, _, _ in CURVES])
+    d = shear.iloc[keep]
+    return {k: d[k].to_numpy() for k in ("x_mm", "tau_kpa", "y_mm", "ratio", "dydx", "e")}
+
+
+class StagePlots:
+    """The four linked plots of one stage, the draggable picks, and how to redraw them."""
+
+    def __init__(self, s: StageResult, on_peak: Callback, on_window: Callback) -> None:
+        self.stage_id = s.stage_id
+        self.curve = ColumnDataSource(_curve_data(s))
+        self.peak = ColumnDataSource(marker_data(s))
+        self.window = ColumnDataSource(window_data(s))
+        self.peak_suggested = ColumnDataSource({"x": [s.peak_suggested.x_mm], "y": [s.peak_suggested.tau_kpa]})
+        self.plots = [self._plot(i, key, label, title) for i, (key, label, title) in enumerate(CURVES)]
+        self.boxes = [BoxAnnotation(left=s.cs.x_from_mm, right=s.cs.x_to_mm, fill_color=CRIT, fill_alpha=0.13,
+                                    level="underlay") for _ in self.plots]
+        self.spans = [Span(location=s.peak.x_mm, dimension="height", line_color=PEAK, line_dash="dashed",
+                           line_width=1.5) for _ in self.plots]
+        for p, box, span in zip(self.plots, self.boxes, self.spans, strict=True):
+            p.add_layout(box)
+            p.add_layout(span)
+        tau = self.plots[0]
+        ghost = tau.scatter("x", "y", source=self.peak_suggested, size=13, marker="diamond", fill_color=None,
+                            line_color=SUGGESTED, line_width=2)
+        win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
+        mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
+        tool = PointDrawTool(renderers=[mark, win], add=False, drag=True,
+                             description="drag the peak or the window ends")
+        tau.add_tools(tool)
+        tau.toolbar.active_tap = tool
+        tau.add_layout(Legend(items=[
+            LegendItem(label="readings", renderers=[tau.renderers[0]]),
+            LegendItem(label="suggested peak", renderers=[ghost]),
+            LegendItem(label="peak (drag it)", renderers=[mark]),
+            LegendItem(label="critical-state window ends (drag them)", renderers=[win]),
+        ], ncols=2, label_text_font_size="9px", spacing=0, padding=2, margin=2, label_height=12, glyph_height=12),
+            "below")
+        tau.height = 250
+        self.peak.on_change("data", on_peak)
+        self.window.on_change("data", on_window)
+        # one toolbar per plot (a merged toolbar would fight over which tap tool is active)
+        self.layout = column(row(*self.plots[:2]), row(*self.plots[2:]))
+        self.update(s)
+
+    def _plot(self, i: int, key: str, label: str, title: str):
+        shared = {"x_range": self.plots_x_range} if i else {}
+        p = figure(height=210, width=360, tools=TOOLS, name=f"live-{self.stage_id}-{key.split('_')[0]}",
+                   title=f"{self.stage_id} - {title}", x_axis_label="horizontal displacement (mm)", y_axis_label=label,
+                   **shared)
+        if not i:
+            self.plots_x_range = p.x_range
+        p.toolbar.logo = None
+        p.toolbar.autohide = True
+        p.title.text_font_size = "11px"
+        r = p.line("x_mm", key, source=self.curve, color=INK, line_width=1.3)
+        p.add_tools(HoverTool(renderers=[r], mode="vline", tooltips=[
+            ("x", "@x_mm{0.000} mm"), ("tau", "@tau_kpa{0.0} kPa"), ("y", "@y_mm{+0.000} mm"),
+            ("tau/sigma'", "@ratio{0.000}"), ("dy/dx", "@dydx{+0.0000}")]))
+        return p
+
+    def update(self, s: StageResult) -> None:
+        """Redraw the picks (only what differs is sent to the page)."""
+        colour = INK if s.included else GREY
+        for p in self.plots:
+            p.renderers[0].glyph.line_color = colour
+            p.background_fill_color = "white" if s.included else "#f1f2f3"
+        for box in self.boxes:
+            box.update(left=s.cs.x_from_mm, right=s.cs.x_to_mm)
+        for span in self.spans:
+            span.location = s.peak.x_mm
+        _set(self.peak, marker_data(s))
+        _set(self.window, window_data(s))
+        _set(self.peak_suggested, {"x": [s.peak_suggested.x_mm], "y": [s.peak_suggested.tau_kpa]})
+        self.plots[0].title.text = f"{s.stage_id} - shear stress, sigma'n {s.sigma_nominal_kpa:.0f} kPa" + (
+            "" if s.included else " (excluded)")
+
+
+def _set(source: ColumnDataSource, data: dict[str, list[float]]) -> None:
+    """Write ``data`` unless the source already holds it (no needless message, no echo)."""
+    if {k: list(source.data.get(k, [])) for k in data} != data:
+        source.data = data
+
+
+def _line(fit, sigma_max: float) -> dict[str, list[float]]:
+    if fit is None:
+        return {"x": [], "y": [], "lo": [], "hi": []}
+    xs = np.linspace(0.0, sigma_max * 1.15, 40)
+    lo, hi = confidence_band(fit, xs, fit.level)
+    return {"x": xs.tolist(), "y": (fit.intercept + fit.slope * xs).tolist(), "lo": lo.tolist(), "hi": hi.tolist()}
+
+
+class EnvelopePlot:
+    """tau against sigma' for one group: included and excluded points, both envelopes and bands."""
+
+    KINDS = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"))
+
+    def __init__(self, results: Results, group: str) -> None:
+        self.group = group
+        self.curved = False
+        safe = group.replace(" ", "_")
+        p = figure(title=f"Envelopes - {group}", height=430, width=560, tools=TOOLS, name=f"live-envelope-{safe}",
+                   x_axis_label="normal stress sigma' (kPa)", y_axis_label="shear stress tau (kPa)")
+        p.toolbar.logo = None
+        self.sources: dict[str, dict[str, ColumnDataSource]] = {}
+        self._drawn: dict[str, tuple[EnvelopeResult, float, bool]] = {}
+        items = []
+        for kind, colour, marker in self.KINDS:
+            src = {n: ColumnDataSource({k: [] for k in cols}) for n, cols in (
+                ("in", ("x", "y", "stage")), ("out", ("x", "y", "stage")), ("line", ("x", "y", "lo", "hi")),
+                ("curve", ("x", "y")))}
+            self.sources[kind] = src
+            name = kind.replace("_", " ")
+            band = p.varea("x", "lo", "hi", source=src["line"], fill_color=colour, fill_alpha=0.14)
+            line = p.line("x", "y", source=src["line"], color=colour, line_width=2)
+            curve = p.line("x", "y", source=src["curve"], color=colour, line_width=2, line_dash="dotdash")
+            pts = p.scatter("x", "y", source=src["in"], size=10, color=colour, marker=marker)
+            out = p.scatter("x", "y", source=src["out"], size=9, fill_color=GREY, line_color="#6d747a", marker=marker,
+                            alpha=0.8)
+            items += [LegendItem(label=f"{name}: stages, envelope, 95 % band of the mean line",
+                                 renderers=[pts, line, band]),
+                      LegendItem(label=f"{name}: excluded stages", renderers=[out]),
+                      LegendItem(label=f"{name}: curved envelope (when shown)", renderers=[curve])]
+        p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@x{0.0} kPa"), ("tau", "@y{0.0} kPa")]))
+        p.x_range.start = 0
+        p.y_range.start = 0
+        p.add_layout(Legend(items=items, ncols=2, label_text_font_size="9px", spacing=0, padding=4, margin=4), "below")
+        self.figure = p
+        self.update(results)
+
+    def update(self, results: Results) -> None:
+        members = [s for s in results.stages
+                   if self.group in ((s.test_set or "all stages"), f"stratum {s.stratum} (all sets)")]
+        sigma_max = max([1.0, *(s.cs.sigma_kpa for s in members), *(s.peak.sigma_kpa for s in members)])
+        for kind, _, _ in self.KINDS:
+            env: EnvelopeResult = results.envelope(self.group, kind)
+            src = self.sources[kind]
+            pick = (lambda s: s.peak) if kind == "peak" else (lambda s: s.cs)
+            out = [s for s in members if not s.included]
+            _set(src["in"], {"x": list(env.sigma_kpa), "y": list(env.tau_kpa), "stage": list(env.stage_ids)})
+            _set(src["out"], {"x": [pick(s).sigma_kpa for s in out], "y": [pick(s).tau_kpa for s in out],
+                              "stage": [s.stage_id for s in out]})
+            drawn = (env, sigma_max, self.curved)
+            if self._drawn.get(kind) != drawn:  # the band needs t quantiles: only when the fit changed
+                self._drawn[kind] = drawn
+                _set(src["line"], _line(env.chosen, sigma_max))
+                _set(src["curve"], self._curve(env, sigma_max))
+
+    def _curve(self, env: EnvelopeResult, sigma_max: float) -> dict[str, list]:
+        empty: dict[str, list] = {"x": [], "y": []}
+        if not self.curved or len(env.sigma_kpa) < 3:
+            return empty
+        try:
+            power = fit_power_law(env.sigma_kpa, env.tau_kpa)
+        except (ValueError, RuntimeError):
+            return empty
+        xs = np.linspace(sigma_max * 0.02, sigma_max * 1.15, 40)
+        return {"x": xs.tolist(), "y": power.tau_kpa(xs).tolist()}

@@ -1,0 +1,125 @@
+"""Figures of the derived results: envelope bands and curved fit, critical-state line, Taylor's ratio.
+
+Display only: every number drawn comes from :mod:`kernels_helpers.derived` or the pure functions
+it uses; curves are decimated as in :mod:`.figures`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from bokeh.layouts import column
+from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Legend
+from bokeh.plotting import figure
+
+from ..critical_state import CriticalStateLine
+from ..dilatancy import interlocking_free_ratio
+from ..results import Results
+from .figures import CRIT, GREY, INK, PEAK, SUGGESTED, TOOLS, decimate
+
+__all__ = ["critical_state_figure", "statistics_figure", "taylor_figure"]
+
+KIND_COLOUR = {"peak": PEAK, "critical_state": CRIT, "residual": SUGGESTED}
+SET_COLOURS = (INK, PEAK, CRIT, SUGGESTED, "#8c2d04", "#4d7c0f")
+DESIGN = "#8c2d04"
+
+
+def _figure(title: str, name: str, **kw) -> figure:
+    p = figure(title=title, height=380, width=560, tools=TOOLS, name=name, **kw)
+    p.toolbar.logo = None
+    p.title.text_font_size = "11px"
+    return p
+
+
+def statistics_figure(results: Results, group: str, kind: str):
+    """tau against sigma': points, reported line, 95 % bands, power law, and the characteristic line."""
+    env = results.envelope(group, kind)
+    stat = results.statistics(group, kind)
+    colour = KIND_COLOUR.get(kind, INK)
+    name = kind.replace("_", " ")
+    p = _figure(f"{name} envelope with bands - {group}", f"statistics-{group}-{kind}",
+                x_axis_label="normal stress sigma' (kPa)", y_axis_label="shear stress tau (kPa)")
+    items = []
+    reported = "origin" if env.reported == "zero" else "free"
+    band = next((b for b in stat.bands if b.fit == reported), None)
+    if band is not None:
+        pct = f"{band.level * 100:g} %"
+        items.append((f"{pct} confidence band of the mean line", [p.varea(band.sigma_kpa, band.mean_lower_kpa,
+                                                                         band.mean_upper_kpa, fill_color=colour,
+                                                                         fill_alpha=0.18)]))
+        lo = p.line(band.sigma_kpa, band.prediction_lower_kpa, color=colour, line_dash="dashed", line_width=1)
+        hi = p.line(band.sigma_kpa, band.prediction_upper_kpa, color=colour, line_dash="dashed", line_width=1)
+        items.append((f"{pct} prediction band (one new specimen)", [lo, hi]))
+        fit = env.chosen
+        c_txt = "0" if fit.through_origin else f"{fit.intercept:.1f}"
+        items.insert(0, (f"straight line: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg",
+                         [p.line(band.sigma_kpa, band.line_kpa, color=colour, line_width=2)]))
+    if stat.power is not None:
+        top = band.sigma_kpa[-1] if band is not None else 1.1 * max(env.sigma_kpa)
+        xs = np.linspace(top / 400, top, 200)
+        items.append((f"power law: tau = {stat.power.a:.3g} sigma'^{stat.power.b:.3f}",
+                      [p.line(xs, stat.power.tau_kpa(xs), color=INK, line_dash="dotdash", line_width=1.5)]))
+    src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids),
+                            "phi_sec": list(stat.secant_phi_deg)})
+    items.append(("stages (used)", [p.scatter("sigma", "tau", source=src, size=10, color=colour, marker="circle")]))
+    d = results.design
+    if d is not None and d.characteristic is not None and (d.group, d.kind) == (group, kind):
+        ch = d.characteristic
+        lo_r, hi_r = ch.stress_range_kpa
+        p.add_layout(BoxAnnotation(left=lo_r, right=hi_r, fill_color=DESIGN, fill_alpha=0.05))
+        items.append(("lower bound used for the characteristic value", [p.line(ch.sigma_kpa, ch.tau_bound_kpa,
+                                                                               color=DESIGN, line_width=1.5)]))
+        xs = [lo_r, hi_r]
+        c_k = round(d.c_k_kpa, 1) + 0.0  # + 0.0 turns -0.0 into 0.0
+        items.append((f"characteristic line: c'_k {c_k:.1f} kPa, phi'_k {d.phi_k_deg:.1f} deg ({ch.expressed})",
+                      [p.line(xs, [d.c_k_kpa + d.tan_phi_k * x for x in xs], color=DESIGN, line_width=3)]))
+    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("tau", "@tau{0.0} kPa"),
+                                    ("secant phi'", "@phi_sec{0.0} deg")]))
+    p.x_range.start = 0
+    p.y_range.start = 0
+    p.add_layout(Legend(items=items, location="top_left", label_text_font_size="9px"))
+    return column(p)
+
+
+def critical_state_figure(results: Results, line: CriticalStateLine):
+    """Void ratio against ln sigma': start of shear and critical state per stage, and the fitted line."""
+    p = _figure(f"critical-state line - {line.group}", f"csl-{line.group}", x_axis_type="log",
+                x_axis_label="normal stress sigma' (kPa, log scale)", y_axis_label="void ratio e")
+    items = []
+    for i, test_set in enumerate(dict.fromkeys(line.test_sets)):
+        colour = SET_COLOURS[i % len(SET_COLOURS)]
+        idx = [k for k, t in enumerate(line.test_sets) if t == test_set]
+        sig = [line.sigma_kpa[k] for k in idx]
+        src = ColumnDataSource({"sigma": sig, "e": [line.e_cs[k] for k in idx], "e0": [line.e_start[k] for k in idx],
+                                "stage": [line.stage_ids[k] for k in idx]})
+        segs = p.segment(x0="sigma", y0="e0", x1="sigma", y1="e", source=src, color=colour, line_dash="dotted")
+        start = p.scatter("sigma", "e0", source=src, size=8, line_color=colour, fill_color=None, marker="square")
+        crit = p.scatter("sigma", "e", source=src, size=10, color=colour, marker="circle")
+        items.append((f"{test_set or 'stages'}: start of shear (open) to critical state (filled)", [segs, start, crit]))
+    lo, hi = min(line.sigma_kpa) / 1.5, max(line.sigma_kpa) * 1.5
+    xs = np.geomspace(lo, hi, 30)
+    sign = "-" if line.lambda_ >= 0 else "+"
+    items.insert(0, (f"e_cs = {line.e_1kpa:.3f} {sign} {abs(line.lambda_):.4f} ln(sigma'/1 kPa), R^2 {line.fit.r2:.3f}",
+                     [p.line(xs, [line.e_at(x) for x in xs], color=GREY, line_width=2)]))
+    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("e start", "@e0{0.000}"),
+                                    ("e critical", "@e{0.000}")]))
+    p.add_layout(Legend(items=items, location="top_right", label_text_font_size="9px"))
+    return column(p)
+
+
+def taylor_figure(results: Results, stage_ids: list[str]):
+    """tau/sigma' and Taylor's interlocking-free ratio tau/sigma' - dy/dx against displacement."""
+    p = _figure("stress ratio and Taylor's interlocking-free ratio", "taylor-" + "-".join(stage_ids),
+                x_axis_label="horizontal displacement (mm)", y_axis_label="ratio")
+    items = []
+    for i, sid in enumerate(stage_ids):
+        s = results.stage(sid)
+        c = s.reduced.curve[s.reduced.curve["in_shear"]]
+        free = interlocking_free_ratio(c).to_numpy()
+        keep = decimate(c["x_mm"].to_numpy(), [c["ratio"].to_numpy(), free])
+        x = c["x_mm"].to_numpy()[keep]
+        colour = SET_COLOURS[i % len(SET_COLOURS)]
+        a = p.line(x, c["ratio"].to_numpy()[keep], color=colour, line_width=1.5)
+        b = p.line(x, free[keep], color=colour, line_width=1.5, line_dash="dashed")
+        items.append((f"{sid}: tau/sigma' (solid), tau/sigma' - dy/dx (dashed)", [a, b]))
+    p.add_layout(Legend(items=items, location="bottom_right", label_text_font_size="9px"))
+    return column(p)

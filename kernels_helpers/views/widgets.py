@@ -1,0 +1,335 @@
+"""The live workbook's screen: Bokeh plots and ipywidgets wired to one :class:`Controller`.
+
+Widgets never compute: every callback calls one controller edit (which goes through the
+Interpretation's edit methods and the pipeline) and then shows what the controller reports. The
+Bokeh callbacks guard against jupyter_bokeh's echo of our own writes and its double calls: they
+return early when the incoming data is what the current pick already draws.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import ipywidgets as W
+from bokeh.layouts import column, row
+from jupyter_bokeh.widgets import BokehModel
+
+from ..interpretation import utc_now
+from ..results import Results, StageResult
+from . import tables
+from .interactive import Controller
+from .live_plots import EnvelopePlot, StagePlots, marker_data, window_data
+
+__all__ = ["LiveWorkbook", "live_workbook"]
+
+PICK_HELP = ("Drag the amber diamond (peak) or the teal squares (ends of the critical-state window) on the shear "
+             "stress plot; they snap to the nearest reading. Or type the displacement below.")
+
+
+def _float_text(description: str, value: float, css: str) -> W.FloatText:
+    w = W.FloatText(value=round(value, 3), step=0.01, description=description, style={"description_width": "110px"},
+                    layout=W.Layout(width="250px"))
+    w.add_class(css)
+    return w
+
+
+class _Guard:
+    """True while the screen writes its own widget values (their observers must do nothing)."""
+
+    def __init__(self) -> None:
+        self.active = False
+
+    def run(self, fn: Callable[[], None]) -> None:
+        self.active, before = True, self.active
+        try:
+            fn()
+        finally:
+            self.active = before
+
+
+class StagePanel:
+    """Plots, number twins and "back to suggestion" buttons of one stage."""
+
+    def __init__(self, wb: LiveWorkbook, s: StageResult) -> None:
+        self.wb, self.sid = wb, s.stage_id
+        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag)
+        self.peak_x = _float_text("peak at x (mm)", s.peak.x_mm, f"sb-peak-x-{self.sid}")
+        self.cs_from = _float_text("window from (mm)", s.cs.x_from_mm, f"sb-cs-from-{self.sid}")
+        self.cs_to = _float_text("window to (mm)", s.cs.x_to_mm, f"sb-cs-to-{self.sid}")
+        self.peak_reset = W.Button(description="peak: back to suggestion", layout=W.Layout(width="260px"))
+        self.cs_reset = W.Button(description="window: back to suggestion", layout=W.Layout(width="260px"))
+        self.info = W.HTML()
+        self.peak_x.observe(self.on_peak_typed, "value")
+        self.cs_from.observe(self.on_window_typed, "value")
+        self.cs_to.observe(self.on_window_typed, "value")
+        self.peak_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "peak")))
+        self.cs_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "critical_state")))
+        side = W.VBox([W.HTML(f"<b>{tables.esc(self.sid)}</b>: type a displacement and press Enter"), self.peak_x,
+                       self.peak_reset, W.HTML("<small>critical-state window</small>"), self.cs_from, self.cs_to,
+                       self.cs_reset, self.info], layout=W.Layout(width="280px"))
+        self.widget = W.HBox([BokehModel(self.plots.layout), side])
+        self.update(s)
+
+    # Bokeh callbacks: (attr, old, new) as jupyter_bokeh calls them, twice, and with our own echo.
+    def on_peak_drag(self, attr: str, old: Any, new: Any) -> None:
+        if not new.get("x") or _same(new, marker_data(self.wb.controller.stage(self.sid))):
+            return  # our own write coming back, or the second call of one change
+        self.wb.act(lambda c: c.move_peak(self.sid, float(new["x"][0])), redraw=self.sid)
+
+    def on_window_drag(self, attr: str, old: Any, new: Any) -> None:
+        xs = list(new.get("x", []))
+        if len(xs) != 2 or _same(new, window_data(self.wb.controller.stage(self.sid))):
+            return
+        self.wb.act(lambda c: c.set_window(self.sid, float(min(xs)), float(max(xs))), redraw=self.sid)
+
+    def on_peak_typed(self, change: dict[str, Any]) -> None:
+        if not self.wb.guard.active:
+            self.wb.act(lambda c: c.move_peak(self.sid, change["new"]), redraw=self.sid)
+
+    def on_window_typed(self, change: dict[str, Any]) -> None:
+        if not self.wb.guard.active:
+            self.wb.act(lambda c: c.set_window(self.sid, self.cs_from.value, self.cs_to.value), redraw=self.sid)
+
+    def update(self, s: StageResult) -> None:
+        self.plots.update(s)
+
+        def write() -> None:
+            self.peak_x.value = round(s.peak.x_mm, 3)
+            self.cs_from.value = round(s.cs.x_from_mm, 3)
+            self.cs_to.value = round(s.cs.x_to_mm, 3)
+        self.wb.guard.run(write)
+        peak = "suggested" if s.peak_source == "suggested" else f"manual (suggested {s.peak_suggested.x_mm:.2f} mm)"
+        cs = "suggested" if s.cs_source == "suggested" else (
+            f"manual (suggested {s.cs_suggested.x_from_mm:.2f}-{s.cs_suggested.x_to_mm:.2f} mm)")
+        distinct = f"<br><i>{tables.esc(s.no_distinct_peak)}</i>" if s.no_distinct_peak else ""
+        self.info.value = (f"<small>peak: {tables.esc(peak)}, tau {s.peak.tau_kpa:.1f} kPa{distinct}<br>"
+                           f"critical state: {tables.esc(cs)}, tau {s.cs.tau_kpa:.1f} kPa</small>")
+
+
+def _same(new: Any, drawn: dict[str, list[float]]) -> bool:
+    try:
+        return all(len(new[k]) == len(v) and all(math.isclose(a, b, abs_tol=1e-9)
+                                                 for a, b in zip(new[k], v, strict=True))
+                   for k, v in drawn.items())
+    except (KeyError, TypeError):
+        return False
+
+
+class StageTable:
+    """One row per stage: normal stress, picks, flags, include (a reason is required) and a note."""
+
+    HEAD = ("stage", "sigma'n (kPa)", "peak tau (kPa)", "critical state tau (kPa)", "flags", "included",
+            "reason for excluding", "note")
+
+    def __init__(self, wb: LiveWorkbook) -> None:
+        self.wb = wb
+        self.rows: dict[str, dict[str, W.Widget]] = {}
+        cells: list[W.Widget] = [W.HTML(f"<b>{tables.esc(h)}</b>") for h in self.HEAD]
+        for sid in wb.controller.stage_ids:
+            r = {"sigma": W.HTML(), "peak": W.HTML(), "cs": W.HTML(), "flags": W.HTML(),
+                 "include": W.Checkbox(description="", indent=False),
+                 "reason": W.Text(placeholder="required to exclude", continuous_update=False),
+                 "note": W.Text(placeholder="note", continuous_update=False)}
+            for key in ("include", "reason", "note"):
+                r[key].add_class(f"sb-{key}-{sid}")
+            r["include"].observe(lambda ch, sid=sid: self.on_include(sid, ch["new"]), "value")
+            r["reason"].observe(lambda ch, sid=sid: self.on_reason(sid, ch["new"]), "value")
+            r["note"].observe(lambda ch, sid=sid: self.on_note(sid, ch["new"]), "value")
+            self.rows[sid] = r
+            cells += [W.HTML(tables.esc(sid)), r["sigma"], r["peak"], r["cs"], r["flags"], r["include"], r["reason"],
+                      r["note"]]
+        self.message = W.HTML()
+        self.message.add_class("sb-table-message")
+        columns = "80px 80px 150px 170px minmax(200px, 1fr) 60px 200px 200px"
+        grid = W.GridBox(cells, layout=W.Layout(grid_template_columns=columns,
+                                                grid_gap="2px 8px", align_items="center"))
+        self.widget = W.VBox([grid, self.message])
+        self.update(wb.controller.results)
+
+    def on_include(self, sid: str, included: bool) -> None:
+        if self.wb.guard.active:
+            return
+        reason = self.rows[sid]["reason"].value
+        self._act(lambda c: c.restore(sid) if included else c.exclude(sid, reason))
+
+    def on_reason(self, sid: str, reason: str) -> None:
+        if not self.wb.guard.active and not self.rows[sid]["include"].value:
+            self._act(lambda c: c.exclude(sid, reason))
+
+    def on_note(self, sid: str, note: str) -> None:
+        if not self.wb.guard.active:
+            self._act(lambda c: c.set_note(sid, note))
+
+    def _act(self, edit: Callable[[Controller], bool]) -> None:
+        """Run an edit; when refused, say why under the table and show again what the file says."""
+        ok = self.wb.act(edit)
+        self.message.value = "" if ok else f'<span class="sb-flag">{tables.esc(self.wb.last_message)}</span>'
+        if not ok:
+            self.update(self.wb.controller.results)
+
+    def update(self, results: Results) -> None:
+        def write() -> None:
+            for s in results.stages:
+                r = self.rows[s.stage_id]
+                r["sigma"].value = f"{s.sigma_nominal_kpa:.0f}"
+                no_peak = s.no_distinct_peak and s.peak_source == "suggested"
+                peak = "no distinct peak" if no_peak else f"{s.peak.tau_kpa:.1f}"
+                r["peak"].value = f"{tables.esc(peak)} at {s.peak.x_mm:.2f} mm ({s.peak_source})"
+                r["cs"].value = f"{s.cs.tau_kpa:.1f} over {s.cs.x_from_mm:.2f}-{s.cs.x_to_mm:.2f} mm ({s.cs_source})"
+                flags = (f'<small class="sb-flag">{tables.esc(f)}</small>' for f in s.flags)
+                r["flags"].value = "<br>".join(flags) or "none"
+                r["include"].value = s.included
+                if not s.included:
+                    r["reason"].value = s.exclusion_reason
+                r["note"].value = s.note
+        self.wb.guard.run(write)
+
+
+class LiveWorkbook:
+    """The whole live screen; display its parts in separate cells (``top``, stages, ``table``...)."""
+
+    def __init__(self, controller: Controller) -> None:
+        self.controller = controller
+        self.guard = _Guard()
+        self.last_message = ""
+        self.author = W.Text(value=controller.author, description="author", placeholder="your name (recorded)",
+                             continuous_update=True)
+        self.author.add_class("sb-author")
+        self.author.observe(self.on_author, "value")
+        self.undo = W.Button(description="undo last change", icon="undo")
+        self.undo.on_click(lambda _: self.act(lambda c: c.undo()))
+        self.status = W.HTML()
+        self.status.add_class("sb-status")
+        self.top = W.VBox([W.HBox([self.author, self.undo]), self.status])
+        self.panels = {s.stage_id: StagePanel(self, s) for s in controller.results.stages}
+        self.stage_table = StageTable(self)
+        self.table = self.stage_table.widget
+        groups = dict.fromkeys(e.group for e in controller.results.envelopes)
+        self.envelope_plots = [EnvelopePlot(controller.results, g) for g in groups]
+        self.cohesion = W.Checkbox(value=controller.interpretation.settings.fit.cohesion == "zero", indent=False,
+                                   description="c' = 0 (envelopes through the origin)")
+        self.curved = W.Checkbox(value=False, indent=False, description="show the curved envelope tau = a sigma'^b")
+        self.cohesion.observe(self.on_cohesion, "value")
+        self.curved.observe(self.on_curved, "value")
+        self.parameters = W.HTML()
+        self.parameters.add_class("sb-parameters")
+        self.envelopes = W.VBox([W.HBox([self.cohesion, self.curved]),
+                                 BokehModel(_pairs([e.figure for e in self.envelope_plots])), self.parameters])
+        self.summary = W.HTML()
+        self.summary.add_class("sb-summary")
+        controller.subscribe(self.refresh)
+        self.refresh(controller.results, frozenset())
+        self.status.value = (f"<small>{tables.esc(PICK_HELP)} Decisions are saved at once to "
+                             f"{tables.esc(controller.path.name)}.</small>")
+
+    def stage_panel(self, stage_id: str) -> W.Widget:
+        return self.panels[stage_id].widget
+
+    @property
+    def stages(self) -> W.Widget:
+        return W.VBox([p.widget for p in self.panels.values()])
+
+    def act(self, edit: Callable[[Controller], bool], redraw: str | None = None) -> bool:
+        """Run one controller edit; show its message; snap a dragged marker back when nothing changed."""
+        ok = edit(self.controller)
+        c = self.controller
+        if ok:
+            self.status.value = (f'<span class="sb-saved">saved {utc_now()} by {tables.esc(c.author)} '
+                                 f'({c.last_refresh_s * 1000:.0f} ms): {tables.esc(c.message)}</span>')
+        elif c.message:
+            self.status.value = f'<span class="sb-flag">{tables.esc(c.message)}</span>'
+        self.last_message, c.message = c.message, ""
+        if not ok and redraw:
+            self.panels[redraw].update(c.stage(redraw))
+        return ok
+
+    def on_author(self, change: dict[str, Any]) -> None:
+        self.controller.author = change["new"].strip()
+
+    def on_cohesion(self, change: dict[str, Any]) -> None:
+        if self.guard.active:
+            return
+        if not self.act(lambda c: c.set_cohesion("zero" if change["new"] else "free")):  # refused: show the file's
+            zero = self.controller.interpretation.settings.fit.cohesion == "zero"
+            self.guard.run(lambda: setattr(self.cohesion, "value", zero))
+
+    def on_curved(self, change: dict[str, Any]) -> None:
+        for e in self.envelope_plots:
+            e.curved = bool(change["new"])
+            e.update(self.controller.results)
+
+    def refresh(self, results: Results, changed: frozenset[str]) -> None:
+        for sid in changed:
+            self.panels[sid].update(results.stage(sid))
+        self.stage_table.update(results)  # flags comparing stages may change on other rows
+        for e in self.envelope_plots:
+            e.update(results)
+        zero = self.controller.interpretation.settings.fit.cohesion == "zero"
+        self.guard.run(lambda: setattr(self.cohesion, "value", zero))
+        self.parameters.value = parameters_html(results)
+        self.summary.value = summary_html(results, self.controller)
+
+
+def _pairs(figures: list[Any]) -> Any:
+    """Figures two to a row."""
+    return column(*(row(*figures[i : i + 2]) for i in range(0, len(figures), 2)))
+
+
+def parameters_html(results: Results) -> str:
+    """c' and phi' with their intervals, every group and envelope; the caution below."""
+    rows = []
+    for e in results.envelopes:
+        fit = e.chosen
+        kind = e.kind.replace("_", " ")
+        if fit is None:
+            rows.append((tables.esc(e.group), tables.esc(kind), str(len(e.stage_ids)), "&ndash;", "&ndash;",
+                         tables.esc(e.not_fitted or "")))
+            continue
+        lo, hi = fit.phi_interval_deg
+        c_lo, c_hi = fit.c_interval_kpa
+        c = "0 (fixed)" if fit.through_origin else f"{_kpa(fit.intercept)} [{_kpa(c_lo)}, {_kpa(c_hi)}]"
+        phi = (f'<span class="sb-phi" data-group="{tables.esc(e.group)}" data-kind="{tables.esc(e.kind)}">'
+               f"{fit.phi_deg:.1f}</span> [{lo:.1f}, {hi:.1f}]")
+        rows.append((tables.esc(e.group), tables.esc(kind), str(fit.n), phi, c, tables.esc(e.not_fitted or "")))
+    level = next((e.chosen.level for e in results.envelopes if e.chosen), 0.95)
+    ci = f"[{level * 100:g} % CI]"
+    head = ("group", "envelope", "n", f"phi' (deg) {ci}", f"c' (kPa) {ci}", "remarks")
+    return _NOWRAP + tables.table(head, rows, css="sb-table sb-live") + tables.caution_html()
+
+
+_NOWRAP = "<style>.sb-live td:not(:last-child), .sb-live th {white-space: nowrap;}</style>"
+
+
+def _kpa(value: float) -> str:
+    """A stress to 0.1 kPa, never "-0.0"."""
+    text = f"{value:.1f}"
+    return "0.0" if text == "-0.0" else text
+
+
+def summary_html(results: Results, controller: Controller) -> str:
+    """Chosen parameters, the flags still open and the sign-off state, in a few lines."""
+    interp = controller.interpretation
+    manual = sum((s.peak_source == "manual") + (s.cs_source == "manual") for s in results.stages)
+    out = [s for s in results.stages if not s.included]
+    params = "; ".join(
+        f"{e.group} {e.kind.replace('_', ' ')}: phi' {e.chosen.phi_deg:.1f} deg, c' {_kpa(e.chosen.intercept)} kPa"
+        for e in results.envelopes if e.chosen)
+    flags = [(s.stage_id, f) for s in results.stages if s.included for f in s.flags]
+    flag_items = "".join(f"<li>{tables.esc(sid)}: {tables.esc(f)}</li>" for sid, f in flags) or "<li>none</li>"
+    signed = interp.signoff.history[-1] if interp.signoff.history else None
+    who = f" ({tables.esc(signed['who'])}, {tables.esc(signed['time_utc'])})" if signed else ""
+    return (f"<p><b>Parameters:</b> {tables.esc(params) or 'none fitted'}.</p>"
+            f"<p><b>Decisions:</b> {manual} manual pick(s), {len(out)} stage(s) excluded"
+            + "".join(f"; {tables.esc(s.stage_id)}: {tables.esc(s.exclusion_reason)}" for s in out)
+            + f". File: {tables.esc(str(controller.path))}.</p>"
+            f"<p><b>Open flags on included stages ({len(flags)}):</b></p><ul>{flag_items}</ul>"
+            f"<p><b>Sign-off:</b> {tables.esc(interp.signoff.state)}{who}.</p>" + tables.caution_html())
+
+
+def live_workbook(project_dir: str | Path, interpretation_file: str | Path | None = None,
+                  author: str = "") -> LiveWorkbook:
+    """Open the live screen on a project: every decision already in the interpretation file is restored."""
+    return LiveWorkbook(Controller(project_dir, interpretation_file, author))

@@ -1,0 +1,119 @@
+"""Synthetic shear box stages from Taylor's stress-dilatancy relation, with known answers.
+
+Model (Taylor 1948, energy correction for the shear box; REFERENCES sec. 5): on the shear plane
+tau/sigma' = mu + dy/dx, with mu = tan(phi_cs) mobilised as mu(u) = tan(phi_cs) tanh(u / u_mob) and
+the rate of dilation a pulse that rises to tan(psi_max) at u_peak and dies away (dense), or a
+contraction that dies away (loose). u is the displacement after the seating slack. Stresses are on
+the corrected area L (L - u) of a square box, as Shearbook computes them by default.
+
+The answers (peak tau, critical-state ratio, residual) are evaluated from the same closed forms on a
+fine grid without noise; the files carry noise. This is test data only, never demo or design data.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+SIDE = 60.0
+
+
+def pulse(u: np.ndarray, at: float, n: float) -> np.ndarray:
+    """0 at u = 0, 1 at u = ``at``, decaying to 0: (u/at)^n exp(n (1 - u/at))."""
+    r = np.clip(u, 0.0, None) / at
+    return r**n * np.exp(n * (1.0 - r))
+
+
+@dataclass
+class Model:
+    phi_cs: float = 32.0
+    psi_max: float = 10.0  # 0 for a loose specimen
+    u_peak: float = 2.0
+    u_mob: float = 0.4
+    contraction: float = 0.0  # loose: maximum rate of contraction (positive number)
+    normal_n: float = 360.0
+    travel: float = 12.0
+    slack: float = 0.2
+    noise_n: float = 0.5
+    stick_slip: float = 0.0  # amplitude of a sawtooth, as a fraction of the shear force
+    seed: int = 1
+    extra: dict = field(default_factory=dict)
+
+    def rate(self, u: np.ndarray) -> np.ndarray:
+        dense = math.tan(math.radians(self.psi_max)) * pulse(u, self.u_peak, 4.0)
+        loose = -self.contraction * pulse(u, 1.2, 3.0)
+        return dense + loose
+
+    def ratio(self, u: np.ndarray) -> np.ndarray:
+        return math.tan(math.radians(self.phi_cs)) * np.tanh(np.clip(u, 0, None) / self.u_mob) + self.rate(u)
+
+    def tau(self, u: np.ndarray) -> np.ndarray:
+        return self.ratio(u) * self.normal_n / (SIDE * (SIDE - np.clip(u, 0, None))) * 1000.0
+
+    def true_peak(self) -> tuple[float, float]:
+        u = np.linspace(0.0, self.travel - self.slack, 200_001)
+        t = self.tau(u)
+        i = int(np.argmax(t))
+        return float(u[i]), float(t[i])
+
+    @property
+    def cs_ratio(self) -> float:
+        return math.tan(math.radians(self.phi_cs))
+
+
+def readings(m: Model, x: np.ndarray | None = None, force_scale: np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Columns (time s, x mm, y mm, shear force N) of one forward stage with noise."""
+    rng = np.random.default_rng(m.seed)
+    if x is None:
+        x = np.linspace(0.0, m.travel, 3001)
+    u = np.clip(x - m.slack, 0.0, None)
+    grid = np.linspace(0.0, float(u.max()) + 1e-9, 20001)
+    y_grid = np.concatenate([[0.0], np.cumsum(0.5 * (m.rate(grid[1:]) + m.rate(grid[:-1])) * np.diff(grid))])
+    y = np.interp(u, grid, y_grid)
+    force = m.ratio(u) * m.normal_n * np.where(x > m.slack, 1.0, 0.0)
+    if m.stick_slip:
+        force = force * (1.0 + m.stick_slip * (((x / 0.15) % 1.0) - 0.5) * 2.0)
+    if force_scale is not None:
+        force = force * force_scale
+    force = force + rng.normal(0.0, m.noise_n, len(x))
+    return {"t": np.arange(len(x)) * 2.0, "x": x + rng.normal(0, 0.001, len(x)), "y": y + rng.normal(0, 0.001, len(x)),
+            "f": force}
+
+
+PROJECT = """schema = "shearbook.project/1"
+[project]
+name = "synthetic test project (not real data)"
+
+[stage_defaults.specimen]
+shape = "square"
+side_mm = 60.0
+height_mm = 20.0
+gs = 2.65
+dry_mass_g = 115.0
+
+[stage_defaults.columns]
+time = {{ column = "t", unit = "s" }}
+horizontal_displacement = {{ column = "x", unit = "mm" }}
+vertical_displacement = {{ column = "y", unit = "mm", dilation = "positive" }}
+shear_force = {{ column = "f", unit = "N" }}
+{extra_columns}
+"""
+
+
+def write_project(folder: Path, stages: dict[str, tuple[dict[str, np.ndarray], float, str]], normal_column: bool = False) -> Path:
+    """A project with one stage per entry: id -> (columns, normal force N, test type)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "readings").mkdir(exist_ok=True)
+    extra = 'normal_force = { column = "n", unit = "N" }' if normal_column else ""
+    text = PROJECT.format(extra_columns=extra)
+    for sid, (cols, normal, test_type) in stages.items():
+        names = list(cols)
+        rows = np.column_stack([cols[k] for k in names])
+        np.savetxt(folder / "readings" / f"{sid}.csv", rows, delimiter=",", header=",".join(names), comments="", fmt="%.6f")
+        text += (f'\n[[stage]]\nid = "{sid}"\nfile = "readings/{sid}.csv"\ntest_set = "synthetic"\n'
+                 f'test_type = "{test_type}"\n[stage.normal_load]\nforce_n = {normal}\n')
+    (folder / "project.toml").write_text(text, encoding="utf-8")
+    return folder

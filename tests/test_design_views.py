@@ -1,0 +1,73 @@
+"""Views of the derived results without a browser: what the tables and figures carry, and escaping."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+from bokeh.models import GlyphRenderer, VArea
+
+from kernels_helpers import Interpretation, interpret
+from kernels_helpers.design import DESIGN_CAUTION
+from kernels_helpers.views import design_views
+from kernels_helpers.views.strength_figures import critical_state_figure, statistics_figure
+from kernels_helpers.views.tables import CAUTION, esc
+
+EXAMPLE = Path(__file__).resolve().parents[1] / "example_project"
+EVIL = "<script>alert(1)</script>"
+
+
+@pytest.fixture(scope="module")
+def results():
+    interp = Interpretation().with_design(EVIL, note=EVIL, c_k_zero=True, c_k_zero_reason=EVIL)
+    return interpret(EXAMPLE, interp)
+
+
+def test_design_html_writes_out_the_method_and_cautions_and_escapes(results) -> None:
+    html = design_views.design_html(results)
+    assert EVIL not in html and esc(EVIL) in html
+    assert esc(DESIGN_CAUTION) in html
+    assert esc(results.design.method) in html and "c&#x27;_k set to zero by the engineer" in html
+    for v in results.design.design:
+        assert f"{v.phi_d_deg:.1f}" in html
+    assert "EN 1997-1 Annex A Table A.4, recommended" in html
+
+
+def test_statistics_figure_draws_the_stored_bands(results) -> None:
+    st = next(s for s in results.envelope_statistics if s.bands)
+    layout = statistics_figure(results, st.group, st.kind)
+    plot = layout.children[0]
+    areas = [r.glyph for r in plot.renderers if isinstance(r, GlyphRenderer) and isinstance(r.glyph, VArea)]
+    assert len(areas) == 1
+    renderer = next(r for r in plot.renderers if isinstance(r, GlyphRenderer) and isinstance(r.glyph, VArea))
+    reported = "origin" if results.envelope(st.group, st.kind).reported == "zero" else "free"
+    band = next(b for b in st.bands if b.fit == reported)
+    assert list(renderer.data_source.data["y1"]) == list(band.mean_lower_kpa)
+    assert list(renderer.data_source.data["y2"]) == list(band.mean_upper_kpa)
+
+
+def test_other_tables_render_and_show_the_general_caution(results) -> None:
+    for make in (design_views.statistics_table, design_views.set_comparison_table, design_views.critical_state_table,
+                 design_views.dilatancy_table):
+        html = make(results)
+        assert html.startswith("<table") or html.startswith("<p>")
+    assert "Davis 1968" in design_views.dilatancy_table(results)
+    assert "F-test of coincident lines" in design_views.set_comparison_table(results)
+    for line in results.critical_state_lines:
+        assert critical_state_figure(results, line).children[0].name == f"csl-{line.group}"
+
+
+def test_show_design_displays_both_cautions(results, monkeypatch: pytest.MonkeyPatch) -> None:
+    shown: list[str] = []
+    monkeypatch.setattr(design_views, "display", lambda obj: shown.append(obj.data))
+    design_views.show_design(results)
+    assert any(esc(DESIGN_CAUTION) in h for h in shown)
+    assert any(esc(CAUTION) in h for h in shown)
+
+
+def test_power_law_angles_at_a_stress_the_engineer_names(results) -> None:
+    html = design_views.power_law_angle_table(results, [75.0])
+    for st in results.envelope_statistics:
+        if st.power is not None:  # tan phi_t = b tan phi_s (REFERENCES sec. 6 [C]); values from the stored fit
+            assert f"{float(st.power.phi_secant_deg(75.0)):.1f} / {float(st.power.phi_tangent_deg(75.0)):.1f}" in html
+    assert "at 75 kPa" in html

@@ -1,0 +1,106 @@
+"""Interpretation edits, the diff of two interpretations, leave-one-out sensitivity, the text summary."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import pytest
+from scipy import stats
+
+from kernels_helpers import interpret, load_project, save_interpretation
+from kernels_helpers.cli import main
+from kernels_helpers.diff import diff_interpretations
+from kernels_helpers.interpretation import Interpretation
+from kernels_helpers.sensitivity import leave_one_out
+
+AUTHOR = "T. Checker"
+
+
+@pytest.fixture
+def base(example_copy: Path) -> Interpretation:
+    return Interpretation()
+
+
+def test_edits_record_author_time_and_keep_the_suggestion(example_copy: Path, base: Interpretation) -> None:
+    i = base.with_peak("BH03-D1", 1.5, AUTHOR, "first crest")
+    d = i.decision("BH03-D1")
+    assert (d.peak.source, d.peak.author, d.peak.note) == ("manual", AUTHOR, "first crest")
+    assert d.peak.time_utc.endswith("Z") and len(d.peak.time_utc) == 20
+    s = interpret(example_copy, i).stage("BH03-D1")
+    assert abs(s.peak.x_mm - 1.5) < 0.01 and s.peak_suggested.x_mm != s.peak.x_mm  # snapped; suggestion kept
+    back = i.back_to_suggestion("BH03-D1", "peak")
+    assert interpret(example_copy, back).stage("BH03-D1").peak == s.peak_suggested
+    with pytest.raises(ValueError, match="only be excluded with a stated reason"):
+        base.excluded("BH03-D1", "  ", AUTHOR)
+
+
+def test_signoff_goes_draft_checked_approved(base: Interpretation) -> None:
+    i = base.with_signoff("checked", "C. Checker").with_signoff("approved", "A. Approver")
+    assert i.signoff.state == "approved" and [h["who"] for h in i.signoff.history] == ["C. Checker", "A. Approver"]
+    with pytest.raises(ValueError, match="cannot go from draft to approved"):
+        base.with_signoff("approved", "A. Approver")
+    assert i.with_signoff("draft", "E. Engineer").signoff.state == "draft"
+
+
+def test_diff_in_words(example_copy: Path, base: Interpretation) -> None:
+    project = load_project(example_copy)
+    after = base.with_peak("BH03-D3", 2.0, AUTHOR, "earlier crest").excluded("BH03-D1", "disturbed in trimming", AUTHOR)
+    report = diff_interpretations(project, base, after)
+    ra, rb = interpret(project, base), interpret(project, after)
+    pa, pb = ra.stage("BH03-D3").peak, rb.stage("BH03-D3").peak
+    assert (f"BH03-D3: peak suggested at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) -> manual at x = {pb.x_mm:.2f} mm "
+            f"(tau {pb.tau_kpa:.1f} kPa): moved {pb.x_mm - pa.x_mm:+.2f} mm, tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa; "
+            "note: earlier crest") in report.stages
+    assert "BH03-D1: excluded (disturbed in trimming)" in report.stages
+    fa, fb = ra.envelope("BH03 dense", "peak").chosen, rb.envelope("BH03 dense", "peak").chosen
+    line = next(x for x in report.envelopes if x.startswith("BH03 dense, peak:"))
+    assert f"phi' {fa.phi_deg:.2f} -> {fb.phi_deg:.2f} deg" in line and "stages 3 -> 2" in line and "(fit c' free -> c' = 0)" in line
+    assert diff_interpretations(project, after, after).empty
+    restored = diff_interpretations(project, after, after.restored("BH03-D1", AUTHOR))
+    assert "BH03-D1: restored to the envelopes" in restored.stages
+
+
+def test_diff_command(example_copy: Path, base: Interpretation, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    a, b = tmp_path / "a.json", tmp_path / "b.json"
+    save_interpretation(base, a)
+    save_interpretation(base.with_signoff("checked", "C. Checker"), b)
+    assert main(["diff", str(example_copy), str(a), str(b)]) == 0
+    out = capsys.readouterr().out
+    assert out.startswith(f"Changes from {a} to {b}:") and "draft -> checked by C. Checker at " in out
+    assert main(["diff", str(example_copy), str(a), str(tmp_path / "missing.json")]) == 2
+    assert "missing.json: interpretation file not found." in capsys.readouterr().err
+
+
+def test_leave_one_out_matches_independent_fits(example_copy: Path) -> None:
+    results = interpret(example_copy, Interpretation())
+    env = results.envelope("stratum B (all sets)", "critical_state")  # six points: LOO keeps 5
+    rows = leave_one_out(env)
+    assert [r.left_out for r in rows] == list(env.stage_ids)
+    for i, r in enumerate(rows):
+        sigma = [s for j, s in enumerate(env.sigma_kpa) if j != i]
+        tau = [t for j, t in enumerate(env.tau_kpa) if j != i]
+        ref = stats.linregress(sigma, tau)  # scipy as the reference least-squares fit
+        assert r.phi_deg == pytest.approx(math.degrees(math.atan(ref.slope)), rel=1e-10)
+        assert r.c_kpa == pytest.approx(ref.intercept, abs=1e-9)
+        assert r.phi_change_deg == pytest.approx(r.phi_deg - env.free.phi_deg, abs=1e-12)
+        slope0 = sum(s * t for s, t in zip(sigma, tau, strict=True)) / sum(s * s for s in sigma)  # b = sum(xy)/sum(x^2)
+        assert r.phi_origin_deg == pytest.approx(math.degrees(math.atan(slope0)), rel=1e-12)
+
+
+def test_leave_one_out_of_three_is_the_exact_two_point_line(example_copy: Path) -> None:
+    env = interpret(example_copy, Interpretation()).envelope("BH03 dense", "peak")
+    row = leave_one_out(env)[0]
+    (s1, s2), (t1, t2) = env.sigma_kpa[1:], env.tau_kpa[1:]
+    assert row.method.startswith("exact line through the 2 remaining points")
+    assert row.phi_deg == pytest.approx(math.degrees(math.atan((t2 - t1) / (s2 - s1))), rel=1e-12)
+    assert row.c_kpa == pytest.approx(t1 - (t2 - t1) / (s2 - s1) * s1, rel=1e-12)
+
+
+def test_summary_command_shows_manual_pick_beside_suggestion_and_exclusion(capsys: pytest.CaptureFixture[str]) -> None:
+    example = Path(__file__).resolve().parent.parent / "example_project"  # ships one manual pick, one exclusion
+    assert main(["summary", str(example)]) == 0
+    out = capsys.readouterr().out
+    assert "BH03-D2 (BH03 dense), sigma'n 100 kPa" in out and "peak (manual): x 2.05 mm" in out and "[suggested x " in out
+    assert "BH03-L2 (BH03 loose), sigma'n 100 kPa - EXCLUDED: Laboratory remark" in out
+    assert "Caution:" in out

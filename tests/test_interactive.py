@@ -1,0 +1,199 @@
+"""The live workbook without a browser: widget values set and Bokeh changes delivered as jupyter_bokeh does.
+
+jupyter_bokeh applies a change from the page to the Python document and then calls the callbacks
+again (so each fires twice), and the page echoes back every change Python makes. Each case below
+checks the interpretation file on disk and the results, and that repeating a change writes nothing.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from bokeh.core.serialization import Serializer
+
+from kernels_helpers import interpret
+from kernels_helpers.views.widgets import LiveWorkbook, live_workbook
+
+STAGE, OTHER = "BH03-D3", "BH03-L3"  # the example file leaves both as suggested and included
+
+
+@pytest.fixture
+def wb(example_copy: Path) -> LiveWorkbook:
+    return live_workbook(example_copy, author="T. Tester")
+
+
+def _file(wb: LiveWorkbook) -> dict:
+    return json.loads(wb.controller.path.read_text(encoding="utf-8"))
+
+
+def _from_page(wb: LiveWorkbook, source, data: dict[str, list[float]]) -> None:
+    """Deliver a change of ``source.data`` exactly as jupyter_bokeh receives it from the page."""
+    bokeh_model = next(p for p in wb.panels.values() if source in (p.plots.peak, p.plots.window)).widget.children[0]
+    content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": source.id}, "attr": "data",
+               "new": Serializer().encode(data)}
+    bokeh_model._sync_model(bokeh_model, content, [])
+
+
+def _matches_interpret(wb: LiveWorkbook) -> None:
+    """The live results are what interpret() gives on the file as saved (one source of truth)."""
+    assert wb.controller.results.to_json() == interpret(wb.controller.project, wb.controller.path).to_json()
+
+
+def test_opening_restores_every_decision_and_writes_nothing(example_copy: Path) -> None:
+    before = (example_copy / "interpretation.json").read_bytes()
+    wb = live_workbook(example_copy)
+    assert (example_copy / "interpretation.json").read_bytes() == before
+    d2 = wb.controller.stage("BH03-D2")
+    assert d2.peak_source == "manual" and wb.panels["BH03-D2"].plots.peak.data["x"] == [d2.peak.x_mm]
+    assert wb.panels["BH03-D2"].peak_x.value == round(d2.peak.x_mm, 3)
+    assert wb.stage_table.rows["BH03-L2"]["include"].value is False
+    assert wb.stage_table.rows["BH03-L2"]["reason"].value == wb.controller.stage("BH03-L2").exclusion_reason
+    assert wb.controller.results.to_json() == interpret(example_copy).to_json()
+
+
+def test_edits_without_an_author_are_refused_visibly(example_copy: Path) -> None:
+    wb = live_workbook(example_copy)
+    before = wb.controller.path.read_bytes()
+    panel = wb.panels[STAGE]
+    drawn = dict(panel.plots.peak.data)
+    _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})
+    assert wb.controller.path.read_bytes() == before
+    assert "author" in wb.status.value
+    assert dict(panel.plots.peak.data) == drawn  # the marker went back onto the current peak
+
+
+def test_peak_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
+    panel = wb.panels[STAGE]
+    _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})  # jupyter_bokeh calls the callback twice
+    saved = _file(wb)["stages"][STAGE]["peak"]
+    s = wb.controller.stage(STAGE)
+    assert saved["source"] == "manual" and saved["author"] == "T. Tester" and saved["time_utc"].endswith("Z")
+    assert saved["x_mm"] == s.peak.x_mm and abs(s.peak.x_mm - 4.0) < 0.01  # snapped to a reading
+    assert dict(panel.plots.peak.data) == {"x": [s.peak.x_mm], "y": [s.peak.tau_kpa]}  # on the curve
+    assert panel.peak_x.value == round(s.peak.x_mm, 3)
+    assert len(wb.controller.history) == 1
+    text = wb.controller.path.read_text(encoding="utf-8")
+    _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})  # the same drop again
+    _from_page(wb, panel.plots.peak, dict(panel.plots.peak.data))  # the page echoing our snapped marker
+    assert wb.controller.path.read_text(encoding="utf-8") == text and len(wb.controller.history) == 1
+    assert set(_file(wb)["raw_files"]) == {f"readings/{sid}.csv" for sid in wb.controller.stage_ids}
+    _matches_interpret(wb)
+
+
+def test_window_drag_and_a_refused_window(wb: LiveWorkbook) -> None:
+    panel = wb.panels[STAGE]
+    _from_page(wb, panel.plots.window, {"x": [10.5, 8.0], "y": [150.0, 150.0]})  # ends may cross over
+    cs = _file(wb)["stages"][STAGE]["critical_state"]
+    assert cs["source"] == "manual" and abs(cs["x_from_mm"] - 8.0) < 0.01 and abs(cs["x_to_mm"] - 10.5) < 0.01
+    s = wb.controller.stage(STAGE)
+    assert wb.panels[STAGE].plots.boxes[0].left == s.cs.x_from_mm and panel.cs_to.value == round(s.cs.x_to_mm, 3)
+    text = wb.controller.path.read_text(encoding="utf-8")
+    _from_page(wb, panel.plots.window, {"x": [9.0, 9.001], "y": [150.0, 150.0]})  # too few readings
+    assert wb.controller.path.read_text(encoding="utf-8") == text
+    assert "readings" in wb.status.value and "refused" in wb.status.value
+    assert panel.plots.window.data["x"] == [s.cs.x_from_mm, s.cs.x_to_mm]
+    _matches_interpret(wb)
+
+
+def test_number_twins_and_back_to_suggestion(wb: LiveWorkbook) -> None:
+    panel = wb.panels[STAGE]
+    panel.peak_x.value = 5.0
+    assert abs(_file(wb)["stages"][STAGE]["peak"]["x_mm"] - 5.0) < 0.01
+    panel.cs_from.value = 7.0
+    assert abs(_file(wb)["stages"][STAGE]["critical_state"]["x_from_mm"] - 7.0) < 0.01
+    assert len(wb.controller.history) == 2  # writing the snapped values back did not count as edits
+    panel.peak_reset.click()
+    panel.peak_reset.click()  # twice: nothing more to do
+    assert _file(wb)["stages"][STAGE]["peak"]["source"] == "suggested"
+    assert len(wb.controller.history) == 3
+    assert panel.plots.peak.data["x"] == [wb.controller.stage(STAGE).peak_suggested.x_mm]
+    panel.cs_reset.click()
+    assert _file(wb)["stages"][STAGE]["critical_state"]["source"] == "suggested"
+    _matches_interpret(wb)
+
+
+def test_exclusion_needs_a_reason_and_greys_the_point(wb: LiveWorkbook) -> None:
+    row = wb.stage_table.rows[OTHER]
+    before = wb.controller.path.read_bytes()
+    row["include"].value = False
+    assert wb.controller.path.read_bytes() == before
+    assert row["include"].value is True  # refused: the checkbox says what the file says
+    assert "reason" in wb.stage_table.message.value
+    row["reason"].value = "specimen disturbed on trimming"
+    assert wb.controller.path.read_bytes() == before  # a reason alone changes nothing while included
+    row["include"].value = False
+    d = _file(wb)["stages"][OTHER]
+    assert d["included"] is False and d["exclusion_reason"] == "specimen disturbed on trimming" and d["author"] == "T. Tester"
+    loose = wb.controller.results.envelope("BH03 loose", "critical_state")
+    assert OTHER not in loose.stage_ids
+    plot = next(e for e in wb.envelope_plots if e.group == "BH03 loose")
+    assert OTHER in plot.sources["critical_state"]["out"].data["stage"]
+    assert OTHER not in plot.sources["critical_state"]["in"].data["stage"]
+    row["reason"].value = "specimen disturbed"  # a new reason for an excluded stage is saved
+    assert _file(wb)["stages"][OTHER]["exclusion_reason"] == "specimen disturbed"
+    row["include"].value = True
+    assert _file(wb)["stages"][OTHER]["included"] is True
+    row["note"].value = "checked the trimming log"
+    assert _file(wb)["stages"][OTHER]["note"] == "checked the trimming log"
+    _matches_interpret(wb)
+
+
+def test_cohesion_toggle_parameters_and_summary(wb: LiveWorkbook) -> None:
+    assert "sb-phi" in wb.parameters.value and "Caution" in wb.parameters.value
+    wb.cohesion.value = True
+    assert _file(wb)["settings"]["fit"]["cohesion"] == "zero"
+    assert all(e.reported == "zero" for e in wb.controller.results.envelopes if e.chosen)
+    assert "0 (fixed)" in wb.parameters.value
+    fit = wb.controller.results.envelope("BH03 dense", "critical_state").chosen
+    assert f'data-kind="critical_state">{fit.phi_deg:.1f}<' in wb.parameters.value
+    assert "Sign-off:</b> draft" in wb.summary.value and "Open flags" in wb.summary.value
+    wb.curved.value = True  # display only: nothing saved
+    plot = next(e for e in wb.envelope_plots if e.group == "BH03 dense")
+    assert len(plot.sources["peak"]["curve"].data["x"]) == 40
+    assert len(wb.controller.history) == 1
+    _matches_interpret(wb)
+
+
+def test_undo_goes_back_one_change_at_a_time(wb: LiveWorkbook) -> None:
+    original = wb.controller.interpretation
+    wb.panels[STAGE].peak_x.value = 5.0
+    wb.stage_table.rows[OTHER]["reason"].value = "bad data"
+    wb.stage_table.rows[OTHER]["include"].value = False
+    wb.undo.click()
+    f = _file(wb)
+    assert f["stages"].get(OTHER, {}).get("included", True) is True and f["stages"][STAGE]["peak"]["source"] == "manual"
+    assert wb.stage_table.rows[OTHER]["include"].value is True
+    wb.undo.click()
+    assert wb.controller.interpretation.decision(STAGE) == original.decision(STAGE)
+    assert _file(wb)["stages"].get(STAGE, {}).get("peak", {}).get("source", "suggested") == "suggested"
+    wb.undo.click()  # nothing left: refused, visibly
+    assert "nothing to undo" in wb.status.value
+    _matches_interpret(wb)
+
+
+def test_reopening_finds_the_decisions(example_copy: Path) -> None:
+    wb = live_workbook(example_copy, author="T. Tester")
+    wb.panels[STAGE].peak_x.value = 4.5
+    wb.stage_table.rows[OTHER]["reason"].value = "bad data"
+    wb.stage_table.rows[OTHER]["include"].value = False
+    again = live_workbook(example_copy)
+    assert again.controller.interpretation == wb.controller.interpretation
+    assert again.panels[STAGE].plots.peak.data == wb.panels[STAGE].plots.peak.data
+    assert again.stage_table.rows[OTHER]["include"].value is False
+
+
+@pytest.mark.notebook
+def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) -> None:
+    from kernels_helpers.record import LIVE_TAG, execute_workbook, export_html
+
+    before = (example_copy / "interpretation.json").read_bytes()
+    nb = execute_workbook(example_copy)
+    live = [c for c in nb.cells if LIVE_TAG in c.metadata.get("tags", [])]
+    assert live and all(o.get("output_type") != "error" for c in live for o in c.get("outputs", []))
+    assert any("application/vnd.jupyter.widget-view+json" in o.get("data", {}) for c in live for o in c.get("outputs", []))
+    html_text = export_html(nb, "audit")
+    assert "live_workbook" not in html_text and "live-envelope" not in html_text and "widget-state" not in html_text
+    assert '"name":"envelope-BH03 dense"' in html_text  # the static record is still there
+    assert (example_copy / "interpretation.json").read_bytes() == before  # opening the live screen writes nothing

@@ -1,0 +1,115 @@
+"""Re-running a record: verify (single and batch), diff from a record, sign-off from the command line."""
+
+from __future__ import annotations
+
+import csv
+import json
+import re
+import shutil
+from pathlib import Path
+
+import pytest
+
+from kernels_helpers.cli import main
+from kernels_helpers.interpretation import load_interpretation
+from kernels_helpers.record import write_record
+from kernels_helpers.verify import REL_TOL, verify_record
+
+pytestmark = pytest.mark.notebook
+EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"
+
+
+@pytest.fixture(scope="module")
+def recorded(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """A project copy with one record in records/ (made once: executing the workbook takes seconds)."""
+    root = tmp_path_factory.mktemp("verify") / "project"
+    shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+    write_record(root, root / "records" / "r1.html")
+    return root
+
+
+def _copy(recorded: Path, tmp_path: Path) -> Path:
+    dst = tmp_path / "project"
+    shutil.copytree(recorded, dst)
+    return dst
+
+
+def _edit_results(record: Path, change) -> None:
+    text = record.read_text(encoding="utf-8")
+    m = re.search(r'(<script type="application/json" id="shearbook-results">)(.*?)(</script>)', text, re.S)
+    data = json.loads(m.group(2))
+    change(data)
+    body = json.dumps(data).replace("<", "\\u003c")
+    record.write_text(text[: m.start(2)] + body + text[m.end(2) :], encoding="utf-8")
+
+
+def test_unchanged_project_matches_bit_for_bit(recorded: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    v = verify_record(recorded / "records" / "r1.html", recorded)
+    assert v.ok and v.exact and v.compared > 1000
+    assert main(["verify", str(recorded / "records" / "r1.html")]) == 0  # project found above the record
+    assert "MATCH" in capsys.readouterr().out
+
+
+def test_changed_raw_file_is_named_and_fails(recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    root = _copy(recorded, tmp_path)
+    raw = root / "readings" / "BH03-D3.csv"
+    lines = raw.read_text(encoding="utf-8").split("\n")
+    cols = lines[2000].split(",")
+    cols[-1] = f"{float(cols[-1]) * 1.2:.5f}"  # one shear load reading changed
+    lines[2000] = ",".join(cols)
+    raw.write_text("\n".join(lines), encoding="utf-8")
+    assert main(["verify", str(root / "records" / "r1.html")]) == 1
+    out = capsys.readouterr().out
+    assert "MISMATCH" in out and "raw file changed: readings/BH03-D3.csv (SHA-256 was " in out
+
+
+def test_across_versions_numbers_compare_within_the_stated_tolerance(recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+
+    def older_and_nudged(data: dict, rel: float) -> None:
+        data["provenance"]["versions"]["numpy"] = "0.0-older"
+        env = data["envelopes"][0]["free"]
+        env["phi_deg"] *= 1 + rel
+
+    _edit_results(rec, lambda d: older_and_nudged(d, REL_TOL / 10))
+    v = verify_record(rec, root)
+    assert not v.exact and v.ok, v.to_text()
+    _edit_results(rec, lambda d: older_and_nudged(d, REL_TOL * 100))
+    v = verify_record(rec, root)
+    assert not v.ok and any(m.startswith("envelopes[0].free.phi_deg: ") for m in v.mismatches)
+
+
+def test_batch_verifies_every_record_and_writes_a_summary(recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    good = root / "records" / "r1.html"
+    bad = root / "records" / "sub" / "r2.html"
+    bad.parent.mkdir()
+    shutil.copy(good, bad)
+    _edit_results(bad, lambda d: d["stages"][0]["critical_state"]["chosen"].update(tau_kpa=1.0))
+    summary = tmp_path / "summary.csv"
+    assert main(["verify", str(root / "records"), "--jobs", "2", "--summary", str(summary)]) == 1
+    rows = {Path(r["record"]).name: r for r in csv.DictReader(summary.open(encoding="utf-8"))}
+    assert rows["r1.html"]["status"] == "match" and rows["r2.html"]["status"] == "mismatch"
+    assert rows["r2.html"]["values_moved"] == "1"
+
+
+def test_diff_from_a_record_shows_what_the_checker_changed(recorded: Path, tmp_path: Path,
+                                                           capsys: pytest.CaptureFixture[str]) -> None:
+    root = _copy(recorded, tmp_path)
+    interp = load_interpretation(root / "interpretation.json")
+    changed = interp.restored("BH03-L2", "C. Checker")
+    from kernels_helpers import save_interpretation
+
+    save_interpretation(changed, tmp_path / "checked.json")
+    assert main(["diff", str(root), str(root / "records" / "r1.html"), str(tmp_path / "checked.json")]) == 0
+    assert "BH03-L2: restored to the envelopes" in capsys.readouterr().out
+
+
+def test_signoff_command(recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    root = _copy(recorded, tmp_path)
+    assert main(["signoff", str(root), "--state", "approved", "--who", "A. Approver"]) == 2
+    assert "cannot go from draft to approved" in capsys.readouterr().err
+    assert main(["signoff", str(root), "--state", "checked", "--who", "C. Checker", "--note", "picks reviewed"]) == 0
+    interp = load_interpretation(root / "interpretation.json")
+    assert interp.signoff.state == "checked" and interp.signoff.history[-1]["note"] == "picks reviewed"

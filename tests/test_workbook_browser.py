@@ -1,0 +1,177 @@
+"""The live workbook in a real browser: JupyterLab started here, Debian chromium driven by Playwright.
+
+Opens the project's workbook on a copy of the example project, runs all cells, drags a peak marker,
+excludes a stage with a reason in the table, and checks the interpretation file on disk and the
+phi' shown in the page against ``interpret`` on that file.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+from collections.abc import Callable, Iterator
+from pathlib import Path
+
+import pytest
+
+from kernels_helpers import interpret
+from kernels_helpers.cli import workbook_in_project
+
+pytestmark = pytest.mark.browser
+
+STAGE, EXCLUDED, REASON = "BH03-D3", "BH03-L3", "specimen disturbed on trimming (browser test)"
+SETTINGS = {  # no news prompt over the page; every cell kept in the page (no windowed notebook)
+    "@jupyterlab/apputils-extension/notification.jupyterlab-settings": {"fetchNews": "false"},
+    "@jupyterlab/notebook-extension/tracker.jupyterlab-settings": {"windowingMode": "none"},
+}
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _wait(check: Callable[[], object], timeout_s: float, what: str) -> object:
+    end = time.monotonic() + timeout_s
+    while time.monotonic() < end:
+        value = check()
+        if value:
+            return value
+        time.sleep(0.2)
+    raise AssertionError(f"timed out after {timeout_s} s waiting for {what}")
+
+
+@contextlib.contextmanager
+def running_lab(project: Path, scratch: Path) -> Iterator[str]:
+    """JupyterLab on 127.0.0.1 with fresh configuration dirs; yields the project workbook's URL; stops it by PID."""
+    env = {**os.environ, "JUPYTER_CONFIG_DIR": str(scratch / "config"), "JUPYTER_RUNTIME_DIR": str(scratch / "runtime"),
+           "JUPYTERLAB_SETTINGS_DIR": str(scratch / "settings"), "JUPYTERLAB_WORKSPACES_DIR": str(scratch / "workspaces")}
+    for rel, value in SETTINGS.items():
+        path = scratch / "settings" / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(json.dumps(value), encoding="utf-8")
+    notebook = workbook_in_project(project)
+    port = _free_port()
+    log_path = scratch / "lab.log"
+    with log_path.open("w") as log:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "jupyterlab", "--no-browser", "--ServerApp.token=", "--ServerApp.password=",
+             "--ServerApp.ip=127.0.0.1", f"--port={port}", "--ServerApp.port_retries=0",
+             f"--ServerApp.root_dir={project}", "--LabApp.expose_app_in_browser=True", "--ServerApp.allow_root=True"],
+            env=env, stdout=log, stderr=subprocess.STDOUT, cwd=project)
+        try:
+            def ready() -> bool:
+                if proc.poll() is not None:
+                    raise AssertionError(f"JupyterLab exited: {log_path.read_text(encoding='utf-8')}")
+                try:
+                    with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/status", timeout=2) as r:
+                        return r.status == 200
+                except OSError:
+                    return False
+            _wait(ready, 60, "JupyterLab to answer")
+            yield f"http://127.0.0.1:{port}/lab/tree/{notebook.name}"
+        finally:
+            proc.terminate()
+            try:
+                proc.wait(timeout=15)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait()
+
+
+@pytest.fixture
+def lab(tmp_path: Path, example_copy: Path) -> Iterator[str]:
+    with running_lab(example_copy, tmp_path / "jupyter") as url:
+        yield url
+
+
+KERNEL_IDLE = """() => { const w = window.jupyterapp && window.jupyterapp.shell.currentWidget;
+  const k = w && w.sessionContext && w.sessionContext.session && w.sessionContext.session.kernel;
+  return !!k && k.status === 'idle' && !w.sessionContext.isBusy; }"""
+PLOT_BOX = """([name, x, y]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
+  if (!v) return null; v.el.scrollIntoView({block: 'center'});
+  const r = v.canvas_view.el.getBoundingClientRect();
+  return {x: r.x + v.frame.x_scale.compute(x), y: r.y + v.frame.y_scale.compute(y),
+          left: r.x, top: r.y, width: r.width, height: r.height}; }"""
+SHOWN_PHI = """() => Array.from(document.querySelectorAll('.sb-parameters .sb-phi')).map(
+  e => [e.dataset.group, e.dataset.kind, e.textContent])"""
+
+
+def _file(project: Path) -> dict:
+    path = project / "interpretation.json"
+    return json.loads(path.read_text(encoding="utf-8")) if path.exists() else {}
+
+
+def _shown_matches_file(page, project: Path) -> list[tuple[str, str, str]] | None:
+    expected = sorted((e.group, e.kind, f"{e.chosen.phi_deg:.1f}") for e in interpret(project).envelopes if e.chosen)
+    shown = sorted(tuple(x) for x in page.evaluate(SHOWN_PHI))
+    return expected if shown == expected else None
+
+
+def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, example_copy: Path, artifacts: Path) -> None:
+    page = browser.new_page()
+    errors: list[str] = []
+    page.on("pageerror", lambda e: errors.append(str(e)))
+    try:
+        page.goto(lab)
+        page.wait_for_function(KERNEL_IDLE, timeout=90_000)
+        page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
+        name = f"live-{STAGE}-tau"
+        page.wait_for_function(f"() => window.Bokeh && Bokeh.index.query_one(v => v.model.name === '{name}')",
+                               timeout=90_000)
+        page.wait_for_function(KERNEL_IDLE, timeout=90_000)
+        page.wait_for_timeout(500)
+        page.locator(".sb-author").scroll_into_view_if_needed()
+        page.screenshot(path=str(artifacts / "workbook-after-run.png"))
+
+        page.locator(".sb-author input").fill("B. Browser")
+        page.locator(".sb-author input").press("Tab")
+        before = interpret(example_copy).stage(STAGE)
+        x_new = before.peak.x_mm + 1.5
+        start = page.evaluate(PLOT_BOX, [name, before.peak.x_mm, before.peak.tau_kpa])
+        end = page.evaluate(PLOT_BOX, [name, x_new, before.peak.tau_kpa])
+        page.mouse.move(start["x"], start["y"])
+        page.mouse.down()
+        page.mouse.move(end["x"], end["y"], steps=10)
+        page.mouse.up()
+        saved = _wait(lambda: _file(example_copy).get("stages", {}).get(STAGE, {}).get("peak", {}).get("author")
+                      == "B. Browser" and _file(example_copy), 20, "the dragged peak in the interpretation file")
+        peak = saved["stages"][STAGE]["peak"]
+        assert peak["source"] == "manual" and peak["time_utc"].endswith("Z")
+        assert abs(peak["x_mm"] - x_new) < 0.1, peak  # snapped to a reading near where it was dropped
+        assert saved["raw_files"], "the raw-file hashes are saved with the decisions"
+        panel = page.evaluate(PLOT_BOX, [name, 0, 0])
+        page.screenshot(path=str(artifacts / "workbook-after-drag.png"),
+                        clip={"x": max(panel["left"] - 10, 0), "y": max(panel["top"] - 40, 0), "width": 1100, "height": 520})
+
+        row = page.locator(f".sb-reason-{EXCLUDED} input")
+        row.scroll_into_view_if_needed()
+        row.fill(REASON)
+        row.press("Enter")
+        page.locator(f".sb-include-{EXCLUDED} input[type=checkbox]").click()
+        saved = _wait(lambda: _file(example_copy).get("stages", {}).get(EXCLUDED, {}).get("included") is False
+                      and _file(example_copy), 20, "the exclusion in the interpretation file")
+        assert saved["stages"][EXCLUDED]["exclusion_reason"] == REASON
+        assert saved["stages"][STAGE]["peak"]["source"] == "manual"  # the drag is still there
+        page.wait_for_timeout(300)
+        page.screenshot(path=str(artifacts / "workbook-table.png"))
+
+        expected = _wait(lambda: _shown_matches_file(page, example_copy), 20, "the page's phi' to match interpret()")
+        results = interpret(example_copy)
+        assert EXCLUDED not in results.envelope("BH03 loose", "critical_state").stage_ids
+        assert any(kind == "peak" for _, kind, _ in expected)
+        page.locator(".sb-parameters").scroll_into_view_if_needed()
+        page.wait_for_timeout(300)
+        page.screenshot(path=str(artifacts / "workbook-after-exclude.png"))
+        page.locator(".sb-summary").scroll_into_view_if_needed()
+        page.screenshot(path=str(artifacts / "workbook-summary.png"))
+        assert [e for e in errors if "Bokeh" in e or "widget" in e.lower()] == []
+    finally:
+        page.close()
