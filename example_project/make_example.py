@@ -47,6 +47,7 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 SEED = 20240311
 SIDE_MM, HEIGHT_MM, GS = 60.0, 20.0, 2.65
+E_MAX, E_MIN = 0.86, 0.53  # invented limiting void ratios of the example sand (for I_D)
 AREA0_MM2 = SIDE_MM**2
 PHI_CS_DEG = 32.5
 RATE_MM_MIN, TRAVEL_MM, LOG_S = 0.1, 12.0, 2.0
@@ -79,6 +80,11 @@ class Stage:
     def dry_mass_g(self) -> float:
         """Dry mass giving e0_target, rounded to 0.1 g as a balance would give it."""
         return round(GS * AREA0_MM2 * HEIGHT_MM / (1.0 + self.e0_target) / 1000.0, 1)
+
+    @property
+    def relative_density(self) -> float:
+        """I_D = (e_max - e0)/(e_max - e_min) with the invented limits E_MAX, E_MIN of this sand."""
+        return (E_MAX - self.e0) / (E_MAX - E_MIN)
 
     @property
     def e0(self) -> float:
@@ -305,6 +311,7 @@ description = "{kind} sand, sigma'n {s.sigma_kpa:.0f} kPa, BH03 {s.depth} m"
 [stage.specimen]
 dry_mass_g = {s.dry_mass_g:.1f}
 consolidation_settlement_mm = {s.settlement_mm:.3f}
+relative_density = {s.relative_density:.2f}
 [stage.normal_load]
 {load}
 [stage.sample]
