@@ -33,6 +33,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
+from .atomic import write_text_atomic
 from .errors import ImportFolderError, ShearbookError
 from .project import PROJECT_FILE, SCHEMA, load_project
 from .readings import read_consolidation, read_stage
@@ -229,12 +230,7 @@ def _stage_toml(folder: Path, table: Path, row: _Row, options: ImportOptions,
 
 
 def _write_atomic(path: Path, text: str) -> None:
-    tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
-        fh.write(text)
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
+    write_text_atomic(path, text)
 
 
 def _copy_exact(src: Path, dst: Path) -> None:

@@ -11,8 +11,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import os
-import tempfile
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -20,6 +18,7 @@ from pathlib import Path
 from typing import Any, Final, Literal
 
 from .design import PARTIAL_FACTOR_SETS
+from .atomic import write_text_atomic
 from .errors import InterpretationFileError
 from .picks import PickSettings
 from .reduce import ReductionSettings
@@ -328,14 +327,5 @@ def save_interpretation(interpretation: Interpretation, path: str | Path) -> Pat
     p = Path(path)
     if p.exists():
         load_interpretation(p)  # never overwrite a file we cannot read (corrupt or newer schema)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(interpretation.to_json())
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, p)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    write_text_atomic(p, interpretation.to_json())
     return p

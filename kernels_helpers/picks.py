@@ -95,17 +95,14 @@ class WindowValues:
         return self.tau_kpa / self.sigma_kpa
 
 
-def _shear_rows(curve: pd.DataFrame) -> pd.DataFrame:
-    """Readings a pick may use: shearing (after the seating slack), first pass, not flagged as spikes."""
-    keep = curve["in_shear"].to_numpy() & (curve["pass_no"].to_numpy() == 1)
-    if "spike" in curve:
-        keep &= ~curve["spike"].to_numpy(dtype=bool)
-    return curve[keep]
+def _shear_rows(reduced: ReducedStage) -> pd.DataFrame:
+    """Readings a pick may use (see :attr:`ReducedStage.pick_rows`)."""
+    return reduced.pick_rows
 
 
 def at_point(reduced: ReducedStage, x_mm: float) -> PointValues:
     """Values at the shearing reading nearest to ``x_mm`` (a pick snaps to the readings)."""
-    rows = _shear_rows(reduced.curve)
+    rows = _shear_rows(reduced)
     i = int(np.argmin(np.abs(rows["x_mm"].to_numpy() - x_mm)))
     r = rows.iloc[i]
     return PointValues(
@@ -122,7 +119,7 @@ def at_point(reduced: ReducedStage, x_mm: float) -> PointValues:
 def over_window(reduced: ReducedStage, x_from_mm: float, x_to_mm: float, settings: PickSettings) -> WindowValues:
     """Means of the shearing readings with ``x_from_mm <= x <= x_to_mm``, and the steadiness flags."""
     lo, hi = sorted((x_from_mm, x_to_mm))
-    rows = _shear_rows(reduced.curve)
+    rows = _shear_rows(reduced)
     x = rows["x_mm"].to_numpy()
     sel = rows[(x >= lo) & (x <= hi)]
     if len(sel) < 5:
@@ -165,14 +162,14 @@ def over_window(reduced: ReducedStage, x_from_mm: float, x_to_mm: float, setting
 
 def suggest_critical_state(reduced: ReducedStage, settings: PickSettings) -> tuple[float, float]:
     """Suggested critical-state window: the last ``cs_window_mm`` of travel, as (from, to) in mm."""
-    x = _shear_rows(reduced.curve)["x_mm"].to_numpy()
+    x = _shear_rows(reduced)["x_mm"].to_numpy()
     x_end = float(np.max(x))
     return max(float(np.min(x)), x_end - settings.cs_window_mm), x_end
 
 
 def suggest_peak(reduced: ReducedStage, cs: WindowValues, settings: PickSettings) -> tuple[float, str | None]:
     """Suggested peak position (mm) and, when there is no distinct peak, the reason in words."""
-    rows = _shear_rows(reduced.curve)
+    rows = _shear_rows(reduced)
     smooth = rows["tau_smooth_kpa"].to_numpy()
     score = smooth if settings.peak_rule == "tau" else smooth / rows["sigma_kpa"].to_numpy()
     i = int(np.nanargmax(score))
@@ -198,7 +195,7 @@ def peak_flags(reduced: ReducedStage, peak: PointValues, settings: PickSettings)
       smoothed curve by more than ``stick_slip_fraction`` of the peak (95th percentile of the
       deviation), or when the raw maximum lies more than 0.5 mm from the smoothed one.
     """
-    rows = _shear_rows(reduced.curve)
+    rows = _shear_rows(reduced)
     x = rows["x_mm"].to_numpy()
     flags = []
     rate = rows["dydx"].to_numpy()

@@ -10,9 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 import re
-import tempfile
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from html.parser import HTMLParser
@@ -25,6 +23,7 @@ from nbclient.exceptions import CellExecutionError
 from nbconvert import HTMLExporter
 from nbconvert.preprocessors import TagRemovePreprocessor
 
+from .atomic import write_text_atomic
 from .errors import RecordError
 from .interpretation import INTERPRETATION_FILE, load_interpretation
 from .project import load_project
@@ -139,15 +138,7 @@ def _embed(html_text: str, blocks: dict[str, str]) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    write_text_atomic(path, text)
 
 
 @dataclass(frozen=True)

@@ -8,6 +8,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
+from functools import cached_property
+
 import numpy as np
 import pandas as pd
 from scipy.signal import savgol_filter
@@ -166,6 +168,18 @@ class ReducedStage:
     normal_force_n: float
     area0_mm2: float
     area_convention: AreaConvention
+
+    @cached_property
+    def pick_rows(self) -> pd.DataFrame:
+        """Readings a pick may use: shearing (after the seating slack), first pass, not flagged as spikes.
+
+        Selected once per reduced stage (picks evaluate it many times, the live refit on every drag).
+        """
+        c = self.curve
+        keep = c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == 1)
+        if "spike" in c:
+            keep &= ~c["spike"].to_numpy(dtype=bool)
+        return c[keep]
 
 
 def stresses_kpa(reduced: ReducedStage, specimen: Specimen, convention: AreaConvention) -> tuple[np.ndarray, np.ndarray]:

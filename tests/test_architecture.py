@@ -29,6 +29,7 @@ PURE_MODULES = [
     "diff",
     "passes",
     "summary",
+    "atomic",
     "verify",
     "multistage",
     "design",

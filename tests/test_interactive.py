@@ -62,6 +62,11 @@ def test_edits_without_an_author_are_refused_visibly(example_copy: Path) -> None
     assert wb.controller.path.read_bytes() == before
     assert "author" in wb.status.value
     assert dict(panel.plots.peak.data) == drawn  # the marker went back onto the current peak
+    wb.cohesion.value = True
+    assert wb.controller.path.read_bytes() == before and wb.cohesion.value is False
+    wb.stage_table.rows[OTHER]["note"].value = "a note"
+    assert wb.controller.path.read_bytes() == before and wb.stage_table.rows[OTHER]["note"].value == ""
+    assert "author" in wb.stage_table.message.value
 
 
 def test_peak_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:

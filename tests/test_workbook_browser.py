@@ -162,6 +162,8 @@ def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, exam
         assert saved["stages"][STAGE]["peak"]["source"] == "manual"  # the drag is still there
         page.wait_for_timeout(300)
         page.screenshot(path=str(artifacts / "workbook-table.png"))
+        page.locator(".sb-include-BH03-D1").scroll_into_view_if_needed()
+        page.screenshot(path=str(artifacts / "workbook-table-top.png"))
 
         expected = _wait(lambda: _shown_matches_file(page, example_copy), 20, "the page's phi' to match interpret()")
         results = interpret(example_copy)

@@ -54,7 +54,8 @@ def stage_figure(s: StageResult):
     x = shear["x_mm"].to_numpy()
     keep = decimate(x, [shear["tau_kpa"].to_numpy(), shear["y_mm"].to_numpy()])
     d = shear.iloc[keep]
-    src = ColumnDataSource({k: d[k].to_numpy() for k in ("x_mm", "tau_kpa", "y_mm", "e", "dydx", "ratio")})
+    # float32 is ample for drawing (7 digits) and halves the record; the computation keeps float64
+    src = ColumnDataSource({k: d[k].to_numpy(dtype=np.float32) for k in ("x_mm", "tau_kpa", "y_mm", "e", "dydx", "ratio")})
     label = f"{s.stage_id}: sigma'n {s.sigma_nominal_kpa:.0f} kPa" + ("" if s.included else " (excluded)")
     colour = INK if s.included else GREY
     tau = _panel(f"{label} - shear stress", "shear stress tau (kPa)", f"stage-{s.stage_id}-tau")
@@ -116,7 +117,7 @@ def envelope_figure(results: Results, group: str):
         fit = env.chosen
         if fit is not None:
             xs, ys = _line_points(fit, sigma_max)
-            c_txt = "0" if fit.through_origin else f"{fit.intercept:.1f}"
+            c_txt = "0" if fit.through_origin else f"{fit.intercept + 0.0:.1f}".replace("-0.0", "0.0")
             line = p.line(xs, ys, color=colour, line_width=2)
             items.insert(0, (f"{name}: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg", [r, line]))
         else:

@@ -25,7 +25,7 @@ __all__ = ["EnvelopePlot", "StagePlots", "marker_data", "window_data"]
 
 TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
 CURVES = (("tau_kpa", "shear stress tau (kPa)", "shear stress"),
-          ("y_mm", "vertical displacement (mm, dilation +)", "vertical displacement"),
+          ("y_mm", "vertical displacement y (mm)", "vertical displacement (dilation +)"),
           ("ratio", "stress ratio tau/sigma' (-)", "stress ratio"),
           ("dydx", "rate of dilation dy/dx (-)", "rate of dilation"))
 Callback = Callable[[str, Any, Any], None]
@@ -102,7 +102,7 @@ class StagePlots:
         r = p.line("x_mm", key, source=self.curve, color=INK, line_width=1.3)
         p.add_tools(HoverTool(renderers=[r], mode="vline", tooltips=[
             ("x", "@x_mm{0.000} mm"), ("tau", "@tau_kpa{0.0} kPa"), ("y", "@y_mm{+0.000} mm"),
-            ("tau/sigma'", "@ratio{0.000}"), ("dy/dx", "@dydx{+0.0000}")]))
+            ("tau/sigma'", "@ratio{0.000}"), ("dy/dx", "@dydx{+0.0000}"), ("e", "@e{0.0000}")]))
         return p
 
     def update(self, s: StageResult) -> None:

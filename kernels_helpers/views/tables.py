@@ -47,7 +47,8 @@ def esc(value: Any) -> str:
 def num(value: float | None, digits: int = 1) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "&ndash;"
-    return f"{value:.{digits}f}"
+    text = f"{value:.{digits}f}"
+    return text[1:] if text.startswith("-") and float(text) == 0 else text  # never "-0.0"
 
 
 def table(headers: Sequence[str], rows: Iterable[Sequence[str]], css: str = "sb-table") -> str:
@@ -59,8 +60,8 @@ def table(headers: Sequence[str], rows: Iterable[Sequence[str]], css: str = "sb-
 
 STYLE = """<style>
 .sb-table {border-collapse: collapse; font-size: 12px; margin: 4px 0 12px 0;}
-.sb-table th {background: #e9eef2; text-align: left; padding: 3px 8px; border-bottom: 1px solid #9aa7b1;}
-.sb-table td {padding: 2px 8px; border-bottom: 1px solid #dde3e8; vertical-align: top;}
+.sb-table th {background: #e9eef2; text-align: left !important; padding: 3px 8px; border-bottom: 1px solid #9aa7b1;}
+.sb-table td {padding: 2px 8px; border-bottom: 1px solid #dde3e8; vertical-align: top; text-align: left !important;}
 .sb-table td.sb-mono {font-family: monospace; font-size: 11px;}
 .sb-excluded td {color: #8a8f94;}
 .sb-caution {border-left: 4px solid #b5651d; background: #fbf3ea; padding: 6px 10px; font-size: 13px;}
@@ -116,7 +117,7 @@ def specimen_table(results: Results, project: Project) -> str:
 def _pick_cells(s: StageResult) -> list[str]:
     p, ps = s.peak, s.peak_suggested
     if s.no_distinct_peak and s.peak_source == "suggested":
-        peak = [esc(s.no_distinct_peak)] + ["&ndash;"] * 3
+        peak = ["no distinct peak (see flags)"] + ["&ndash;"] * 3
     else:
         peak = [num(p.x_mm, 2), num(p.tau_kpa, 1), num(p.sigma_kpa, 1), num(math.degrees(math.atan(p.ratio)), 1)]
     peak_src = esc(s.peak_source) + (f" (suggested at {num(ps.x_mm, 2)} mm, {num(ps.tau_kpa, 1)} kPa)" if s.peak_source == "manual" else "")
@@ -154,7 +155,7 @@ def _fit_row(e: EnvelopeResult, which: str) -> list[str]:
         return [esc(e.group), esc(e.kind.replace("_", " ")), esc(label), str(len(e.stage_ids))] + ["&ndash;"] * 5 + [esc(e.not_fitted or "")]
     lo, hi = fit.phi_interval_deg
     c_lo, c_hi = fit.c_interval_kpa
-    c = "0 (fixed)" if fit.through_origin else f"{fit.intercept:.1f} [{c_lo:.1f}, {c_hi:.1f}]"
+    c = "0 (fixed)" if fit.through_origin else f"{num(fit.intercept, 1)} [{c_lo:.1f}, {c_hi:.1f}]"
     warn = '<span class="sb-flag">negative c\' : consider c\' = 0</span>' if fit.negative_cohesion else ""
     return [
         esc(e.group), esc(e.kind.replace("_", " ")), esc(label + chosen), str(fit.n),

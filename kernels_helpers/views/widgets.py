@@ -30,8 +30,8 @@ PICK_HELP = ("Drag the amber diamond (peak) or the teal squares (ends of the cri
 
 
 def _float_text(description: str, value: float, css: str) -> W.FloatText:
-    w = W.FloatText(value=round(value, 3), step=0.01, description=description, style={"description_width": "110px"},
-                    layout=W.Layout(width="250px"))
+    w = W.FloatText(value=round(value, 3), step=0.01, description=description, style={"description_width": "125px"},
+                    layout=W.Layout(width="265px"))
     w.add_class(css)
     return w
 
@@ -121,8 +121,8 @@ def _same(new: Any, drawn: dict[str, list[float]]) -> bool:
 class StageTable:
     """One row per stage: normal stress, picks, flags, include (a reason is required) and a note."""
 
-    HEAD = ("stage", "sigma'n (kPa)", "peak tau (kPa)", "critical state tau (kPa)", "flags", "included",
-            "reason for excluding", "note")
+    HEAD = ("stage", "sigma'n (kPa)", "peak tau (kPa)", "critical state tau (kPa)", "flags (click to read)",
+            "included", "reason for excluding / note")
 
     def __init__(self, wb: LiveWorkbook) -> None:
         self.wb = wb
@@ -139,11 +139,13 @@ class StageTable:
             r["reason"].observe(lambda ch, sid=sid: self.on_reason(sid, ch["new"]), "value")
             r["note"].observe(lambda ch, sid=sid: self.on_note(sid, ch["new"]), "value")
             self.rows[sid] = r
-            cells += [W.HTML(tables.esc(sid)), r["sigma"], r["peak"], r["cs"], r["flags"], r["include"], r["reason"],
-                      r["note"]]
+            for key in ("reason", "note"):
+                r[key].layout = W.Layout(width="210px")
+            cells += [W.HTML(f"<b>{tables.esc(sid)}</b>"), r["sigma"], r["peak"], r["cs"], r["flags"], r["include"],
+                      W.VBox([r["reason"], r["note"]])]
         self.message = W.HTML()
         self.message.add_class("sb-table-message")
-        columns = "80px 80px 150px 170px minmax(200px, 1fr) 60px 200px 200px"
+        columns = "70px 60px 130px 150px minmax(160px, 1fr) 60px 215px"
         grid = W.GridBox(cells, layout=W.Layout(grid_template_columns=columns,
                                                 grid_gap="2px 8px", align_items="center"))
         self.widget = W.VBox([grid, self.message])
@@ -179,8 +181,10 @@ class StageTable:
                 peak = "no distinct peak" if no_peak else f"{s.peak.tau_kpa:.1f}"
                 r["peak"].value = f"{tables.esc(peak)} at {s.peak.x_mm:.2f} mm ({s.peak_source})"
                 r["cs"].value = f"{s.cs.tau_kpa:.1f} over {s.cs.x_from_mm:.2f}-{s.cs.x_to_mm:.2f} mm ({s.cs_source})"
-                flags = (f'<small class="sb-flag">{tables.esc(f)}</small>' for f in s.flags)
-                r["flags"].value = "<br>".join(flags) or "none"
+                items = "".join(f"<li>{tables.esc(f)}</li>" for f in s.flags)
+                r["flags"].value = (f'<details><summary class="sb-flag">{len(s.flags)} flag(s)</summary>'
+                                    f'<ul style="font-size: 11px; margin: 0; padding-left: 14px">{items}</ul></details>'
+                                    if s.flags else "none")
                 r["include"].value = s.included
                 if not s.included:
                     r["reason"].value = s.exclusion_reason
@@ -199,7 +203,7 @@ class LiveWorkbook:
                              continuous_update=True)
         self.author.add_class("sb-author")
         self.author.observe(self.on_author, "value")
-        self.undo = W.Button(description="undo last change", icon="undo")
+        self.undo = W.Button(description="undo last change", icon="undo", layout=W.Layout(width="180px"))
         self.undo.on_click(lambda _: self.act(lambda c: c.undo()))
         self.status = W.HTML()
         self.status.add_class("sb-status")

@@ -89,18 +89,16 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
     results = interpret(root)
     sid = results.stages[0].stage_id
     group = results.stages[0].test_set
-    watch = """([name]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
-      const sources = v.model.renderers.map(r => r.data_source);
-      const snap = () => sources.map(s => JSON.stringify(Object.values(s.data).map(c => Array.from(c)))).join('|');
-      const before = snap();
-      window.__sb_env = null; window.__sb_up = null;
-      if (!window.__sb_listening) {
-        document.addEventListener('pointerup', () => { window.__sb_up = performance.now(); }, {capture: true});
-        window.__sb_listening = true; }
-      const tick = () => { if (window.__sb_up !== null && snap() !== before) window.__sb_env = performance.now();
-                           else requestAnimationFrame(tick); };
-      requestAnimationFrame(tick);
-      return sources.length; }"""
+    # the envelope's data as text; the time of the last pointer-up in the page
+    snap = """([name]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
+      return v.model.renderers.map(r => JSON.stringify(Object.values(r.data_source.data).map(c => Array.from(c))))
+        .join('|'); }"""
+    listen = """() => document.addEventListener('pointerup', () => { window.__sb_up = performance.now(); }, true)"""
+    changed = """([name, before]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
+      const now = v.model.renderers.map(r => JSON.stringify(Object.values(r.data_source.data).map(c => Array.from(c))))
+        .join('|');
+      if (now === before) return false;
+      window.__sb_env = performance.now(); return true; }"""
     with mod.running_lab(root, scratch) as url, sync_playwright() as pw, tempfile.TemporaryDirectory() as profile:
         ctx = pw.chromium.launch_persistent_context(profile, executable_path="/usr/bin/chromium", headless=True,
                                                     args=CHROMIUM_ARGS, viewport={"width": 1400, "height": 1000})
@@ -112,6 +110,7 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
         page.wait_for_function(f"() => window.Bokeh && Bokeh.index.query_one(v => v.model.name === '{env_name}')",
                                timeout=300_000)
         page.wait_for_function(mod.KERNEL_IDLE, timeout=300_000)
+        page.evaluate(listen)
         page.locator(".sb-author input").fill("benchmark")
         page.locator(".sb-author input").press("Tab")
         name = f"live-{sid}-tau"
@@ -123,14 +122,14 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
             page.wait_for_timeout(1000)
             a = page.evaluate(mod.PLOT_BOX, [name, x, tau])
             b = page.evaluate(mod.PLOT_BOX, [name, x_new, tau])
-            page.evaluate(watch, [env_name])
+            before = page.evaluate(snap, [env_name])
             page.mouse.move(a["x"], a["y"])
             page.wait_for_timeout(200)
             page.mouse.down()
             page.mouse.move(b["x"], b["y"], steps=10)
             page.mouse.up()
             try:
-                page.wait_for_function("() => window.__sb_env !== null", timeout=60_000)
+                page.wait_for_function(changed, arg=[env_name, before], polling="raf", timeout=60_000)
             except Exception:
                 shot = HERE.parents[1] / "test-artifacts" / "bench-timeout.png"
                 shot.parent.mkdir(exist_ok=True)
