@@ -29,6 +29,7 @@ __all__ = [
     "FitSettings",
     "Interpretation",
     "PeakChoice",
+    "ResidualChoice",
     "Settings",
     "SignOff",
     "StageDecision",
@@ -103,6 +104,23 @@ class WindowChoice:
 
 
 @dataclass(frozen=True)
+class ResidualChoice:
+    """The residual pick of a reversal test: the rule's suggestion, or a manual window on one pass (mm)."""
+
+    source: Source = "suggested"
+    pass_no: int | None = None
+    x_from_mm: float | None = None
+    x_to_mm: float | None = None
+    author: str = ""
+    time_utc: str = ""
+    note: str = ""
+
+    def __post_init__(self) -> None:
+        if self.source == "manual" and (self.pass_no is None or self.x_from_mm is None or self.x_to_mm is None):
+            raise ValueError("a manual residual pick needs pass_no, x_from_mm and x_to_mm")
+
+
+@dataclass(frozen=True)
 class StageDecision:
     """Inclusion of a stage (a reason is required to exclude it), its picks and a free note."""
 
@@ -111,6 +129,7 @@ class StageDecision:
     note: str = ""
     peak: PeakChoice = field(default_factory=PeakChoice)
     critical_state: WindowChoice = field(default_factory=WindowChoice)
+    residual: ResidualChoice = field(default_factory=ResidualChoice)
     author: str = ""  # who last changed the inclusion or the note
     time_utc: str = ""
 
@@ -208,8 +227,15 @@ class Interpretation:
         lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
         return self._edit(stage_id, critical_state=WindowChoice("manual", lo, hi, author, utc_now(), note))
 
-    def back_to_suggestion(self, stage_id: str, pick: Literal["peak", "critical_state"]) -> Interpretation:
-        return self._edit(stage_id, **{pick: PeakChoice() if pick == "peak" else WindowChoice()})
+    def with_residual(self, stage_id: str, pass_no: int, x_from_mm: float, x_to_mm: float, author: str,
+                      note: str = "") -> Interpretation:
+        """A manual residual pick: the mean |tau| over ``x_from_mm``-``x_to_mm`` on forward pass ``pass_no``."""
+        lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
+        return self._edit(stage_id, residual=ResidualChoice("manual", int(pass_no), lo, hi, author, utc_now(), note))
+
+    def back_to_suggestion(self, stage_id: str, pick: Literal["peak", "critical_state", "residual"]) -> Interpretation:
+        fresh = {"peak": PeakChoice, "critical_state": WindowChoice, "residual": ResidualChoice}[pick]()
+        return self._edit(stage_id, **{pick: fresh})
 
     def excluded(self, stage_id: str, reason: str, author: str) -> Interpretation:
         """Exclude a stage from the envelopes; a reason is required. It stays visible, greyed."""
@@ -298,7 +324,8 @@ def from_dict(data: Mapping[str, Any], where: str) -> Interpretation:
         raw = dict(raw)
         peak = _build(PeakChoice, raw.pop("peak", {}), f"{w}.peak")
         cs = _build(WindowChoice, raw.pop("critical_state", {}), f"{w}.critical_state")
-        stages[sid] = _build(StageDecision, {**raw, "peak": peak, "critical_state": cs}, w)
+        residual = _build(ResidualChoice, raw.pop("residual", {}), f"{w}.residual")
+        stages[sid] = _build(StageDecision, {**raw, "peak": peak, "critical_state": cs, "residual": residual}, w)
     so = data.get("signoff", {})
     signoff = _build(SignOff, {**so, "history": tuple(so.get("history", ()))}, f"{where} signoff")
     design = _build(DesignChoices, data.get("design", {}), f"{where} design")  # absent in older files: defaults

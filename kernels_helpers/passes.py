@@ -11,7 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["PassStress", "Residual", "label_passes", "pass_stresses", "residual_strength"]
+__all__ = ["PassStress", "Residual", "end_of_pass_window", "label_passes", "pass_stresses", "residual_strength",
+           "residual_over_window"]
 
 
 def label_passes(x_mm: np.ndarray, min_travel_mm: float = 0.5, dead_band_mm: float = 0.02) -> np.ndarray:
@@ -76,11 +77,26 @@ def pass_stresses(x_mm: np.ndarray, tau_kpa: np.ndarray, sigma_kpa: np.ndarray, 
         if len(x) < 5:
             continue
         forward = bool(p % 2 == 1)
-        start, end = float(x[0]), (float(np.max(x)) if forward else float(np.min(x)))
-        travel = abs(end - start)
-        near_end = (x >= end - end_fraction * travel) if forward else (x <= end + end_fraction * travel)
+        travel, (lo, hi) = _end_bounds(x, forward, end_fraction)
+        near_end = (x >= lo) & (x <= hi)
         out.append(PassStress(int(p), forward, travel, float(np.mean(t[near_end])), float(np.mean(s[near_end]))))
     return tuple(out)
+
+
+def _end_bounds(x: np.ndarray, forward: bool, end_fraction: float) -> tuple[float, tuple[float, float]]:
+    """Travel of one pass and the displacement range (lo, hi) of the last ``end_fraction`` of it."""
+    start, end = float(x[0]), (float(np.max(x)) if forward else float(np.min(x)))
+    travel = abs(end - start)
+    return travel, ((end - end_fraction * travel, end) if forward else (end, end + end_fraction * travel))
+
+
+def end_of_pass_window(x_mm: np.ndarray, labels: np.ndarray, pass_no: int,
+                       end_fraction: float = 0.25) -> tuple[float, float] | None:
+    """The window (lo, hi mm) :func:`pass_stresses` averages over on pass ``pass_no``; None for a short pass."""
+    x = x_mm[labels == pass_no]
+    if len(x) < 5:
+        return None
+    return _end_bounds(x, bool(pass_no % 2 == 1), end_fraction)[1]
 
 
 def residual_strength(passes: tuple[PassStress, ...], tolerance: float = 0.03) -> Residual:
@@ -98,3 +114,16 @@ def residual_strength(passes: tuple[PassStress, ...], tolerance: float = 0.03) -
     return Residual(False, last[1].tau_kpa, last[1].sigma_kpa, None,
                     f"residual not reached: the last two forward passes ({last[0].pass_no}, {last[1].pass_no}) differ by "
                     f"{change * 100:+.1f} % (tolerance {tolerance * 100:g} %); the last value is an upper bound")
+
+
+def residual_over_window(x_mm: np.ndarray, tau_kpa: np.ndarray, sigma_kpa: np.ndarray, labels: np.ndarray,
+                         pass_no: int, x_from_mm: float, x_to_mm: float, note: str = "") -> Residual:
+    """A residual picked by the engineer: mean |tau| over a window of one pass."""
+    lo, hi = sorted((x_from_mm, x_to_mm))
+    sel = (labels == pass_no) & (x_mm >= lo) & (x_mm <= hi)
+    n = int(np.count_nonzero(sel))
+    if n < 5:
+        raise ValueError(f"the residual window {lo:.2f}-{hi:.2f} mm on pass {pass_no} holds {n} readings; it needs at least 5")
+    tau, sigma = float(np.mean(np.abs(tau_kpa[sel]))), float(np.mean(sigma_kpa[sel]))
+    return Residual(True, tau, sigma, None, f"residual picked by hand: pass {pass_no}, {lo:.2f}-{hi:.2f} mm, "
+                                           f"mean |tau| of {n} readings" + (f" ({note})" if note else ""))

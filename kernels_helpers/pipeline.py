@@ -18,7 +18,7 @@ from .derived import derive
 from .envelope import fit_line, fit_through_origin
 from .interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, Settings, StageDecision, load_interpretation
 from .multistage import expand_multistage
-from .passes import pass_stresses, residual_strength
+from .passes import pass_stresses, residual_over_window, residual_strength
 from .picks import at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
 from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage, sha256_of
@@ -85,13 +85,19 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     # specimen, spike, normal-load, consolidation and drained-rate checks (stage_checks.py)
     checks = check_stage(spec, readings, reduced, peak.x_mm if no_peak is None else cs.x_from_mm)
     flags.extend(checks.flags)
-    passes, residual = (), None
+    passes, residual, residual_suggested = (), None, None
     if spec.test_type == "reversal":
         c = reduced.curve[reduced.curve["in_shear"]]
         passes = pass_stresses(c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(),
                                c["pass_no"].to_numpy())
-        residual = residual_strength(passes, settings.picks.residual_tolerance)
-        if not residual.reached:
+        residual_suggested = residual = residual_strength(passes, settings.picks.residual_tolerance)
+        choice_r = decision.residual
+        if choice_r.source == "manual":
+            assert choice_r.pass_no is not None and choice_r.x_from_mm is not None and choice_r.x_to_mm is not None
+            residual = residual_over_window(c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(),
+                                            c["pass_no"].to_numpy(), choice_r.pass_no, choice_r.x_from_mm,
+                                            choice_r.x_to_mm, choice_r.note)
+        elif not residual.reached:
             flags.append(residual.message)
     if stale:
         manual = [k for k, c in (("peak", decision.peak), ("critical state", choice)) if c.source == "manual"]
@@ -123,6 +129,8 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         stale=stale,
         passes=passes,
         residual=residual,
+        residual_suggested=residual_suggested,
+        residual_source=decision.residual.source,
         consolidation=checks.consolidation,
         rate=checks.rate,
     )

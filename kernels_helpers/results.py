@@ -60,7 +60,9 @@ class StageResult:
     flags: tuple[str, ...]
     stale: bool  # the raw file changed since the interpretation was saved
     passes: tuple[PassStress, ...] = ()  # reversal tests: the stress at the end of every pass
-    residual: Residual | None = None  # reversal tests: residual strength from the forward passes
+    residual: Residual | None = None  # reversal tests: the residual strength chosen (suggested or manual)
+    residual_suggested: Residual | None = None  # reversal tests: what the rule suggests
+    residual_source: str = "suggested"
     consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
     rate: RateCheck | None = None  # required time to failure against the actual test
 
@@ -205,7 +207,9 @@ class Results:
                     },
                     "flags": list(s.flags),
                     "passes": [{**dataclasses.asdict(p), "ratio": p.ratio} for p in s.passes],
-                    "residual": None if s.residual is None else dataclasses.asdict(s.residual),
+                    "residual": None if s.residual is None else {
+                        **dataclasses.asdict(s.residual), "source": s.residual_source,
+                        "suggested": None if s.residual_suggested is None else dataclasses.asdict(s.residual_suggested)},
                     "consolidation": consolidation_dict(s.consolidation),
                     "rate_check": None if s.rate is None else dataclasses.asdict(s.rate),
                 }

@@ -141,3 +141,20 @@ def test_multistage_split_by_normal_load(tmp_path: Path) -> None:
     assert results.stages[2].reduced.curve["area_mm2"].iloc[-1] == pytest.approx(60 * (60 - 12.0), rel=0.01)
     env = results.envelope("synthetic", "critical_state")
     assert env.chosen is not None and env.chosen.phi_deg == pytest.approx(32.0, abs=0.5)
+
+
+def test_manual_residual_pick_on_a_pass(tmp_path: Path) -> None:
+    from kernels_helpers.interpretation import Interpretation
+
+    cols, ends = _reversal_readings([0.62, 0.55, 0.48, 0.45, 0.42])
+    write_project(tmp_path / "p", {"R1": (cols, 360.0, "reversal")})
+    interp = Interpretation().with_residual("R1", 5, 6.0, 8.0, "tester", "last pass, end of travel")
+    s = interpret(tmp_path / "p", interp).stage("R1")
+    assert s.residual_source == "manual" and s.residual is not None and s.residual.reached
+    assert s.residual.tau_kpa == pytest.approx(ends[4], rel=0.01)  # the model's end-of-pass stress on pass 5
+    assert s.residual_suggested is not None and not s.residual_suggested.reached  # the rule's view stays recorded
+    assert not any(f.startswith("residual not reached") for f in s.flags)
+    env = interpret(tmp_path / "p", interp).envelope("synthetic", "residual")
+    assert env.stage_ids == ("R1",)
+    with pytest.raises(ValueError, match="holds 0 readings"):
+        interpret(tmp_path / "p", Interpretation().with_residual("R1", 5, 20.0, 21.0, "tester"))

@@ -113,3 +113,14 @@ def test_signoff_command(recorded: Path, tmp_path: Path, capsys: pytest.CaptureF
     assert main(["signoff", str(root), "--state", "checked", "--who", "C. Checker", "--note", "picks reviewed"]) == 0
     interp = load_interpretation(root / "interpretation.json")
     assert interp.signoff.state == "checked" and interp.signoff.history[-1]["note"] == "picks reviewed"
+
+
+def test_a_new_record_shows_what_changed_since_the_last_one(recorded: Path, tmp_path: Path) -> None:
+    from kernels_helpers import save_interpretation
+
+    root = _copy(recorded, tmp_path)
+    interp = load_interpretation(root / "interpretation.json")
+    save_interpretation(interp.restored("BH03-L2", "C. Checker"), root / "interpretation.json")
+    text = write_record(root, root / "records" / "r2.html").path.read_text(encoding="utf-8")
+    assert "Changes from the record r1.html to this interpretation:" in text
+    assert "BH03-L2: restored to the envelopes" in text

@@ -98,6 +98,9 @@ CELLS = [
         "file's `design` entry; the method and the cautions are written out below."
     ),
     new_code_cell("views.show_design(results)"),
+    new_markdown_cell("## Changes since the last record\nWhat this interpretation changes against the one the newest record "
+                      "in the project's records/ folder was made with."),
+    new_code_cell("views.show_changes_since_record(project, interpretation_path)"),
     new_markdown_cell("## Sign-off and provenance"),
     new_code_cell("views.show_provenance(results, str(interpretation_path))"),
 ]

@@ -9,6 +9,7 @@ from __future__ import annotations
 import importlib.metadata
 import json
 from datetime import UTC, datetime
+from pathlib import Path
 
 from bokeh.io import output_notebook, show
 from bokeh.resources import Resources
@@ -84,6 +85,23 @@ def show_envelopes(results: Results) -> None:
     _h("Sensitivity: each stage left out in turn")
     display(HTML(tables.sensitivity_table(results)))
     display(HTML(tables.caution_html()))
+
+
+def show_changes_since_record(project: Project, interpretation_path: str | Path) -> None:
+    """The diff, in words, between this interpretation and the one of the newest record in records/."""
+    from ..diff import diff_interpretations
+    from ..interpretation import from_dict
+    from ..verify import read_record
+
+    records = sorted((project.root / "records").glob("*.html"), key=lambda p: p.stat().st_mtime)
+    if not records:
+        display(HTML("<p>No earlier record in this project's records/ folder: nothing to compare with.</p>"))
+        return
+    last = records[-1]
+    before = from_dict(read_record(last)[1], f"{last} (embedded interpretation)")
+    report = diff_interpretations(project, before, load_interpretation(interpretation_path))
+    text = report.to_text(f"the record {last.name}", "this interpretation")
+    display(HTML(f'<pre class="sb-diff">{tables.esc(text)}</pre>'))
 
 
 def show_provenance(results: Results, interpretation_path: str) -> None:
