@@ -35,7 +35,7 @@ REPO = Path(__file__).resolve().parent.parent
 TEMPLATE = REPO / "workbook" / "shear_interpretation.ipynb"
 TEMPLATES_DIR = Path(__file__).resolve().parent / "templates"
 View = Literal["report", "audit"]
-LIVE_TAG = "interactive"  # cells of the live screen: executed headless, left out of the record
+LIVE_TAG = "interactive"  # cells of the live screen: left out of the record (and of its execution)
 
 
 def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> nbformat.NotebookNode:
@@ -49,11 +49,17 @@ def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> n
 
 
 def execute_workbook(project_dir: Path, interpretation_file: Path | None = None, template: Path = TEMPLATE,
-                     timeout_s: int = 600) -> nbformat.NotebookNode:
-    """Execute the template on a project; raise :class:`RecordError` naming the first failed cell."""
+                     timeout_s: int = 600, live: bool = False) -> nbformat.NotebookNode:
+    """Execute the template on a project; raise :class:`RecordError` naming the first failed cell.
+
+    ``live=False`` (the record) leaves out the cells of the live screen (tagged ``interactive``):
+    the record never shows them, and building every live plot costs seconds.
+    """
     if not template.is_file():
         raise RecordError(f"{template}: workbook template not found. Run from a checkout of Shearbook (pip install -e .).")
     nb = nbformat.read(template, as_version=4)
+    if not live:
+        nb.cells = [c for c in nb.cells if LIVE_TAG not in c.get("metadata", {}).get("tags", [])]
     params: dict[str, object] = {"project_dir": str(project_dir.resolve())}
     params["interpretation_file"] = str(interpretation_file.resolve()) if interpretation_file else None
     inject_parameters(nb, params)

@@ -194,7 +194,7 @@ def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) 
     from kernels_helpers.record import LIVE_TAG, execute_workbook, export_html
 
     before = (example_copy / "interpretation.json").read_bytes()
-    nb = execute_workbook(example_copy)
+    nb = execute_workbook(example_copy, live=True)  # the whole template, as JupyterLab runs it
     live = [c for c in nb.cells if LIVE_TAG in c.metadata.get("tags", [])]
     assert live and all(o.get("output_type") != "error" for c in live for o in c.get("outputs", []))
     assert any("application/vnd.jupyter.widget-view+json" in o.get("data", {}) for c in live for o in c.get("outputs", []))

@@ -32,7 +32,7 @@ def record(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str]:
 
 
 def test_template_executes_headless_without_error(example_copy: Path) -> None:
-    nb = execute_workbook(example_copy)
+    nb = execute_workbook(example_copy, live=True)  # every cell, the live screen too
     errors = [o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"]
     assert errors == []
     assert any("injected-parameters" in c.metadata.get("tags", []) for c in nb.cells)
