@@ -14,6 +14,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import shutil
 import subprocess
 import sys
@@ -162,6 +163,8 @@ def _open(args: argparse.Namespace) -> int:
            notebook.name]
     if args.no_browser:
         cmd.append("--no-browser")
+    if hasattr(os, "geteuid") and os.geteuid() == 0:  # JupyterLab refuses root without it (containers, CI)
+        cmd.append("--ServerApp.allow_root=True")
     return subprocess.call(cmd, cwd=project.root)
 
 
