@@ -59,11 +59,15 @@ def hampel_spikes(values: np.ndarray, half_window: int = HAMPEL_HALF_WINDOW, thr
         return np.zeros(v.size, dtype=bool), v.copy()
     size = 2 * half_window + 1
     med = median_filter(v, size=size, mode="nearest")
-    dev = np.abs(v - med)
+    dev = np.subtract(v, med)
+    np.abs(dev, out=dev)
     sample = dev[:: max(1, dev.size // 100_000)]  # the scale from at most ~100,000 readings, evenly spread
     limit = max(threshold * MAD_SCALE * float(np.median(sample)), floor * float(np.ptp(v)))
     spike = dev > limit
-    return spike, np.where(spike, med, v)
+    del dev
+    keep = ~spike
+    med[keep] = v[keep]  # the series with each spike replaced by its moving median (in place)
+    return spike, med
 
 
 def spike_flags(spike: np.ndarray, line_of, quantity: str) -> list[str]:

@@ -27,6 +27,8 @@ __all__ = [
     "dilation_rate",
     "height_of_solids_mm",
     "reduce_stage",
+    "dry_density_mg_m3",
+    "height_mm",
     "seating_shift_mm",
     "smooth_on_x",
     "stresses_kpa",
@@ -133,8 +135,11 @@ def smooth_on_x(x_mm: np.ndarray, v: np.ndarray, window_mm: float, deriv: int = 
     ``v`` is resampled on a uniform step of window/25 in order of x, filtered with a quadratic
     over 51 points (the window) and interpolated back to the readings' x.
     """
-    order = np.argsort(x_mm, kind="stable")
-    xs, vs = x_mm[order], v[order]
+    if bool(np.all(x_mm[1:] >= x_mm[:-1])):  # already in order of x (the usual case): no copies
+        xs, vs = x_mm, v
+    else:
+        order = np.argsort(x_mm, kind="stable")
+        xs, vs = x_mm[order], v[order]
     span = float(xs[-1] - xs[0])
     step = window_mm / 25.0
     if span < 2 * window_mm:
@@ -151,12 +156,13 @@ class ReducedStage:
 
     ``curve`` columns: ``time_s``, ``x_raw_mm`` (as read), ``x_mm`` (after the seating shift),
     ``y_mm`` (dilation positive, zero at the first reading), ``area_mm2`` (the area forces were
-    divided by), ``tau_kpa``, ``tau_smooth_kpa`` (lightly smoothed, to locate picks), ``sigma_kpa``, ``ratio`` (tau/sigma), ``height_mm``, ``e``,
+    divided by), ``tau_kpa``, ``tau_smooth_kpa`` (lightly smoothed, to locate picks), ``sigma_kpa``, ``ratio`` (tau/sigma), ``e``,
     ``dydx``, ``in_shear`` (False for seating readings, which are kept but not used for picks) and
-    ``pass_no`` (1 for the first forward pass; reversal tests count their passes). Also
-    ``rho_d_mg_m3`` (dry density), ``ratio_taylor`` (tau/sigma - dy/dx) and ``spike`` (isolated
-    spike, Hampel filter: kept and shown, left out of the smoothing and of suggestions). Stresses
-    on the other area convention: :func:`stresses_kpa`.
+    ``pass_no`` (1 for the first forward pass; reversal tests count their passes) and ``spike``
+    (isolated spike, Hampel filter: kept and shown, left out of the smoothing and of suggestions).
+    Derived on demand, so a long curve does not carry them: stresses on the other area convention
+    (:func:`stresses_kpa`), height (:func:`height_mm`), dry density (:func:`dry_density_mg_m3`),
+    Taylor's interlocking-free ratio (:func:`kernels_helpers.dilatancy.interlocking_free_ratio`).
     """
 
     stage_id: str
@@ -180,6 +186,16 @@ class ReducedStage:
         if "spike" in c:
             keep &= ~c["spike"].to_numpy(dtype=bool)
         return c[keep]
+
+
+def height_mm(reduced: ReducedStage, specimen: Specimen) -> np.ndarray:
+    """Specimen height at every reading: H_0 - consolidation settlement + vertical displacement (mm)."""
+    return specimen.height_mm - specimen.consolidation_settlement_mm + reduced.curve["y_mm"].to_numpy()
+
+
+def dry_density_mg_m3(reduced: ReducedStage, specimen: Specimen) -> np.ndarray:
+    """Dry density rho_d = G_s rho_w / (1 + e) at every reading, rho_w = 1 Mg/m3."""
+    return specimen.gs / (1.0 + reduced.curve["e"].to_numpy())
 
 
 def stresses_kpa(reduced: ReducedStage, specimen: Specimen, convention: AreaConvention) -> tuple[np.ndarray, np.ndarray]:
@@ -225,21 +241,30 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
     sigma = normal / area * 1000.0
     hs = height_of_solids_mm(spec)
     h_start = spec.height_mm - spec.consolidation_settlement_mm
-    height = h_start + y
+    e = void_ratio(h_start + y, hs)  # H = H_0 - consolidation settlement + y
     in_shear = np.arange(len(x)) >= start
-    e = void_ratio(height, hs)
     dydx = np.full_like(x, np.nan)
     tau_smooth = np.full_like(x, np.nan)
     # isolated spikes (Hampel filter, checks.py): kept as read; the smoothing sees the moving median instead
+    spike = np.zeros(len(x), dtype=bool)
+    tau_clean, y_clean = tau, y  # replaced by copies only where a spike is found
     spike_tau, tau_rest = hampel_spikes(tau[start:])  # the readings from the start of shear on
+    if spike_tau.any():
+        tau_clean = tau.copy()
+        tau_clean[start:] = tau_rest
+    del tau_rest
     spike_y, y_rest = hampel_spikes(y[start:])
-    spike = np.concatenate((np.zeros(start, dtype=bool), spike_tau | spike_y))
-    tau_clean, y_clean = np.concatenate((tau[:start], tau_rest)), np.concatenate((y[:start], y_rest))
+    if spike_y.any():
+        y_clean = y.copy()
+        y_clean[start:] = y_rest
+    del y_rest
+    spike[start:] = spike_tau | spike_y
     # Each pass of a reversal test is smoothed on its own (x runs both ways); other tests are one pass.
     pass_no = label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64)
     for p in np.unique(pass_no):
-        sel = in_shear & (pass_no == p)
-        if p > 1 and (not sel.any() or np.ptp(x[sel]) < 2 * settings.smoothing_window_mm):
+        # one pass from the start of shear to the end (every test but reversals): a slice, no copies
+        sel = slice(start, None) if stage.test_type != "reversal" else in_shear & (pass_no == p)
+        if p > 1 and (not np.any(sel) or np.ptp(x[sel]) < 2 * settings.smoothing_window_mm):
             continue  # a short return pass: no rate of dilation, readings kept
         try:
             dydx[sel] = dilation_rate(x[sel], y_clean[sel], settings.smoothing_window_mm)
@@ -256,14 +281,11 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
             "tau_kpa": tau,
             "tau_smooth_kpa": tau_smooth,
             "sigma_kpa": sigma,
-            "ratio": tau / sigma,
-            "height_mm": height,
+            "ratio": force / normal,  # tau/sigma: the area cancels
             "e": e,
             "dydx": dydx,
             "in_shear": in_shear,
             "pass_no": pass_no,
-            "rho_d_mg_m3": spec.gs / (1.0 + e),  # rho_d = G_s rho_w / (1 + e), rho_w = 1 Mg/m3
-            "ratio_taylor": tau / sigma - dydx,  # Taylor's interlocking-free ratio tau/sigma - dy/dx
             "spike": spike,
         },
         copy=False,

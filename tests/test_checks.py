@@ -14,7 +14,15 @@ from kernels_helpers import Interpretation, interpret, load_project
 from kernels_helpers.checks import hampel_spikes, normal_load_flags, phase_flags, size_flags
 from kernels_helpers.errors import ReadingsError
 from kernels_helpers.readings import read_stage
-from kernels_helpers.reduce import ReductionSettings, corrected_area_mm2, reduce_stage, stresses_kpa
+from kernels_helpers.dilatancy import interlocking_free_ratio
+from kernels_helpers.reduce import (
+    ReductionSettings,
+    corrected_area_mm2,
+    dry_density_mg_m3,
+    height_mm,
+    reduce_stage,
+    stresses_kpa,
+)
 
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"
 
@@ -43,9 +51,12 @@ def test_both_conventions_and_derived_columns(d1) -> None:
     np.testing.assert_allclose(stresses_kpa(nominal, stage.specimen, "corrected")[0], tau_c, rtol=1e-12)
     np.testing.assert_allclose(nominal.curve["tau_kpa"], tau_n, rtol=1e-12)
     # rho_d = G_s rho_w / (1 + e) (REFERENCES sec. 4)
-    np.testing.assert_allclose(c["rho_d_mg_m3"], 2.65 / (1.0 + c["e"]), rtol=1e-12)
+    np.testing.assert_allclose(dry_density_mg_m3(reduced, stage.specimen), 2.65 / (1.0 + c["e"]), rtol=1e-12)
+    # H = H_0 - consolidation settlement + y (REFERENCES sec. 4, textbook relation)
+    np.testing.assert_allclose(height_mm(reduced, stage.specimen),
+                               stage.specimen.height_mm - stage.specimen.consolidation_settlement_mm + c["y_mm"])
     # Taylor's interlocking-free ratio tau/sigma - dy/dx (REFERENCES sec. 5, from memory)
-    np.testing.assert_allclose(c["ratio_taylor"], c["ratio"] - c["dydx"], equal_nan=True)
+    np.testing.assert_allclose(interlocking_free_ratio(c), c["ratio"] - c["dydx"], equal_nan=True)
     assert not c["spike"].any()  # the invented readings carry Gaussian noise only
 
 
