@@ -71,7 +71,7 @@ def _interpretation_of(path: Path):
 
 def _signoff(args: argparse.Namespace) -> int:
     from .interpretation import INTERPRETATION_FILE, load_interpretation, save_interpretation
-    from .pipeline import read_all
+    from .pipeline import raw_file_hashes, read_all
 
     project = load_project(args.project)
     path = project.root / INTERPRETATION_FILE
@@ -81,7 +81,7 @@ def _signoff(args: argparse.Namespace) -> int:
     except ValueError as exc:
         raise ShearbookError(f"{path}: {exc}.") from exc
     if args.state != "draft":  # a signature is given against these exact raw files
-        interp = interp.with_raw_files({r.relpath: r.sha256 for r in read_all(project).values()})
+        interp = interp.with_raw_files(raw_file_hashes(project, read_all(project)))
     save_interpretation(interp, path)
     print(f"{path}: sign-off {args.state} by {args.who}")
     return 0

@@ -27,7 +27,7 @@ from .results import EnvelopeResult, Results, StageResult
 from .stage_checks import check_stage
 from .sensitivity import leave_one_out
 
-__all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance", "read_all", "stage_units"]
+__all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance", "raw_file_hashes", "read_all", "stage_units"]
 
 DEPENDENCIES = ("numpy", "scipy", "pandas")
 
@@ -54,7 +54,7 @@ def stage_units(project: Project, readings: Mapping[str, StageReadings]) -> list
 
 def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecision, settings: Settings,
                   saved_sha256: str | None = None, origin_mm: float | None = None,
-                  reduced: ReducedStage | None = None) -> StageResult:
+                  reduced: ReducedStage | None = None, saved_files: Mapping[str, str] | None = None) -> StageResult:
     """Reduce one stage, suggest its picks and evaluate the picks the engineer chose.
 
     ``reduced``: this stage's reduction under ``settings.reduction`` when the caller already has it
@@ -79,6 +79,10 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     else:
         peak = peak_suggested
     stale = saved_sha256 is not None and saved_sha256 != readings.sha256
+    cons = spec.consolidation
+    saved_cons = (saved_files or {}).get(cons.relpath) if cons is not None else None
+    cons_now = sha256_of(cons.file) if saved_cons is not None and cons is not None and cons.file.is_file() else None
+    cons_stale = saved_cons is not None and saved_cons != cons_now
     flags = list(cs.flags)
     if no_peak is None:
         flags.extend(peak_flags(reduced, peak, settings.picks))
@@ -105,6 +109,11 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
             f"raw file {spec.relpath} changed since the interpretation was saved (SHA-256 {saved_sha256[:12]}... "
             f"now {readings.sha256[:12]}...): review the {' and '.join(manual) or 'suggested'} pick(s) of this stage"
         )
+    if cons_stale and cons is not None:
+        now = f"now {cons_now[:12]}..." if cons_now else "now missing"
+        flags.append(f"raw file {cons.relpath} (consolidation stage) changed since the interpretation was saved "
+                     f"(SHA-256 {saved_cons[:12]}... {now}): review the rate check and the picks of this stage")
+        stale = True
     return StageResult(
         stage_id=spec.id,
         test_set=spec.test_set,
@@ -213,7 +222,14 @@ def fit_envelopes(stages: Iterable[StageResult], fit: FitSettings) -> tuple[Enve
     return tuple(out)
 
 
-def provenance(project: Project, readings: Mapping[str, StageReadings], interpretation: Interpretation) -> dict[str, object]:
+def raw_file_hashes(project: Project, readings: Mapping[str, StageReadings]) -> dict[str, str]:
+    """SHA-256 of every raw file of the project (readings and consolidation files), by relative path."""
+    prov = provenance(project, readings, None)
+    return {name: info["sha256"] for name, info in prov["raw_files"].items()}  # type: ignore[attr-defined]
+
+
+def provenance(project: Project, readings: Mapping[str, StageReadings],
+               interpretation: Interpretation | None) -> dict[str, object]:
     """Inputs' hashes and software versions (no time stamp: results must re-run bit for bit)."""
     versions = {"kernels_helpers": _version("shearbook")}
     versions.update({d: _version(d) for d in DEPENDENCIES})
@@ -221,7 +237,7 @@ def provenance(project: Project, readings: Mapping[str, StageReadings], interpre
         "raw_files": {r.relpath: {"sha256": r.sha256, "size_bytes": r.size_bytes} for r in readings.values()}
         | {s.consolidation.relpath: {"sha256": sha256_of(s.consolidation.file), "size_bytes": s.consolidation.file.stat().st_size}
            for s in project.stages if s.consolidation is not None and s.consolidation.file.is_file()},
-        "interpretation_sha256": interpretation.sha256,
+        "interpretation_sha256": interpretation.sha256 if interpretation is not None else None,
         "versions": versions,
         "python": sys.version.split()[0],
         "platform": platform.platform(),
@@ -256,7 +272,7 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
     origin: float | None = None
     for spec, part, continued in stage_units(proj, readings):
         result = analyse_stage(spec, part, interp.decision(spec.id), interp.settings, interp.raw_files.get(spec.relpath),
-                               origin if continued else None)
+                               origin if continued else None, saved_files=interp.raw_files)
         if not continued:
             origin = result.reduced.seating_shift_mm
         analysed.append(result)

@@ -104,3 +104,18 @@ def test_summary_command_shows_manual_pick_beside_suggestion_and_exclusion(capsy
     assert "BH03-D2 (BH03 dense), sigma'n 100 kPa" in out and "peak (manual): x 2.05 mm" in out and "[suggested x " in out
     assert "BH03-L2 (BH03 loose), sigma'n 100 kPa - EXCLUDED: Laboratory remark" in out
     assert "Caution:" in out
+
+
+def test_a_changed_consolidation_file_marks_its_stage_stale(example_copy: Path) -> None:
+    # common practice: decisions stand against the exact raw files they were made on (SHA-256)
+    cons = example_copy / "readings" / "BH03-D1-consolidation.csv"
+    before = interpret(example_copy).stage("BH03-D1")
+    assert not before.stale
+    lines = cons.read_text(encoding="utf-8").split("\n")
+    lines[-2] = lines[-2] + "1"  # one digit more on the last reading
+    cons.write_text("\n".join(lines), encoding="utf-8")
+    after = interpret(example_copy).stage("BH03-D1")
+    assert after.stale
+    assert any(f.startswith("raw file readings/BH03-D1-consolidation.csv (consolidation stage) changed since the "
+                            "interpretation was saved") for f in after.flags), after.flags
+    assert not interpret(example_copy).stage("BH03-D2").stale
