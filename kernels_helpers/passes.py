@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["PassStress", "Residual", "end_of_pass_window", "label_passes", "pass_stresses", "residual_strength",
-           "residual_over_window"]
+__all__ = ["PassStress", "Residual", "end_of_pass_window", "label_passes", "pass_stresses", "residual_over_window",
+           "residual_strength"]
 
 
 def label_passes(x_mm: np.ndarray, min_travel_mm: float = 0.5, dead_band_mm: float = 0.02) -> np.ndarray:

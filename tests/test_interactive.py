@@ -14,6 +14,7 @@ import pytest
 from bokeh.core.serialization import Serializer
 
 from kernels_helpers import interpret
+from kernels_helpers.pipeline import raw_file_hashes
 from kernels_helpers.views.widgets import LiveWorkbook, live_workbook
 
 STAGE, OTHER = "BH03-D3", "BH03-L3"  # the example file leaves both as suggested and included
@@ -83,7 +84,7 @@ def test_peak_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
     _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})  # the same drop again
     _from_page(wb, panel.plots.peak, dict(panel.plots.peak.data))  # the page echoing our snapped marker
     assert wb.controller.path.read_text(encoding="utf-8") == text and len(wb.controller.history) == 1
-    assert set(_file(wb)["raw_files"]) == {f"readings/{sid}.csv" for sid in wb.controller.stage_ids}
+    assert set(_file(wb)["raw_files"]) == set(raw_file_hashes(wb.controller.project, wb.controller.readings))
     _matches_interpret(wb)
 
 

@@ -21,16 +21,21 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Literal
 
+import numpy as np
+import pandas as pd
+
 from ..interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, load_interpretation, save_interpretation
+from ..passes import end_of_pass_window
 from ..picks import at_point
 from ..pipeline import analyse_stage, assemble_results, read_all, stage_units
 from ..project import load_project
+from ..readings import sha256_of
 from ..results import Results, StageResult
 
 __all__ = ["Controller"]
 
 Listener = Callable[[Results, frozenset[str]], None]
-Pick = Literal["peak", "critical_state"]
+Pick = Literal["peak", "critical_state", "residual"]
 
 
 class Controller:
@@ -85,6 +90,30 @@ class Controller:
         """Call ``listener(results, changed_stage_ids)`` after every edit that changed something."""
         self._listeners.append(listener)
 
+    def residual_pick(self, stage_id: str) -> tuple[int, float, float] | None:
+        """The residual window in use (pass number, from mm, to mm); None for a stage that is not a reversal test.
+
+        A manual pick is the one saved; the suggestion is the end of the pass the rule takes (the later of
+        the two forward passes that agree, else the last forward pass), over the part of its travel the
+        rule averages.
+        """
+        s = self.stage(stage_id)
+        if s.residual is None:
+            return None
+        choice = self.interpretation.decision(stage_id).residual
+        if choice.source == "manual" and choice.pass_no is not None and choice.x_from_mm is not None \
+                and choice.x_to_mm is not None:
+            return choice.pass_no, choice.x_from_mm, choice.x_to_mm
+        forward = [p.pass_no for p in s.passes if p.forward]
+        suggested = s.residual_suggested
+        pass_no = (suggested.passes[1] if suggested is not None and suggested.passes
+                   else (forward[-1] if forward else None))
+        if pass_no is None:
+            return None
+        c = self._pass_rows(stage_id, pass_no)
+        window = end_of_pass_window(c["x_mm"].to_numpy(), c["pass_no"].to_numpy(), pass_no)
+        return None if window is None else (pass_no, *window)
+
     # --- the edits (each returns True when it changed and saved the interpretation) ------------
 
     def move_peak(self, stage_id: str, x_mm: float) -> bool:
@@ -103,6 +132,21 @@ class Controller:
             return self._unchanged(f"{stage_id}: the critical-state window is already {lo:.3f}-{hi:.3f} mm")
         return self._edit(lambda i: i.with_critical_state(stage_id, lo, hi, self.author), stage_id,
                           f"{stage_id}: critical-state window set to {lo:.3f}-{hi:.3f} mm")
+
+    def set_residual(self, stage_id: str, pass_no: int, x_from_mm: float, x_to_mm: float) -> bool:
+        """A manual residual pick (reversal tests): the window ``x_from_mm``-``x_to_mm`` on forward pass ``pass_no``."""
+        s = self.stage(stage_id)
+        if s.residual is None:
+            return self._refuse(f"{stage_id} is not a reversal test: it has no residual to pick.")
+        forward = [p.pass_no for p in s.passes if p.forward]
+        if pass_no not in forward:
+            return self._refuse(f"{stage_id}: pass {pass_no} is not a forward pass; forward passes are {forward}.")
+        lo, hi = sorted(self._snap_on_pass(stage_id, pass_no, float(v)) for v in (x_from_mm, x_to_mm))
+        current = self.interpretation.decision(stage_id).residual
+        if (current.source, current.pass_no, current.x_from_mm, current.x_to_mm) == ("manual", pass_no, lo, hi):
+            return self._unchanged(f"{stage_id}: the residual pick is already pass {pass_no}, {lo:.3f}-{hi:.3f} mm")
+        return self._edit(lambda i: i.with_residual(stage_id, pass_no, lo, hi, self.author), stage_id,
+                          f"{stage_id}: residual picked on pass {pass_no}, {lo:.3f}-{hi:.3f} mm")
 
     def back_to_suggestion(self, stage_id: str, pick: Pick) -> bool:
         if getattr(self.interpretation.decision(stage_id), pick).source == "suggested":
@@ -210,6 +254,9 @@ class Controller:
         for sid, (spec, part, _) in self._units.items():
             if spec.relpath not in hashes or sid in changed:
                 hashes[spec.relpath] = part.sha256
+            cons = spec.consolidation  # the consolidation readings are reviewed with the stage
+            if cons is not None and cons.file.is_file() and (cons.relpath not in hashes or sid in changed):
+                hashes[cons.relpath] = sha256_of(cons.file)
         return hashes
 
     def _snap(self, stage_id: str, x_mm: float) -> float:
@@ -221,13 +268,24 @@ class Controller:
             self._snapped[key] = at_point(self._analysed[stage_id].reduced, x_mm).x_mm
         return self._snapped[key]
 
+    def _pass_rows(self, stage_id: str, pass_no: int) -> pd.DataFrame:
+        """The shearing readings of one pass (those a residual window averages over)."""
+        c = self._analysed[stage_id].reduced.curve
+        return c[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == pass_no)]
+
+    def _snap_on_pass(self, stage_id: str, pass_no: int, x_mm: float) -> float:
+        """The displacement of the reading of pass ``pass_no`` nearest ``x_mm``."""
+        x = self._pass_rows(stage_id, pass_no)["x_mm"].to_numpy()
+        return float(x[int(np.argmin(np.abs(x - x_mm)))]) if len(x) else x_mm
+
     def _analyse(self, stage_id: str, interp: Interpretation) -> StageResult:
         """Analyse one stage; its reduction is reused while the reduction settings stay the same."""
         spec, part, _ = self._units[stage_id]
         known = self._analysed.get(stage_id)
         same = known is not None and interp.settings.reduction == self.interpretation.settings.reduction
         return analyse_stage(spec, part, interp.decision(stage_id), interp.settings, interp.raw_files.get(spec.relpath),
-                             self._origin[stage_id], known.reduced if same and known else None)
+                             self._origin[stage_id], known.reduced if same and known else None,
+                             saved_files=interp.raw_files)
 
     def _assemble(self, interp: Interpretation) -> Results:
         return assemble_results(self.project, self.readings, interp, tuple(self._analysed.values()))

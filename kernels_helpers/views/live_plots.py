@@ -14,14 +14,14 @@ from typing import Any
 
 import numpy as np
 from bokeh.layouts import column, row
-from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Legend, LegendItem, PointDrawTool, Span
+from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Label, Legend, LegendItem, PointDrawTool, Span
 from bokeh.plotting import figure
 
 from ..envelope import confidence_band, fit_power_law
 from ..results import EnvelopeResult, Results, StageResult
-from .figures import CRIT, GREY, INK, PEAK, SUGGESTED, decimate
+from .figures import CRIT, GREY, INK, PEAK, RESIDUAL, SUGGESTED, decimate
 
-__all__ = ["EnvelopePlot", "StagePlots", "marker_data", "window_data"]
+__all__ = ["EnvelopePlot", "StagePlots", "marker_data", "residual_data", "window_data"]
 
 TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
 CURVES = (("tau_kpa", "shear stress tau (kPa)", "shear stress"),
@@ -29,6 +29,7 @@ CURVES = (("tau_kpa", "shear stress tau (kPa)", "shear stress"),
           ("ratio", "stress ratio tau/sigma' (-)", "stress ratio"),
           ("dydx", "rate of dilation dy/dx (-)", "rate of dilation"))
 Callback = Callable[[str, Any, Any], None]
+ResidualPick = tuple[int, float, float]  # reversal tests: pass number, window from and to (mm)
 
 
 def marker_data(s: StageResult) -> dict[str, list[float]]:
@@ -39,6 +40,32 @@ def marker_data(s: StageResult) -> dict[str, list[float]]:
 def window_data(s: StageResult) -> dict[str, list[float]]:
     """The two ends of the critical-state window, drawn at the window's mean shear stress."""
     return {"x": [s.cs.x_from_mm, s.cs.x_to_mm], "y": [s.cs.tau_kpa, s.cs.tau_kpa]}
+
+
+def residual_data(s: StageResult, pick: ResidualPick) -> dict[str, list[float]]:
+    """The two ends of the residual window, drawn at the residual shear stress (mean |tau| over the window)."""
+    _, lo, hi = pick
+    tau = s.residual.tau_kpa if s.residual is not None and s.residual.tau_kpa is not None else _window_mean(s, pick)
+    return {"x": [lo, hi], "y": [tau, tau]}
+
+
+def _pass_rows(s: StageResult, pass_no: int) -> tuple[np.ndarray, np.ndarray]:
+    """Displacement and |tau| of the shearing readings of one pass (reverse passes carry negative tau)."""
+    c = s.reduced.curve
+    sel = c[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == pass_no)]
+    return sel["x_mm"].to_numpy(), np.abs(sel["tau_kpa"].to_numpy())
+
+
+def _window_mean(s: StageResult, pick: ResidualPick) -> float:
+    x, tau = _pass_rows(s, pick[0])
+    inside = (x >= pick[1]) & (x <= pick[2])
+    return float(np.mean(tau[inside])) if inside.any() else 0.0
+
+
+def _pass_curve(s: StageResult, pass_no: int) -> dict[str, np.ndarray]:
+    x, tau = _pass_rows(s, pass_no)
+    keep = decimate(x, [tau])
+    return {"x_mm": x[keep], "abs_tau": tau[keep]}
 
 
 def _curve_data(s: StageResult) -> dict[str, np.ndarray]:
@@ -52,7 +79,9 @@ def _curve_data(s: StageResult) -> dict[str, np.ndarray]:
 class StagePlots:
     """The four linked plots of one stage, the draggable picks, and how to redraw them."""
 
-    def __init__(self, s: StageResult, on_peak: Callback, on_window: Callback) -> None:
+    def __init__(self, s: StageResult, on_peak: Callback, on_window: Callback,
+                 residual: ResidualPick | None = None, on_residual: Callback | None = None) -> None:
+        """``residual`` (reversal tests): the residual window in use; its ends are dragged like the window's."""
         self.stage_id = s.stage_id
         self.curve = ColumnDataSource(_curve_data(s))
         self.peak = ColumnDataSource(marker_data(s))
@@ -71,23 +100,50 @@ class StagePlots:
                             line_color=SUGGESTED, line_width=2)
         win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
         mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
-        tool = PointDrawTool(renderers=[mark, win], add=False, drag=True,
-                             description="drag the peak or the window ends")
-        tau.add_tools(tool)
-        tau.toolbar.active_tap = tool
-        tau.add_layout(Legend(items=[
+        draggable, items = [mark, win], [
             LegendItem(label="readings", renderers=[tau.renderers[0]]),
             LegendItem(label="suggested peak", renderers=[ghost]),
             LegendItem(label="peak (drag it)", renderers=[mark]),
             LegendItem(label="critical-state window ends (drag them)", renderers=[win]),
-        ], ncols=2, label_text_font_size="9px", spacing=0, padding=2, margin=2, label_height=12, glyph_height=12),
-            "below")
-        tau.height = 250
+        ]
+        self.residual: ColumnDataSource | None = None
+        if residual is not None:
+            draggable.append(self._residual_layers(s, residual, items))
+        tool = PointDrawTool(renderers=draggable, add=False, drag=True,
+                             description="drag the peak or the window ends" if residual is None else
+                             "drag the peak, the critical-state window ends or the residual window ends")
+        tau.add_tools(tool)
+        tau.toolbar.active_tap = tool
+        tau.add_layout(Legend(items=items, ncols=2, label_text_font_size="9px", spacing=0, padding=2, margin=2,
+                              label_height=12, glyph_height=12), "below")
+        tau.height = 250 if residual is None else 275
         self.peak.on_change("data", on_peak)
         self.window.on_change("data", on_window)
+        if self.residual is not None and on_residual is not None:
+            self.residual.on_change("data", on_residual)
         # one toolbar per plot (a merged toolbar would fight over which tap tool is active)
         self.layout = column(row(*self.plots[:2]), row(*self.plots[2:]))
-        self.update(s)
+        self.update(s, residual)
+
+    def _residual_layers(self, s: StageResult, pick: ResidualPick, items: list[LegendItem]) -> Any:
+        """On the shear-stress plot: |tau| of the residual pass, the shaded window, its two ends, the value."""
+        tau = self.plots[0]
+        self.residual_pass = pick[0]
+        self.residual_curve = ColumnDataSource(_pass_curve(s, pick[0]))
+        self.residual = ColumnDataSource(residual_data(s, pick))
+        self.residual_box = BoxAnnotation(left=pick[1], right=pick[2], fill_color=RESIDUAL, fill_alpha=0.10,
+                                          hatch_pattern="/", hatch_color=RESIDUAL, hatch_alpha=0.25, level="underlay")
+        self.residual_label = Label(x=pick[2], y=0.0, text="", text_font_size="10px", text_color=RESIDUAL,
+                                    text_align="right", text_baseline="bottom", y_offset=9,
+                                    background_fill_color="white", background_fill_alpha=0.8)
+        tau.add_layout(self.residual_box)
+        tau.add_layout(self.residual_label)
+        line = tau.line("x_mm", "abs_tau", source=self.residual_curve, color=RESIDUAL, line_width=1.1, alpha=0.85)
+        ends = tau.scatter("x", "y", source=self.residual, size=13, marker="square", fill_color=RESIDUAL,
+                           line_color="white")
+        items += [LegendItem(label="|tau| on the residual pass", renderers=[line]),
+                  LegendItem(label="residual window ends (drag them)", renderers=[ends])]
+        return ends
 
     def _plot(self, i: int, key: str, label: str, title: str):
         shared = {"x_range": self.plots_x_range} if i else {}
@@ -105,8 +161,8 @@ class StagePlots:
             ("tau/sigma'", "@ratio{0.000}"), ("dy/dx", "@dydx{+0.0000}"), ("e", "@e{0.0000}")]))
         return p
 
-    def update(self, s: StageResult) -> None:
-        """Redraw the picks (only what differs is sent to the page)."""
+    def update(self, s: StageResult, residual: ResidualPick | None = None) -> None:
+        """Redraw the picks (only what differs is sent to the page); ``residual``: the residual window in use."""
         colour = INK if s.included else GREY
         for p in self.plots:
             p.renderers[0].glyph.line_color = colour
@@ -120,6 +176,23 @@ class StagePlots:
         _set(self.peak_suggested, {"x": [s.peak_suggested.x_mm], "y": [s.peak_suggested.tau_kpa]})
         self.plots[0].title.text = f"{s.stage_id} - shear stress, sigma'n {s.sigma_nominal_kpa:.0f} kPa" + (
             "" if s.included else " (excluded)")
+        if self.residual is not None and residual is not None:
+            self._update_residual(s, residual)
+
+    def _update_residual(self, s: StageResult, pick: ResidualPick) -> None:
+        pass_no, lo, hi = pick
+        if pass_no != self.residual_pass:  # another pass chosen: draw its curve
+            self.residual_pass = pass_no
+            self.residual_curve.data = _pass_curve(s, pass_no)
+        data = residual_data(s, pick)
+        _set(self.residual, data)  # type: ignore[arg-type]
+        self.residual_box.update(left=lo, right=hi)
+        value = "not reached" if s.residual is None or s.residual.tau_kpa is None else f"{s.residual.tau_kpa:.1f} kPa"
+        if s.residual is not None and s.residual_source == "suggested" and not s.residual.reached \
+                and s.residual.tau_kpa is not None:
+            value += " (upper bound)"
+        self.residual_label.update(x=hi, y=data["y"][0],
+                                   text=f"residual {value}, pass {pass_no}, {s.residual_source}")
 
 
 def _set(source: ColumnDataSource, data: dict[str, list[float]]) -> None:

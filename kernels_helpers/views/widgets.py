@@ -21,7 +21,7 @@ from ..interpretation import utc_now
 from ..results import Results, StageResult
 from . import tables
 from .interactive import Controller
-from .live_plots import EnvelopePlot, StagePlots, marker_data, window_data
+from .live_plots import EnvelopePlot, StagePlots, marker_data, residual_data, window_data
 
 __all__ = ["LiveWorkbook", "live_workbook"]
 
@@ -55,7 +55,8 @@ class StagePanel:
 
     def __init__(self, wb: LiveWorkbook, s: StageResult) -> None:
         self.wb, self.sid = wb, s.stage_id
-        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag)
+        pick = wb.controller.residual_pick(self.sid)  # None unless a reversal test
+        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, pick, self.on_residual_drag)
         self.peak_x = _float_text("peak at x (mm)", s.peak.x_mm, f"sb-peak-x-{self.sid}")
         self.cs_from = _float_text("window from (mm)", s.cs.x_from_mm, f"sb-cs-from-{self.sid}")
         self.cs_to = _float_text("window to (mm)", s.cs.x_to_mm, f"sb-cs-to-{self.sid}")
@@ -67,9 +68,25 @@ class StagePanel:
         self.cs_to.observe(self.on_window_typed, "value")
         self.peak_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "peak")))
         self.cs_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "critical_state")))
+        residual: list[W.Widget] = []
+        self.residual_pass: W.Dropdown | None = None
+        if pick is not None:  # reversal tests: the residual window on one forward pass
+            forward = [p.pass_no for p in s.passes if p.forward]
+            self.residual_pass = W.Dropdown(options=[(f"pass {n}", n) for n in forward], value=pick[0],
+                                            description="forward pass", style={"description_width": "125px"},
+                                            layout=W.Layout(width="265px"))
+            self.residual_pass.add_class(f"sb-res-pass-{self.sid}")
+            self.res_from = _float_text("residual from (mm)", pick[1], f"sb-res-from-{self.sid}")
+            self.res_to = _float_text("residual to (mm)", pick[2], f"sb-res-to-{self.sid}")
+            self.res_reset = W.Button(description="residual: back to suggestion", layout=W.Layout(width="260px"))
+            for w in (self.residual_pass, self.res_from, self.res_to):
+                w.observe(self.on_residual_typed, "value")
+            self.res_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "residual")))
+            residual = [W.HTML("<small>residual window (mean |tau| over it)</small>"), self.residual_pass,
+                        self.res_from, self.res_to, self.res_reset]
         side = W.VBox([W.HTML(f"<b>{tables.esc(self.sid)}</b>: type a displacement and press Enter"), self.peak_x,
                        self.peak_reset, W.HTML("<small>critical-state window</small>"), self.cs_from, self.cs_to,
-                       self.cs_reset, self.info], layout=W.Layout(width="280px"))
+                       self.cs_reset, *residual, self.info], layout=W.Layout(width="280px"))
         self.widget = W.HBox([BokehModel(self.plots.layout), side])
         self.update(s)
 
@@ -93,20 +110,50 @@ class StagePanel:
         if not self.wb.guard.active:
             self.wb.act(lambda c: c.set_window(self.sid, self.cs_from.value, self.cs_to.value), redraw=self.sid)
 
+    def on_residual_drag(self, attr: str, old: Any, new: Any) -> None:
+        xs = list(new.get("x", []))
+        c = self.wb.controller
+        pick = c.residual_pick(self.sid)
+        if len(xs) != 2 or pick is None or _same(new, residual_data(c.stage(self.sid), pick)):
+            return  # our own write coming back, or the second call of one change
+        self.wb.act(lambda c: c.set_residual(self.sid, pick[0], float(min(xs)), float(max(xs))), redraw=self.sid)
+
+    def on_residual_typed(self, change: dict[str, Any]) -> None:
+        if not self.wb.guard.active and self.residual_pass is not None:
+            self.wb.act(lambda c: c.set_residual(self.sid, self.residual_pass.value, self.res_from.value,
+                                                 self.res_to.value), redraw=self.sid)
+
     def update(self, s: StageResult) -> None:
-        self.plots.update(s)
+        pick = self.wb.controller.residual_pick(self.sid)
+        self.plots.update(s, pick)
 
         def write() -> None:
             self.peak_x.value = round(s.peak.x_mm, 3)
             self.cs_from.value = round(s.cs.x_from_mm, 3)
             self.cs_to.value = round(s.cs.x_to_mm, 3)
+            if self.residual_pass is not None and pick is not None:
+                self.residual_pass.value = pick[0]
+                self.res_from.value = round(pick[1], 3)
+                self.res_to.value = round(pick[2], 3)
         self.wb.guard.run(write)
         peak = "suggested" if s.peak_source == "suggested" else f"manual (suggested {s.peak_suggested.x_mm:.2f} mm)"
         cs = "suggested" if s.cs_source == "suggested" else (
             f"manual (suggested {s.cs_suggested.x_from_mm:.2f}-{s.cs_suggested.x_to_mm:.2f} mm)")
         distinct = f"<br><i>{tables.esc(s.no_distinct_peak)}</i>" if s.no_distinct_peak else ""
+        residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick))}"
         self.info.value = (f"<small>peak: {tables.esc(peak)}, tau {s.peak.tau_kpa:.1f} kPa{distinct}<br>"
-                           f"critical state: {tables.esc(cs)}, tau {s.cs.tau_kpa:.1f} kPa</small>")
+                           f"critical state: {tables.esc(cs)}, tau {s.cs.tau_kpa:.1f} kPa{residual}</small>")
+
+
+def residual_words(s: StageResult, pick: tuple[int, float, float]) -> str:
+    """The residual in use, in words: value, pass, window and source (e.g. for the stage table)."""
+    r = s.residual
+    if r is None or r.tau_kpa is None:
+        value = "not reached"
+    else:
+        bound = "" if r.reached else " (not reached: an upper bound)"
+        value = f"{r.tau_kpa:.1f} kPa{bound}"
+    return f"{value} on pass {pick[0]}, {pick[1]:.2f}-{pick[2]:.2f} mm ({s.residual_source})"
 
 
 def _same(new: Any, drawn: dict[str, list[float]]) -> bool:
@@ -127,9 +174,12 @@ class StageTable:
     def __init__(self, wb: LiveWorkbook) -> None:
         self.wb = wb
         self.rows: dict[str, dict[str, W.Widget]] = {}
-        cells: list[W.Widget] = [W.HTML(f"<b>{tables.esc(h)}</b>") for h in self.HEAD]
+        # a residual column only when the project holds reversal tests
+        self.reversal = any(wb.controller.stage(sid).residual is not None for sid in wb.controller.stage_ids)
+        head = (*self.HEAD[:4], "residual tau (kPa)", *self.HEAD[4:]) if self.reversal else self.HEAD
+        cells: list[W.Widget] = [W.HTML(f"<b>{tables.esc(h)}</b>") for h in head]
         for sid in wb.controller.stage_ids:
-            r = {"sigma": W.HTML(), "peak": W.HTML(), "cs": W.HTML(), "flags": W.HTML(),
+            r = {"sigma": W.HTML(), "peak": W.HTML(), "cs": W.HTML(), "residual": W.HTML(), "flags": W.HTML(),
                  "include": W.Checkbox(description="", indent=False),
                  "reason": W.Text(placeholder="required to exclude", continuous_update=False),
                  "note": W.Text(placeholder="note", continuous_update=False)}
@@ -141,11 +191,13 @@ class StageTable:
             self.rows[sid] = r
             for key in ("reason", "note"):
                 r[key].layout = W.Layout(width="210px")
-            cells += [W.HTML(f"<b>{tables.esc(sid)}</b>"), r["sigma"], r["peak"], r["cs"], r["flags"], r["include"],
+            r["residual"].add_class(f"sb-residual-{sid}")
+            cells += [W.HTML(f"<b>{tables.esc(sid)}</b>"), r["sigma"], r["peak"], r["cs"],
+                      *([r["residual"]] if self.reversal else []), r["flags"], r["include"],
                       W.VBox([r["reason"], r["note"]])]
         self.message = W.HTML()
         self.message.add_class("sb-table-message")
-        columns = "70px 60px 130px 150px minmax(160px, 1fr) 60px 215px"
+        columns = "70px 60px 130px 150px " + ("170px " if self.reversal else "") + "minmax(160px, 1fr) 60px 215px"
         grid = W.GridBox(cells, layout=W.Layout(grid_template_columns=columns,
                                                 grid_gap="2px 8px", align_items="center"))
         self.widget = W.VBox([grid, self.message])
@@ -181,6 +233,8 @@ class StageTable:
                 peak = "no distinct peak" if no_peak else f"{s.peak.tau_kpa:.1f}"
                 r["peak"].value = f"{tables.esc(peak)} at {s.peak.x_mm:.2f} mm ({s.peak_source})"
                 r["cs"].value = f"{s.cs.tau_kpa:.1f} over {s.cs.x_from_mm:.2f}-{s.cs.x_to_mm:.2f} mm ({s.cs_source})"
+                pick = self.wb.controller.residual_pick(s.stage_id)
+                r["residual"].value = "&ndash;" if pick is None else tables.esc(residual_words(s, pick))
                 items = "".join(f"<li>{tables.esc(f)}</li>" for f in s.flags)
                 r["flags"].value = (f'<details><summary class="sb-flag">{len(s.flags)} flag(s)</summary>'
                                     f'<ul style="font-size: 11px; margin: 0; padding-left: 14px">{items}</ul></details>'
@@ -316,7 +370,8 @@ def _kpa(value: float) -> str:
 def summary_html(results: Results, controller: Controller) -> str:
     """Chosen parameters, the flags still open and the sign-off state, in a few lines."""
     interp = controller.interpretation
-    manual = sum((s.peak_source == "manual") + (s.cs_source == "manual") for s in results.stages)
+    manual = sum((s.peak_source == "manual") + (s.cs_source == "manual") + (s.residual_source == "manual")
+                 for s in results.stages)
     out = [s for s in results.stages if not s.included]
     params = "; ".join(
         f"{e.group} {e.kind.replace('_', ' ')}: phi' {e.chosen.phi_deg:.1f} deg, c' {_kpa(e.chosen.intercept)} kPa"

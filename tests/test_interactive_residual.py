@@ -1,0 +1,201 @@
+"""The residual pick of reversal tests in the live workbook, without a browser.
+
+A small synthetic project (tests/synthetic.py): two reversal stages whose forward passes have not
+settled (the rule says "not reached") and one single-stage test. Bokeh changes are delivered as
+jupyter_bokeh delivers them (each callback twice, and the page echoing our own writes); every case
+checks the interpretation file on disk, the results, and that repeating a change writes nothing.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from bokeh.core.serialization import Serializer
+from synthetic import Model, readings, write_project
+
+from kernels_helpers import interpret
+from kernels_helpers.views.widgets import LiveWorkbook, StagePanel, live_workbook
+
+RATIOS = [0.62, 0.55, 0.48, 0.45, 0.42]  # passes 1-5 (forward 1, 3, 5): still falling, residual not reached
+
+
+def _reversal(ratios: list[float], normal_n: float, seed: int) -> dict[str, np.ndarray]:
+    """Forward 8 mm, back to 0, forward again...; pass k settles on the stress ratio ``ratios[k]``."""
+    xs, fs = [], []
+    for k, r in enumerate(ratios):
+        forward = k % 2 == 0
+        x = np.linspace(0.0, 8.0, 401) if forward else np.linspace(8.0, 0.0, 401)
+        u = x if forward else 8.0 - x
+        ratio = r * np.tanh(u / 0.3) if k else Model().ratio(np.clip(u - 0.2, 0, None))
+        f = (1.0 if forward else -1.0) * ratio * normal_n
+        xs.append(x if k == 0 else x[1:])
+        fs.append(f if k == 0 else f[1:])
+    x = np.concatenate(xs)
+    f = np.concatenate(fs) + np.random.default_rng(seed).normal(0.0, 0.5, len(x))
+    return {"t": np.arange(len(x)) * 2.0, "x": x, "y": np.zeros(len(x)), "f": f}
+
+
+@pytest.fixture
+def folder(tmp_path: Path) -> Path:
+    return write_project(tmp_path / "p", {
+        "R1": (_reversal(RATIOS, 360.0, 1), 360.0, "reversal"),
+        "R2": (_reversal(RATIOS, 720.0, 2), 720.0, "reversal"),
+        "S1": (readings(Model(normal_n=540.0, seed=3)), 540.0, "single-stage"),
+    })
+
+
+@pytest.fixture
+def wb(folder: Path) -> LiveWorkbook:
+    return live_workbook(folder, author="T. Tester")
+
+
+def _file(wb: LiveWorkbook) -> dict:
+    return json.loads(wb.controller.path.read_text(encoding="utf-8"))
+
+
+def _from_page(panel: StagePanel, data: dict[str, list[float]]) -> None:
+    """Deliver a change of the residual window ends exactly as jupyter_bokeh receives it from the page."""
+    source = panel.plots.residual
+    assert source is not None
+    bokeh_model = panel.widget.children[0]
+    content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": source.id}, "attr": "data",
+               "new": Serializer().encode(data)}
+    bokeh_model._sync_model(bokeh_model, content, [])
+
+
+def _pass_x(wb: LiveWorkbook, sid: str, pass_no: int) -> np.ndarray:
+    c = wb.controller.stage(sid).reduced.curve
+    return c[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == pass_no)]["x_mm"].to_numpy()
+
+
+def _matches_interpret(wb: LiveWorkbook) -> None:
+    assert wb.controller.results.to_json() == interpret(wb.controller.project, wb.controller.path).to_json()
+
+
+def test_only_reversal_stages_get_a_residual_pick(wb: LiveWorkbook) -> None:
+    r1, s1 = wb.panels["R1"], wb.panels["S1"]
+    s = wb.controller.stage("R1")
+    assert s.residual is not None and not s.residual.reached and s.residual_source == "suggested"
+    pick = wb.controller.residual_pick("R1")
+    assert pick is not None and pick[0] == 5  # the rule's pass: the last forward pass, not settled
+    assert r1.residual_pass is not None and r1.residual_pass.options == (("pass 1", 1), ("pass 3", 3), ("pass 5", 5))
+    assert (r1.residual_pass.value, r1.res_from.value, r1.res_to.value) == (5, round(pick[1], 3), round(pick[2], 3))
+    assert r1.plots.residual is not None
+    assert r1.plots.residual.data == {"x": [pick[1], pick[2]], "y": [s.residual.tau_kpa, s.residual.tau_kpa]}
+    assert (r1.plots.residual_box.left, r1.plots.residual_box.right) == (pick[1], pick[2])
+    assert f"residual {s.residual.tau_kpa:.1f} kPa" in r1.plots.residual_label.text
+    assert "(upper bound), pass 5, suggested" in r1.plots.residual_label.text
+    assert r1.plots.residual_label.x == pick[2]
+    assert max(r1.plots.residual_curve.data["abs_tau"]) > 0  # |tau| of the pass, reverse passes being negative
+    assert "(suggested)" in wb.stage_table.rows["R1"]["residual"].value
+    assert "upper bound" in wb.stage_table.rows["R1"]["residual"].value
+    assert s1.residual_pass is None and s1.plots.residual is None  # other stages unchanged
+    assert wb.stage_table.rows["S1"]["residual"].value == "&ndash;"
+    assert not wb.controller.set_residual("S1", 1, 4.0, 6.0)
+    assert "not a reversal test" in wb.controller.message
+    assert not wb.controller.path.exists()  # opening and refusing wrote nothing
+
+
+def test_residual_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
+    panel = wb.panels["R1"]
+    before = wb.controller.results.envelope("synthetic", "residual")
+    assert before.chosen is None  # neither stage reached the residual
+    _from_page(panel, {"x": [7.7, 5.95], "y": [40.0, 40.0]})  # ends may cross over; called twice
+    saved = _file(wb)["stages"]["R1"]["residual"]
+    x5 = _pass_x(wb, "R1", 5)
+    assert saved["source"] == "manual" and saved["pass_no"] == 5 and saved["author"] == "T. Tester"
+    assert saved["x_from_mm"] in x5 and saved["x_to_mm"] in x5  # snapped to readings of that pass
+    assert abs(saved["x_from_mm"] - 5.95) < 0.02 and abs(saved["x_to_mm"] - 7.7) < 0.02
+    s = wb.controller.stage("R1")
+    assert s.residual_source == "manual" and s.residual is not None and s.residual.reached
+    assert s.residual_suggested is not None and not s.residual_suggested.reached
+    assert not any(f.startswith("residual not reached") for f in s.flags)
+    assert panel.plots.residual.data == {"x": [saved["x_from_mm"], saved["x_to_mm"]],
+                                          "y": [s.residual.tau_kpa, s.residual.tau_kpa]}
+    assert (panel.res_from.value, panel.res_to.value) == (round(saved["x_from_mm"], 3), round(saved["x_to_mm"], 3))
+    assert "(manual)" in wb.stage_table.rows["R1"]["residual"].value
+    assert panel.plots.residual_label.text == f"residual {s.residual.tau_kpa:.1f} kPa, pass 5, manual"
+    assert len(wb.controller.history) == 1
+    text = wb.controller.path.read_text(encoding="utf-8")
+    _from_page(panel, {"x": [7.7, 5.95], "y": [40.0, 40.0]})  # the same drop again
+    _from_page(panel, dict(panel.plots.residual.data))  # the page echoing our snapped ends
+    assert wb.controller.path.read_text(encoding="utf-8") == text and len(wb.controller.history) == 1
+    _from_page(wb.panels["R2"], {"x": [5.9, 7.8], "y": [90.0, 90.0]})
+    after = wb.controller.results.envelope("synthetic", "residual")
+    assert after.stage_ids == ("R1", "R2") and after.chosen is not None  # both picked: the envelope is fitted
+    assert 'data-kind="residual"' in wb.parameters.value
+    _matches_interpret(wb)
+
+
+def test_refused_residual_picks_leave_the_file_alone(wb: LiveWorkbook) -> None:
+    panel = wb.panels["R1"]
+    panel.res_from.value = 6.0  # a first, accepted pick
+    text = wb.controller.path.read_text(encoding="utf-8")
+    drawn = dict(panel.plots.residual.data)
+    _from_page(panel, {"x": [6.5, 6.51], "y": [40.0, 40.0]})  # too narrow: a reading or two
+    assert wb.controller.path.read_text(encoding="utf-8") == text
+    assert "refused" in wb.status.value and "needs at least 5" in wb.status.value
+    assert dict(panel.plots.residual.data) == drawn  # the ends went back to the pick in the file
+    assert not wb.act(lambda c: c.set_residual("R1", 4, 6.0, 7.5), redraw="R1")  # a reverse pass
+    assert "pass 4 is not a forward pass" in wb.status.value and "[1, 3, 5]" in wb.status.value
+    assert wb.controller.path.read_text(encoding="utf-8") == text
+    panel.res_to.value = 6.01  # the number twin refused the same way, and shows the file's value again
+    assert "needs at least 5" in wb.status.value
+    assert wb.controller.path.read_text(encoding="utf-8") == text
+    assert panel.res_to.value == round(_file(wb)["stages"]["R1"]["residual"]["x_to_mm"], 3)
+    assert len(wb.controller.history) == 1
+    _matches_interpret(wb)
+
+
+def test_number_twins_pass_choice_back_to_suggestion_and_undo(wb: LiveWorkbook) -> None:
+    panel = wb.panels["R1"]
+    assert panel.residual_pass is not None
+    suggested = wb.controller.stage("R1").residual
+    panel.res_from.value = 6.5
+    saved = _file(wb)["stages"]["R1"]["residual"]
+    assert saved["source"] == "manual" and saved["pass_no"] == 5 and abs(saved["x_from_mm"] - 6.5) < 0.02
+    panel.residual_pass.value = 3  # the same window on an earlier forward pass: a higher residual
+    saved = _file(wb)["stages"]["R1"]["residual"]
+    assert saved["pass_no"] == 3 and saved["x_from_mm"] in _pass_x(wb, "R1", 3)
+    s = wb.controller.stage("R1")
+    assert suggested is not None and s.residual is not None and suggested.tau_kpa is not None
+    assert s.residual.tau_kpa > suggested.tau_kpa * 1.05
+    assert panel.plots.residual_pass == 3 and "pass 3, manual" in panel.plots.residual_label.text
+    assert len(wb.controller.history) == 2  # writing the snapped values back did not count as edits
+    panel.res_reset.click()
+    panel.res_reset.click()  # twice: nothing more to do
+    assert _file(wb)["stages"]["R1"]["residual"]["source"] == "suggested"
+    assert len(wb.controller.history) == 3
+    s = wb.controller.stage("R1")
+    assert s.residual_source == "suggested" and s.residual == suggested
+    assert panel.residual_pass.value == 5 and panel.plots.residual_pass == 5
+    assert any(f.startswith("residual not reached") for f in s.flags)
+    wb.undo.click()
+    assert _file(wb)["stages"]["R1"]["residual"]["pass_no"] == 3 and panel.residual_pass.value == 3
+    _matches_interpret(wb)
+
+
+def test_the_drawn_suggestion_is_the_window_the_rule_averages(wb: LiveWorkbook) -> None:
+    """Typing the suggested window as a manual pick gives the suggested value (to within one reading)."""
+    for sid in ("R1", "R2"):
+        pick = wb.controller.residual_pick(sid)
+        suggested = wb.controller.stage(sid).residual
+        assert pick is not None and suggested is not None and suggested.tau_kpa is not None
+        assert wb.controller.set_residual(sid, *pick)
+        manual = wb.controller.stage(sid).residual
+        assert manual is not None and manual.tau_kpa == pytest.approx(suggested.tau_kpa, rel=2e-3)
+
+
+def test_reopening_restores_the_residual_pick(folder: Path) -> None:
+    wb = live_workbook(folder, author="T. Tester")
+    wb.panels["R2"].res_to.value = 7.0
+    again = live_workbook(folder)
+    assert again.controller.interpretation == wb.controller.interpretation
+    a, b = again.panels["R2"], wb.panels["R2"]
+    assert a.plots.residual is not None and b.plots.residual is not None
+    assert a.plots.residual.data == b.plots.residual.data
+    assert (a.res_from.value, a.res_to.value) == (b.res_from.value, b.res_to.value)
+    assert "(manual)" in again.stage_table.rows["R2"]["residual"].value
