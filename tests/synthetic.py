@@ -103,17 +103,28 @@ shear_force = {{ column = "f", unit = "N" }}
 """
 
 
-def write_project(folder: Path, stages: dict[str, tuple[dict[str, np.ndarray], float, str]], normal_column: bool = False) -> Path:
-    """A project with one stage per entry: id -> (columns, normal force N, test type)."""
+def write_project(folder: Path, stages: dict[str, tuple], normal_column: bool = False) -> Path:
+    """A project with one stage per entry: id -> (columns, normal force N, test type[, test set])."""
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "readings").mkdir(exist_ok=True)
     extra = 'normal_force = { column = "n", unit = "N" }' if normal_column else ""
     text = PROJECT.format(extra_columns=extra)
-    for sid, (cols, normal, test_type) in stages.items():
+    for sid, (cols, normal, test_type, *rest) in stages.items():
+        test_set = rest[0] if rest else "synthetic"
         names = list(cols)
         rows = np.column_stack([cols[k] for k in names])
         np.savetxt(folder / "readings" / f"{sid}.csv", rows, delimiter=",", header=",".join(names), comments="", fmt="%.6f")
-        text += (f'\n[[stage]]\nid = "{sid}"\nfile = "readings/{sid}.csv"\ntest_set = "synthetic"\n'
+        text += (f'\n[[stage]]\nid = "{sid}"\nfile = "readings/{sid}.csv"\ntest_set = "{test_set}"\n'
                  f'test_type = "{test_type}"\n[stage.normal_load]\nforce_n = {normal}\n')
     (folder / "project.toml").write_text(text, encoding="utf-8")
     return folder
+
+
+def benchmark_project(folder: Path, n_stages: int = 12, n_readings: int = 50_000) -> Path:
+    """A project of ``n_stages`` dense stages in four test sets at four normal stresses, for benchmarks."""
+    stages = {}
+    for k in range(n_stages):
+        m = Model(normal_n=180.0 * (1 + k % 4), psi_max=10 - k % 4, seed=k)
+        stages[f"B{k + 1:02d}"] = (readings(m, x=np.linspace(0.0, 12.0, n_readings)), m.normal_n, "single-stage",
+                                   f"set {k // 4 + 1}")
+    return write_project(folder, stages)

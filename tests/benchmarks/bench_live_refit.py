@@ -19,9 +19,9 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE))
+sys.path.insert(0, str(HERE.parent))  # tests/: synthetic.py, the model curves the tests use too
 
-from synth import synthesise  # noqa: E402
+from synthetic import benchmark_project  # noqa: E402
 
 from kernels_helpers.interpretation import save_interpretation  # noqa: E402
 from kernels_helpers.pipeline import analyse_stage, assemble_results  # noqa: E402
@@ -157,7 +157,7 @@ def main() -> None:
     ap.add_argument("--no-browser", action="store_true")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
-        root = synthesise(Path(tmp) / "project", args.stages, args.readings)
+        root = benchmark_project(Path(tmp) / "project", args.stages, args.readings)
         python_side(root, args.repeats)
         if not args.no_browser:
             browser_side(root, Path(tmp) / "jupyter", max(4, args.repeats // 4))

@@ -14,23 +14,14 @@ import time
 from pathlib import Path
 
 import nbformat
-import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from synthetic import Model, readings, write_project  # noqa: E402
+from synthetic import benchmark_project  # noqa: E402
 
 from kernels_helpers.record import write_record  # noqa: E402
 from kernels_helpers.verify import verify_record  # noqa: E402
 
 STAGES, ROWS = 12, 50_000
-
-
-def build(folder: Path) -> Path:
-    stages = {}
-    for k in range(STAGES):
-        m = Model(normal_n=180.0 * (1 + k % 4), psi_max=10 - k % 4, seed=k)
-        stages[f"B{k + 1:02d}"] = (readings(m, x=np.linspace(0.0, 12.0, ROWS)), m.normal_n, "single-stage")
-    return write_project(folder, stages)
 
 
 def empty_notebook_floor(folder: Path) -> float:
@@ -44,7 +35,7 @@ def empty_notebook_floor(folder: Path) -> float:
 
 def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
-        root = build(Path(tmp) / "project")
+        root = benchmark_project(Path(tmp) / "project", STAGES, ROWS)
         floor = empty_notebook_floor(Path(tmp))
         t = time.perf_counter()
         rec = write_record(root, root / "records" / "bench.html")
