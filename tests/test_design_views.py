@@ -5,12 +5,13 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-from bokeh.models import GlyphRenderer, VArea
+from bokeh.models import GlyphRenderer, MultiLine, VArea
 
 from kernels_helpers import Interpretation, interpret
 from kernels_helpers.design import DESIGN_CAUTION
 from kernels_helpers.views import design_views
-from kernels_helpers.views.strength_figures import critical_state_figure, statistics_figure
+from kernels_helpers.views.figures import envelope_figure
+from kernels_helpers.views.strength_figures import critical_state_figure
 from kernels_helpers.views.tables import CAUTION, esc
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "example_project"
@@ -33,17 +34,32 @@ def test_design_html_writes_out_the_method_and_cautions_and_escapes(results) -> 
     assert "EN 1997-1 Annex A Table A.4, recommended" in html
 
 
-def test_statistics_figure_draws_the_stored_bands(results) -> None:
-    st = next(s for s in results.envelope_statistics if s.bands)
-    layout = statistics_figure(results, st.group, st.kind)
-    plot = layout.children[0]
-    areas = [r.glyph for r in plot.renderers if isinstance(r, GlyphRenderer) and isinstance(r.glyph, VArea)]
-    assert len(areas) == 1
-    renderer = next(r for r in plot.renderers if isinstance(r, GlyphRenderer) and isinstance(r.glyph, VArea))
-    reported = "origin" if results.envelope(st.group, st.kind).reported == "zero" else "free"
-    band = next(b for b in st.bands if b.fit == reported)
-    assert list(renderer.data_source.data["y1"]) == list(band.mean_lower_kpa)
-    assert list(renderer.data_source.data["y2"]) == list(band.mean_upper_kpa)
+def test_envelope_figure_draws_the_stored_bands_of_every_pick_type(results) -> None:
+    for group in dict.fromkeys(s.group for s in results.envelope_statistics):
+        plot = envelope_figure(results, group).children[0]
+        assert plot.name == f"envelope-{group}"
+        areas = [r for r in plot.renderers if isinstance(r, GlyphRenderer) and isinstance(r.glyph, VArea)]
+        banded = [st for st in results.envelope_statistics if st.group == group and st.bands
+                  and results.envelope(group, st.kind).chosen is not None]
+        assert len(areas) == len(banded) > 0  # one confidence band per fitted pick type
+        for st in banded:
+            reported = "origin" if results.envelope(group, st.kind).reported == "zero" else "free"
+            band = next(b for b in st.bands if b.fit == reported)
+            assert any(list(r.data_source.data["y1"]) == list(band.mean_lower_kpa)
+                       and list(r.data_source.data["y2"]) == list(band.mean_upper_kpa) for r in areas)
+            lines = [r for r in plot.renderers if isinstance(r, GlyphRenderer) and isinstance(r.glyph, MultiLine)]
+            assert any(list(r.data_source.data["ys"][0]) == list(band.prediction_lower_kpa)
+                       and list(r.data_source.data["ys"][1]) == list(band.prediction_upper_kpa) for r in lines)
+        legend = plot.right[0]
+        assert legend.click_policy == "hide"
+        labels = [item.label.value for item in legend.items]
+        for st in banded:
+            if st.power is not None:
+                assert any("power law" in lab and lab.startswith(st.kind.replace("_", " ")) for lab in labels)
+    d = results.design
+    plot = envelope_figure(results, d.group).children[0]
+    labels = [item.label.value for item in plot.right[0].items]
+    assert any(lab.startswith("characteristic line: c'_k") for lab in labels)
 
 
 def test_other_tables_render_and_show_the_general_caution(results) -> None:

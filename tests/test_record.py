@@ -77,9 +77,10 @@ def test_record_shows_inputs_picks_envelopes_versions_and_time(record: tuple[Pat
 def test_record_shows_bands_curved_fit_and_design_values_with_cautions(record: tuple[Path, str]) -> None:
     _, text = record
     results = _embedded(text, "shearbook-results")
-    for st in results["envelope_statistics"]:  # a tau-sigma plot with bands for every fitted envelope
+    for st in results["envelope_statistics"]:  # the bands of every fitted envelope, on its group's plot
         if st["bands"]:
-            assert f'"name":"statistics-{st["group"]}-{st["kind"]}"' in text
+            assert f'"name":"envelope-{st["group"]}"' in text
+            assert f"{st['kind'].replace('_', ' ')}: 95 % confidence band of the mean line" in text
     for line in results["critical_state_lines"]:
         if line["group"].startswith("stratum "):
             assert f'"name":"csl-{line["group"]}"' in text

@@ -74,12 +74,17 @@ CELLS = [
         "required time to failure (the largest of 50 t_50, 11.6 t_90 and 12.7 t_100) against the test."
     ),
     new_code_cell("views.show_consolidation(results)"),
-    new_markdown_cell("## Envelopes"),
+    new_markdown_cell(
+        "## Envelopes\n"
+        "Per pick type: the stages used (excluded ones grey), the reported straight line, its 95 % confidence band\n"
+        "of the mean line (shaded) and 95 % prediction band for one new specimen (dashed), the power law\n"
+        "tau = a sigma'^b fitted on tau (dot-dash), and, for the envelope the design values come from, the lower\n"
+        "bound and the characteristic line. Click a legend entry to hide or show its curves."
+    ),
     new_code_cell("views.show_envelopes(results)"),
     new_markdown_cell(
         "## Envelope statistics and curvature\n"
-        "95 % confidence band of the mean line (shaded), 95 % prediction band for one new specimen (dashed), the\n"
-        "power law tau = a sigma'^b fitted on tau, and the secant angle of every stage."
+        "The numbers behind the bands and the power law drawn above, and the secant angle of every stage."
     ),
     new_code_cell(
         "# normal stresses (kPa) at which to give the power-law secant and tangent angles;\n"

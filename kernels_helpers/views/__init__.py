@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from .consolidation_views import show_consolidation
 from .design_views import (
     show_critical_state_line,
     show_design,
@@ -9,7 +10,6 @@ from .design_views import (
     show_envelope_statistics,
     show_set_comparison,
 )
-from .consolidation_views import show_consolidation
 from .notebook import (
     setup_notebook,
     show_changes_since_record,

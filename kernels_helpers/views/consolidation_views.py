@@ -91,12 +91,12 @@ def rate_table(results: Results) -> str:
 
 def show_consolidation(results: Results) -> None:
     """Both constructions of every consolidation stage, then the rate table."""
-    from bokeh.io import show
+    from .notebook import show_static
 
     stages = [s for s in results.stages if s.consolidation is not None]
     if not stages:
         display(HTML("<p>No consolidation readings in this project (optional consolidation_file per stage).</p>"))
         return
     for s in stages:
-        show(consolidation_figure(s))
+        show_static(consolidation_figure(s))
     display(HTML(rate_table(results)))

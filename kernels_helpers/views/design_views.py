@@ -9,14 +9,14 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from bokeh.io import show
 from IPython.display import HTML, display
 
 from ..compare import overlaps_pooled
 from ..design import PARTIAL_FACTOR_SETS
 from ..dilatancy import DAVIS_JEWELL_ASSUMPTIONS
 from ..results import Results
-from .strength_figures import critical_state_figure, statistics_figure, taylor_figure
+from .notebook import show_static
+from .strength_figures import critical_state_figure, taylor_figure
 from .tables import caution_html, esc, num, table
 
 __all__ = [
@@ -223,14 +223,11 @@ def _h(text: str) -> None:
 
 
 def show_envelope_statistics(results: Results, angles_at_kpa: Sequence[float] | None = None) -> None:
-    """Bands and curved fit on the tau-sigma plot of every fitted envelope, and the statistics tables.
+    """The statistics tables of every fitted envelope (its bands and power law are drawn on its envelope plot).
 
     ``angles_at_kpa``: normal stresses (kPa) at which to give the power-law secant and tangent angles;
     None gives the ends and middle of the design range.
     """
-    for st in results.envelope_statistics:
-        if st.bands:
-            show(statistics_figure(results, st.group, st.kind))
     display(HTML(statistics_table(results) + power_law_angle_table(results, angles_at_kpa)))
 
 
@@ -242,7 +239,7 @@ def show_critical_state_line(results: Results) -> None:
     lines = results.critical_state_lines
     pooled = [line for line in lines if line.group.startswith("stratum ")]
     for line in pooled or lines:  # dense and loose together where a stratum pools them
-        show(critical_state_figure(results, line))
+        show_static(critical_state_figure(results, line))
     display(HTML(critical_state_table(results)))
 
 
@@ -252,7 +249,7 @@ def show_dilatancy(results: Results) -> None:
     for s in results.stages:
         sets.setdefault(s.test_set or "all stages", []).append(s.stage_id)
     for ids in sets.values():
-        show(taylor_figure(results, ids))
+        show_static(taylor_figure(results, ids))
     display(HTML(dilatancy_table(results)))
 
 

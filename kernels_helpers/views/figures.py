@@ -20,6 +20,7 @@ DISPLAY_POINTS = 1500
 # Colours of our own: ink for curves, amber for peaks, teal for critical state, grey for excluded.
 INK, PEAK, CRIT, GREY, SUGGESTED = "#1f3b57", "#d9822b", "#1b8a7a", "#a0a7ad", "#7a5195"
 RESIDUAL = "#8c564b"
+DESIGN = "#8c2d04"  # characteristic line and design range
 TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
 
 
@@ -94,36 +95,80 @@ def _line_points(fit, sigma_max: float) -> tuple[list[float], list[float]]:
     return xs, [fit.intercept + fit.slope * v for v in xs]
 
 
+def _c_text(value: float) -> str:
+    return f"{value + 0.0:.1f}".replace("-0.0", "0.0")  # + 0.0 turns -0.0 into 0.0
+
+
 def envelope_figure(results: Results, group: str):
-    """tau against sigma' for one group: points (excluded greyed) and both envelopes."""
-    p = figure(title=f"Mohr-Coulomb envelopes - {group}", height=380, width=560, tools=TOOLS, name=f"envelope-{group}",
+    """tau against sigma' for one group, every pick type in one plot.
+
+    Per pick type: the stages used and those excluded (grey), the reported straight line, its 95 %
+    confidence band of the mean line (shaded) and prediction band for one new specimen (dashed), the
+    power law (dot-dash), and, for the envelope the design values come from, the lower bound and the
+    characteristic line. One figure per group: Bokeh's cost is per figure, and a checker reads the
+    bands against the points they came from. A legend entry hides or shows its curves on a click.
+    """
+    p = figure(title=f"Mohr-Coulomb envelopes - {group}", height=420, width=860, tools=TOOLS, name=f"envelope-{group}",
                x_axis_label="normal stress sigma' (kPa)", y_axis_label="shear stress tau (kPa)")
     p.toolbar.logo = None
     members = {e.kind: e for e in results.envelopes if e.group == group}
-    sigma_max = 1.0
+    stats = {st.kind: st for st in results.envelope_statistics if st.group == group}
     items = []
     styles = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"), ("residual", RESIDUAL, "square"))
+    sigma_max = max([1.0, *(v for e in members.values() for v in e.sigma_kpa)])
     for kind, colour, marker in [st for st in styles if st[0] in members]:
         env: EnvelopeResult = members[kind]
+        stat = stats.get(kind)
         name = kind.replace("_", " ")
-        src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids)})
+        src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids),
+                                "phi_sec": list(stat.secant_phi_deg) if stat else [float("nan")] * len(env.stage_ids)})
         r = p.scatter("sigma", "tau", source=src, size=10, color=colour, marker=marker)
-        sigma_max = max([sigma_max, *src.data["sigma"]])
         out = [s for s in results.stages if (s.test_set == group or group.startswith("stratum")) and not s.included]
         if out and kind != "residual":
             gx = [(s.peak if kind == "peak" else s.cs) for s in out]
             items.append((f"{name} excluded", [p.scatter([q.sigma_kpa for q in gx], [q.tau_kpa for q in gx], size=9,
                                                           color=GREY, marker=marker, alpha=0.7)]))
         fit = env.chosen
-        if fit is not None:
-            xs, ys = _line_points(fit, sigma_max)
-            c_txt = "0" if fit.through_origin else f"{fit.intercept + 0.0:.1f}".replace("-0.0", "0.0")
-            line = p.line(xs, ys, color=colour, line_width=2)
-            items.insert(0, (f"{name}: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg", [r, line]))
-        else:
+        if fit is None:
             items.insert(0, (f"{name}: not fitted", [r]))
-    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("tau", "@tau{0.0} kPa")]))
+            continue
+        reported = "origin" if env.reported == "zero" else "free"
+        band = next((b for b in stat.bands if b.fit == reported), None) if stat else None
+        if band is not None:
+            xs, ys = list(band.sigma_kpa), list(band.line_kpa)
+            pct = f"{band.level * 100:g} %"
+            items.append((f"{name}: {pct} confidence band of the mean line",
+                          [p.varea(band.sigma_kpa, band.mean_lower_kpa, band.mean_upper_kpa, fill_color=colour,
+                                   fill_alpha=0.15)]))
+            pred = p.multi_line([list(band.sigma_kpa)] * 2, [list(band.prediction_lower_kpa),
+                                                             list(band.prediction_upper_kpa)],
+                                color=colour, line_dash="dashed", line_width=1)
+            items.append((f"{name}: {pct} prediction band (one new specimen)", [pred]))
+        else:
+            xs, ys = _line_points(fit, sigma_max)
+        c_txt = "0" if fit.through_origin else _c_text(fit.intercept)
+        line = p.line(xs, ys, color=colour, line_width=2)
+        items.insert(0, (f"{name}: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg", [r, line]))
+        if stat is not None and stat.power is not None:
+            top = xs[-1]
+            px = np.linspace(top / 400, top, 200)
+            items.append((f"{name}: power law tau = {stat.power.a:.3f} sigma'^{stat.power.b:.3f}",
+                          [p.line(px, stat.power.tau_kpa(px), color=colour, line_dash="dotdash", line_width=1.5)]))
+    d = results.design
+    if d is not None and d.characteristic is not None and d.group == group and d.kind in members:
+        ch = d.characteristic
+        lo_r, hi_r = ch.stress_range_kpa
+        p.add_layout(BoxAnnotation(left=lo_r, right=hi_r, fill_color=DESIGN, fill_alpha=0.05))
+        items.append((f"{d.kind.replace('_', ' ')}: lower bound used for the characteristic value",
+                      [p.line(ch.sigma_kpa, ch.tau_bound_kpa, color=DESIGN, line_width=1.5)]))
+        xs = [lo_r, hi_r]
+        items.append((f"characteristic line: c'_k {_c_text(round(d.c_k_kpa, 1))} kPa, phi'_k {d.phi_k_deg:.1f} deg "
+                       f"({ch.expressed})", [p.line(xs, [d.c_k_kpa + d.tan_phi_k * x for x in xs], color=DESIGN,
+                                                    line_width=3)]))
+    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("tau", "@tau{0.0} kPa"),
+                                    ("secant phi'", "@phi_sec{0.0} deg")]))
     p.x_range.start = 0
     p.y_range.start = 0
-    p.add_layout(Legend(items=items, location="top_left", label_text_font_size="10px"))
+    legend = Legend(items=items, location="top_left", label_text_font_size="9px", click_policy="hide")
+    p.add_layout(legend, "right")
     return column(p)

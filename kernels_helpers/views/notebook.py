@@ -11,14 +11,13 @@ import json
 from datetime import UTC, datetime
 from pathlib import Path
 
-from bokeh.io import output_notebook, show
+from bokeh.io import curdoc, output_notebook, show
 from bokeh.resources import Resources
 from IPython.display import HTML, display
 
 from ..interpretation import load_interpretation
 from ..project import Project
-from ..results import INTERPRETATION_MIME, RESULTS_MIME
-from ..results import Results
+from ..results import INTERPRETATION_MIME, RESULTS_MIME, Results
 from . import tables
 from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
 
@@ -31,6 +30,18 @@ def setup_notebook() -> None:
     """Load BokehJS into the page, inline (no CDN), trimmed to the parts the figures use."""
     output_notebook(resources=Resources(mode="inline", components=["bokeh", "bokeh-widgets"]), hide_banner=True)
     display(HTML(tables.STYLE))
+
+
+def show_static(obj) -> None:
+    """Show a Bokeh layout as a static output cell.
+
+    ``bokeh.io.show`` adds every object it shows to the session document and walks all of that
+    document's models again on each call, so a record of thirty figures paid for the first figure
+    thirty times. A record's figures never talk back to the kernel, so the document is emptied first:
+    each call costs only its own figure.
+    """
+    curdoc().clear()
+    show(obj)
 
 
 def _h(text: str, level: int = 3) -> None:
@@ -63,7 +74,7 @@ def show_header(results: Results, project: Project) -> None:
 def show_stages(results: Results) -> None:
     """One row of plots per stage, suggested and chosen picks marked."""
     for s in results.stages:
-        show(stage_figure(s))
+        show_static(stage_figure(s))
 
 
 def show_tables(results: Results) -> None:
@@ -80,7 +91,7 @@ def show_tables(results: Results) -> None:
 def show_envelopes(results: Results) -> None:
     """Envelope plot of every group and the table of c' and phi'."""
     for group in dict.fromkeys(e.group for e in results.envelopes):
-        show(envelope_figure(results, group))
+        show_static(envelope_figure(results, group))
     display(HTML(tables.envelope_table(results)))
     _h("Sensitivity: each stage left out in turn")
     display(HTML(tables.sensitivity_table(results)))

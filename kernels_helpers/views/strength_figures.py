@@ -1,4 +1,4 @@
-"""Figures of the derived results: envelope bands and curved fit, critical-state line, Taylor's ratio.
+"""Figures of the derived results: critical-state line and Taylor's ratio (bands: ``figures.envelope_figure``).
 
 Display only: every number drawn comes from :mod:`kernels_helpers.derived` or the pure functions
 it uses; curves are decimated as in :mod:`.figures`.
@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 from bokeh.layouts import column
-from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Legend
+from bokeh.models import ColumnDataSource, HoverTool, Legend
 from bokeh.plotting import figure
 
 from ..critical_state import CriticalStateLine
@@ -16,11 +16,9 @@ from ..dilatancy import interlocking_free_ratio
 from ..results import Results
 from .figures import CRIT, GREY, INK, PEAK, SUGGESTED, TOOLS, decimate
 
-__all__ = ["critical_state_figure", "statistics_figure", "taylor_figure"]
+__all__ = ["critical_state_figure", "taylor_figure"]
 
-KIND_COLOUR = {"peak": PEAK, "critical_state": CRIT, "residual": SUGGESTED}
 SET_COLOURS = (INK, PEAK, CRIT, SUGGESTED, "#8c2d04", "#4d7c0f")
-DESIGN = "#8c2d04"
 
 
 def _figure(title: str, name: str, **kw) -> figure:
@@ -28,56 +26,6 @@ def _figure(title: str, name: str, **kw) -> figure:
     p.toolbar.logo = None
     p.title.text_font_size = "11px"
     return p
-
-
-def statistics_figure(results: Results, group: str, kind: str):
-    """tau against sigma': points, reported line, 95 % bands, power law, and the characteristic line."""
-    env = results.envelope(group, kind)
-    stat = results.statistics(group, kind)
-    colour = KIND_COLOUR.get(kind, INK)
-    name = kind.replace("_", " ")
-    p = _figure(f"{name} envelope with bands - {group}", f"statistics-{group}-{kind}",
-                x_axis_label="normal stress sigma' (kPa)", y_axis_label="shear stress tau (kPa)")
-    items = []
-    reported = "origin" if env.reported == "zero" else "free"
-    band = next((b for b in stat.bands if b.fit == reported), None)
-    if band is not None:
-        pct = f"{band.level * 100:g} %"
-        items.append((f"{pct} confidence band of the mean line", [p.varea(band.sigma_kpa, band.mean_lower_kpa,
-                                                                         band.mean_upper_kpa, fill_color=colour,
-                                                                         fill_alpha=0.18)]))
-        lo = p.line(band.sigma_kpa, band.prediction_lower_kpa, color=colour, line_dash="dashed", line_width=1)
-        hi = p.line(band.sigma_kpa, band.prediction_upper_kpa, color=colour, line_dash="dashed", line_width=1)
-        items.append((f"{pct} prediction band (one new specimen)", [lo, hi]))
-        fit = env.chosen
-        c_txt = "0" if fit.through_origin else f"{fit.intercept + 0.0:.1f}".replace("-0.0", "0.0")
-        items.insert(0, (f"straight line: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg",
-                         [p.line(band.sigma_kpa, band.line_kpa, color=colour, line_width=2)]))
-    if stat.power is not None:
-        top = band.sigma_kpa[-1] if band is not None else 1.1 * max(env.sigma_kpa)
-        xs = np.linspace(top / 400, top, 200)
-        items.append((f"power law: tau = {stat.power.a:.3g} sigma'^{stat.power.b:.3f}",
-                      [p.line(xs, stat.power.tau_kpa(xs), color=INK, line_dash="dotdash", line_width=1.5)]))
-    src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids),
-                            "phi_sec": list(stat.secant_phi_deg)})
-    items.append(("stages (used)", [p.scatter("sigma", "tau", source=src, size=10, color=colour, marker="circle")]))
-    d = results.design
-    if d is not None and d.characteristic is not None and (d.group, d.kind) == (group, kind):
-        ch = d.characteristic
-        lo_r, hi_r = ch.stress_range_kpa
-        p.add_layout(BoxAnnotation(left=lo_r, right=hi_r, fill_color=DESIGN, fill_alpha=0.05))
-        items.append(("lower bound used for the characteristic value", [p.line(ch.sigma_kpa, ch.tau_bound_kpa,
-                                                                               color=DESIGN, line_width=1.5)]))
-        xs = [lo_r, hi_r]
-        c_k = round(d.c_k_kpa, 1) + 0.0  # + 0.0 turns -0.0 into 0.0
-        items.append((f"characteristic line: c'_k {c_k:.1f} kPa, phi'_k {d.phi_k_deg:.1f} deg ({ch.expressed})",
-                      [p.line(xs, [d.c_k_kpa + d.tan_phi_k * x for x in xs], color=DESIGN, line_width=3)]))
-    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("tau", "@tau{0.0} kPa"),
-                                    ("secant phi'", "@phi_sec{0.0} deg")]))
-    p.x_range.start = 0
-    p.y_range.start = 0
-    p.add_layout(Legend(items=items, location="top_left", label_text_font_size="9px"))
-    return column(p)
 
 
 def critical_state_figure(results: Results, line: CriticalStateLine):
