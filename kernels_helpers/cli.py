@@ -21,10 +21,7 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-import nbformat
-
 from .errors import ShearbookError
-from .pipeline import interpret
 from .project import load_project
 
 __all__ = ["main"]
@@ -33,6 +30,8 @@ WORKBOOK_NAME = "shear_interpretation.ipynb"
 
 
 def _results(args: argparse.Namespace) -> int:
+    from .pipeline import interpret
+
     results = interpret(load_project(args.project), args.interpretation)
     sys.stdout.write(results.to_json())
     return 0
@@ -40,6 +39,7 @@ def _results(args: argparse.Namespace) -> int:
 
 def _export(args: argparse.Namespace) -> int:
     from .interpretation import INTERPRETATION_FILE, load_interpretation
+    from .pipeline import interpret
 
     if args.csv is None and args.ags4 is None:
         raise ShearbookError("export: say what to write: --csv FOLDER (CSV tables), --ags4 FILE (AGS4 file), or both.")
@@ -100,6 +100,7 @@ def _diff(args: argparse.Namespace) -> int:
 
 
 def _summary(args: argparse.Namespace) -> int:
+    from .pipeline import interpret
     from .summary import summary_text
 
     sys.stdout.write(summary_text(interpret(load_project(args.project), args.interpretation)))
@@ -140,6 +141,8 @@ def _record(args: argparse.Namespace) -> int:
 
 def workbook_in_project(project_dir: Path) -> Path:
     """The project's own copy of the template workbook, made on first use (never overwritten)."""
+    import nbformat
+
     from .record import TEMPLATE, inject_parameters
 
     target = project_dir / WORKBOOK_NAME

@@ -31,6 +31,7 @@ import numpy as np
 from scipy import stats
 
 from .envelope import LineFit, confidence_band, prediction_band
+from .settings import PARTIAL_FACTOR_SETS
 
 __all__ = [
     "DESIGN_CAUTION",
@@ -50,8 +51,6 @@ __all__ = [
 LimitState = Literal["large zone", "local"]
 Expressed = Literal["tangent", "secant"]
 
-# EN 1997-1 Annex A, Table A.4 (recommended values): set -> (gamma_phi' on tan phi', gamma_c')
-PARTIAL_FACTOR_SETS: Final = {"M1": (1.0, 1.0), "M2": (1.25, 1.25)}
 
 # EN 1990 Annex D, Table D1: k_n for the 5 % characteristic value; n -> k_n (n = 0: n infinite)
 TABLE_D1: Final = {

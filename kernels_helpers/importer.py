@@ -199,7 +199,7 @@ def _stage_toml(folder: Path, table: Path, row: _Row, options: ImportOptions,
     guesses = guess_columns(path, layout.header, SHEAR_REQUIRED, cols, units, source)
     zeros = {q: z for q in guesses if (z := _number(table, row, f"{q}_zero", decimal_comma)) is not None}
     stage_id = row.values.get("id", path.stem)
-    head = [f"\n[[stage]]", f"id = {_q(stage_id)}", f"file = {_q('readings/' + path.name)}"]
+    head = ["\n[[stage]]", f"id = {_q(stage_id)}", f"file = {_q('readings/' + path.name)}"]
     head += [f"{k} = {_q(row.values[k])}" for k in TEXT[1:] if k in row.values]
     files = [path]
     cons = None
@@ -218,10 +218,10 @@ def _stage_toml(folder: Path, table: Path, row: _Row, options: ImportOptions,
         cguess = {q: cguess[q] for q in CONSOLIDATION_QUANTITIES}
         cons = _csv_toml("stage.consolidation_csv", clayout, _Row(row.line, {})) + _columns_toml(
             "stage.consolidation_columns", cguess, csense, {})
-    spec = [f"[stage.specimen]", f"shape = {_q(shape)}"]
+    spec = ["[stage.specimen]", f"shape = {_q(shape)}"]
     spec += [f"{k} = {nums[k]!r}" for k in (size_key, "height_mm", "dry_mass_g", "gs", "consolidation_settlement_mm",
                                              "max_particle_mm", "water_content_pct") if nums[k] is not None]
-    load = [f"[stage.normal_load]", f"{loads[0]} = {nums[loads[0]]!r}"]
+    load = ["[stage.normal_load]", f"{loads[0]} = {nums[loads[0]]!r}"]
     if loads[0] == "hanger_mass_kg":
         load.append(f"lever_ratio = {nums['lever_ratio'] if nums['lever_ratio'] is not None else 1.0!r}")
     text = "\n".join(head + spec + load) + "\n" + _csv_toml("stage.csv", layout, row)

@@ -17,11 +17,9 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Final, Literal
 
-from .design import PARTIAL_FACTOR_SETS
 from .atomic import write_text_atomic
 from .errors import InterpretationFileError
-from .picks import PickSettings
-from .reduce import ReductionSettings
+from .settings import PARTIAL_FACTOR_SETS, PickSettings, ReductionSettings
 
 __all__ = [
     "INTERPRETATION_FILE",

@@ -17,12 +17,12 @@ Rules (also stated in the contributor guide and the record):
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Literal
 
 import numpy as np
 import pandas as pd
 
 from .reduce import ReducedStage
+from .settings import PickSettings
 
 __all__ = [
     "PickSettings",
@@ -34,28 +34,6 @@ __all__ = [
     "suggest_critical_state",
     "suggest_peak",
 ]
-
-
-@dataclass(frozen=True)
-class PickSettings:
-    """Tolerances of the suggestion rules (see the module docstring)."""
-
-    cs_window_mm: float = 2.0
-    cs_rate_tolerance: float = 0.01
-    cs_trend_tolerance: float = 0.02
-    distinct_peak_margin: float = 0.03
-    peak_rule: Literal["tau", "ratio"] = "tau"  # maximum shear stress, or maximum stress ratio tau/sigma
-    peak_dilation_offset_mm: float = 0.5  # flag when the peak is further than this from the maximum dilation rate
-    stick_slip_fraction: float = 0.02  # flag when the readings scatter about the smoothed peak by more than this
-    residual_tolerance: float = 0.03  # successive forward passes agree within this fraction
-
-    def __post_init__(self) -> None:
-        for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin",
-                     "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance"):
-            if not getattr(self, name) > 0:
-                raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
-        if self.peak_rule not in ("tau", "ratio"):
-            raise ValueError(f"peak_rule must be 'tau' or 'ratio', not {self.peak_rule!r}")
 
 
 @dataclass(frozen=True)

@@ -16,7 +16,14 @@ from pathlib import Path
 
 from .derived import derive
 from .envelope import fit_line, fit_through_origin
-from .interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, Settings, StageDecision, load_interpretation
+from .interpretation import (
+    INTERPRETATION_FILE,
+    FitSettings,
+    Interpretation,
+    Settings,
+    StageDecision,
+    load_interpretation,
+)
 from .multistage import expand_multistage
 from .passes import pass_stresses, residual_over_window, residual_strength
 from .picks import at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
@@ -24,8 +31,8 @@ from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage, sha256_of
 from .reduce import ReducedStage, reduce_stage
 from .results import EnvelopeResult, Results, StageResult
-from .stage_checks import check_stage
 from .sensitivity import leave_one_out
+from .stage_checks import check_stage
 
 __all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance", "raw_file_hashes", "read_all", "stage_units"]
 

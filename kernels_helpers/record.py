@@ -1,9 +1,14 @@
 """Headless execution of a workbook and its export to a self-contained HTML record.
 
-Steps, each a small function: load the template -> inject parameters -> execute (nbclient,
-in-process) -> stop on the first failed cell -> export (nbconvert, offline template) -> check that
-nothing in the file is fetched from the network -> embed the results JSON -> write atomically.
-A record is never produced from a notebook that raised.
+Steps, each a small function: start the kernel -> load the template -> inject parameters ->
+execute (nbclient) -> stop on the first failed cell -> export (nbconvert, offline template) ->
+check that nothing in the file is fetched from the network -> embed the results JSON -> write
+atomically. A record is never produced from a notebook that raised.
+
+The kernel is started first, before this process imports nbformat, nbclient and nbconvert, and is
+told to import the package while it starts (``IPKernelApp.exec_lines``): the two processes do
+their imports at the same time, on two cores, instead of one after the other. The startup code
+only imports; everything the record shows is computed by the workbook's own cells.
 """
 
 from __future__ import annotations
@@ -15,19 +20,17 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from html.parser import HTMLParser
 from pathlib import Path
-from typing import Literal
-
-import nbformat
-from nbclient import NotebookClient
-from nbclient.exceptions import CellExecutionError
-from nbconvert import HTMLExporter
-from nbconvert.preprocessors import TagRemovePreprocessor
+from typing import TYPE_CHECKING, Literal
 
 from .atomic import write_text_atomic
 from .errors import RecordError
 from .interpretation import INTERPRETATION_FILE, load_interpretation
+from .mime import INTERPRETATION_MIME, RESULTS_MIME
 from .project import load_project
-from .results import INTERPRETATION_MIME, RESULTS_MIME
+
+if TYPE_CHECKING:  # imported where used: the kernel starts before these are imported
+    import nbformat
+    from jupyter_client.manager import AsyncKernelManager
 
 __all__ = ["TEMPLATE", "execute_workbook", "network_references", "write_record"]
 
@@ -36,10 +39,14 @@ TEMPLATE = REPO / "workbook" / "shear_interpretation.ipynb"
 TEMPLATES_DIR = Path(__file__).resolve().parent / "templates"
 View = Literal["report", "audit"]
 LIVE_TAG = "interactive"  # cells of the live screen: left out of the record (and of its execution)
+KERNEL = "python3"
+WARM_UP = "import kernels_helpers.pipeline, kernels_helpers.views"  # what the workbook's first cell imports
 
 
 def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> nbformat.NotebookNode:
     """Insert a cell assigning ``params`` right after the cell tagged ``parameters``."""
+    import nbformat
+
     lines = ["# Parameters injected by Shearbook"] + [f"{k} = {v!r}" for k, v in params.items()]
     cell = nbformat.v4.new_code_cell("\n".join(lines), metadata={"tags": ["injected-parameters"]})
     cell["id"] = "sb-injected"
@@ -48,13 +55,48 @@ def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> n
     return nb
 
 
+def start_kernel(cwd: Path) -> AsyncKernelManager:
+    """Launch a kernel in ``cwd`` that imports the package while it starts; returns at once."""
+    from jupyter_client.manager import AsyncKernelManager
+    from jupyter_core.utils import run_sync
+
+    km = AsyncKernelManager(kernel_name=KERNEL)
+    run_sync(km.start_kernel)(cwd=str(cwd), extra_arguments=[f"--IPKernelApp.exec_lines={WARM_UP}"])
+    return km
+
+
+def stop_kernel(km: AsyncKernelManager) -> None:
+    from jupyter_core.utils import run_sync
+
+    if km.has_kernel:
+        run_sync(km.shutdown_kernel)(now=True)
+
+
 def execute_workbook(project_dir: Path, interpretation_file: Path | None = None, template: Path = TEMPLATE,
-                     timeout_s: int = 600, live: bool = False) -> nbformat.NotebookNode:
+                     timeout_s: int = 600, live: bool = False,
+                     km: AsyncKernelManager | None = None) -> nbformat.NotebookNode:
     """Execute the template on a project; raise :class:`RecordError` naming the first failed cell.
 
     ``live=False`` (the record) leaves out the cells of the live screen (tagged ``interactive``):
-    the record never shows them, and building every live plot costs seconds.
+    the record never shows them, and building every live plot costs seconds. ``km``: a kernel
+    from :func:`start_kernel`, left running (the caller stops it); None starts and stops one.
     """
+    own = km is None
+    if own:
+        km = start_kernel(project_dir)
+    try:
+        return _execute(project_dir, interpretation_file, template, timeout_s, live, km)
+    finally:
+        if own:
+            stop_kernel(km)
+
+
+def _execute(project_dir: Path, interpretation_file: Path | None, template: Path, timeout_s: int, live: bool,
+             km: AsyncKernelManager) -> nbformat.NotebookNode:
+    import nbformat
+    from nbclient import NotebookClient
+    from nbclient.exceptions import CellExecutionError
+
     if not template.is_file():
         raise RecordError(f"{template}: workbook template not found. Run from a checkout of Shearbook (pip install -e .).")
     nb = nbformat.read(template, as_version=4)
@@ -63,8 +105,7 @@ def execute_workbook(project_dir: Path, interpretation_file: Path | None = None,
     params: dict[str, object] = {"project_dir": str(project_dir.resolve())}
     params["interpretation_file"] = str(interpretation_file.resolve()) if interpretation_file else None
     inject_parameters(nb, params)
-    client = NotebookClient(nb, timeout=timeout_s, kernel_name="python3",
-                            resources={"metadata": {"path": str(project_dir.resolve())}})
+    client = NotebookClient(nb, km=km, timeout=timeout_s, kernel_name=KERNEL)
     try:
         client.execute()
     except CellExecutionError as exc:
@@ -115,6 +156,10 @@ def network_references(html_text: str) -> list[str]:
 
 def export_html(nb: nbformat.NotebookNode, view: View) -> str:
     """HTML of an executed notebook; the report view hides the code, the audit view shows it."""
+    import nbformat
+    from nbconvert import HTMLExporter
+    from nbconvert.preprocessors import TagRemovePreprocessor
+
     exporter = HTMLExporter(template_name="shearbook_record", extra_template_basedirs=[str(TEMPLATES_DIR)])
     exporter.exclude_input = view == "report"
     exporter.exclude_input_prompt = True
@@ -165,8 +210,12 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
     root = Path(project_dir).resolve()
     load_project(root)  # fail early with the project file's own message
     interp_path = Path(interpretation_file).resolve() if interpretation_file else root / INTERPRETATION_FILE
-    load_interpretation(interp_path)
-    nb = execute_workbook(root, interp_path, template)
+    km = start_kernel(root)  # it starts while the interpretation file is checked and nbconvert imported
+    try:
+        load_interpretation(interp_path)
+        nb = execute_workbook(root, interp_path, template, km=km)
+    finally:
+        stop_kernel(km)
     results_json = _published(nb, RESULTS_MIME, template) + "\n"
     interpretation_json = _published(nb, INTERPRETATION_MIME, template) + "\n"
     html_text = export_html(nb, view)

@@ -6,19 +6,18 @@ Pure functions: plain arrays and records in, plain arrays and records out. Units
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal
-
 from functools import cached_property
 
 import numpy as np
 import pandas as pd
 from scipy.signal import savgol_filter
 
+from .checks import hampel_spikes
 from .errors import ReadingsError
 from .passes import label_passes
 from .project import Specimen, StageSpec
-from .checks import hampel_spikes
 from .readings import StageReadings
+from .settings import AreaConvention, ReductionSettings
 
 __all__ = [
     "ReducedStage",
@@ -35,42 +34,6 @@ __all__ = [
     "void_ratio",
 ]
 
-AreaConvention = Literal["corrected", "nominal"]
-
-
-@dataclass(frozen=True)
-class ReductionSettings:
-    """Settings of the reduction, recorded in the interpretation file and the record.
-
-    Attributes
-    ----------
-    area_convention
-        ``"corrected"`` divides forces by the overlap area of the two halves of the box at the
-        current displacement (default); ``"nominal"`` by the initial plan area.
-    smoothing_window_mm
-        Width of the Savitzky-Golay window (quadratic) used for the rate of dilation, in mm of
-        horizontal displacement, on a curve resampled at a uniform step of window/25.
-    peak_smoothing_mm
-        Width of the light Savitzky-Golay smoothing of the shear stress used to locate picks.
-    seating_fraction
-        The start of shear is taken where the shear force first reaches this fraction of its
-        maximum; the horizontal displacement before it is seating slack.
-    """
-
-    area_convention: AreaConvention = "corrected"
-    smoothing_window_mm: float = 0.5
-    seating_fraction: float = 0.02
-    peak_smoothing_mm: float = 0.25
-
-    def __post_init__(self) -> None:
-        if self.area_convention not in ("corrected", "nominal"):
-            raise ValueError(f"area_convention must be 'corrected' or 'nominal', not {self.area_convention!r}")
-        if not self.smoothing_window_mm > 0:
-            raise ValueError(f"smoothing_window_mm must be positive, not {self.smoothing_window_mm!r}")
-        if not self.peak_smoothing_mm > 0:
-            raise ValueError(f"peak_smoothing_mm must be positive, not {self.peak_smoothing_mm!r}")
-        if not 0 < self.seating_fraction < 0.5:
-            raise ValueError(f"seating_fraction must be between 0 and 0.5, not {self.seating_fraction!r}")
 
 
 def corrected_area_mm2(shape: str, width_mm: float, d_mm: np.ndarray | float) -> np.ndarray:

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 from .consolidation import ConsolidationResult, RateCheck, consolidation_dict
 from .envelope import LineFit
+from .mime import INTERPRETATION_MIME, RESULTS_MIME  # noqa: F401  (re-exported)
 from .passes import PassStress, Residual
 from .picks import PointValues, WindowValues
 from .reduce import ReducedStage
@@ -29,9 +30,6 @@ if TYPE_CHECKING:
 __all__ = ["EnvelopeResult", "Results", "StageResult"]
 
 RESULTS_SCHEMA = "shearbook.results/1"
-#: mimetypes under which the workbook publishes its results and interpretation for the record
-RESULTS_MIME = "application/vnd.shearbook.results+json"
-INTERPRETATION_MIME = "application/vnd.shearbook.interpretation+json"
 
 
 @dataclass(frozen=True)

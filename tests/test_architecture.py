@@ -42,6 +42,8 @@ PURE_MODULES = [
     "checks",
     "consolidation",
     "stage_checks",
+    "settings",
+    "mime",
 ]
 FORBIDDEN = ("bokeh", "ipywidgets", "nbconvert", "nbclient", "jupyter_bokeh")
 PACKAGE_DIR = Path(kernels_helpers.__file__).parent
@@ -55,6 +57,10 @@ print(json.dumps(sorted(m for m in sys.modules if m.split(".")[0] in forbidden))
 
 
 MODULES = ["kernels_helpers", *(f"kernels_helpers.{m}" for m in PURE_MODULES)]
+# what `shearbook record` imports before its kernel starts, and the files it checks meanwhile
+LIGHT_MODULES = ["kernels_helpers.cli", "kernels_helpers.record", "kernels_helpers.project",
+                 "kernels_helpers.interpretation", "kernels_helpers.settings"]
+HEAVY = ("numpy", "pandas", "scipy", "nbformat", "nbclient", "nbconvert", "bokeh")
 
 
 Probes = dict[str, tuple[int, str, str]]  # key -> (return code, stdout, stderr)
@@ -83,12 +89,23 @@ def probes() -> Probes:
     jobs = {m: (m, FORBIDDEN) for m in MODULES}
     # a control: the probe must be able to fail (json is imported by the probe itself)
     jobs["control"] = ("kernels_helpers.units", ("json",))
+    for m in LIGHT_MODULES:
+        jobs[f"light:{m}"] = (m, HEAVY)
     return _probe_all(jobs)
 
 
 @pytest.mark.parametrize("module", MODULES)
 def test_import_in_fresh_interpreter_loads_no_display_packages(probes: Probes, module: str) -> None:
     returncode, stdout, stderr = probes[module]
+    assert returncode == 0, stderr
+    assert json.loads(stdout.strip().splitlines()[-1]) == []
+
+
+@pytest.mark.parametrize("module", LIGHT_MODULES)
+def test_commands_start_without_the_numerical_stack(probes: Probes, module: str) -> None:
+    # shearbook record starts its kernel before it imports nbformat, nbclient and nbconvert, and
+    # checks the project and interpretation files without pandas or scipy (record.py docstring)
+    returncode, stdout, stderr = probes[f"light:{module}"]
     assert returncode == 0, stderr
     assert json.loads(stdout.strip().splitlines()[-1]) == []
 

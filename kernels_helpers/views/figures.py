@@ -7,14 +7,27 @@ Largest-Triangle-Three-Buckets algorithm (``tsdownsample``); every computation u
 from __future__ import annotations
 
 import numpy as np
-from bokeh.layouts import column, gridplot
-from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Legend, Span
+from bokeh.layouts import column
+from bokeh.models import (
+    BoxAnnotation,
+    ColumnDataSource,
+    GlyphRenderer,
+    GridPlot,
+    HoverTool,
+    Legend,
+    Line,
+    SaveTool,
+    Scatter,
+    Span,
+    Toolbar,
+    ToolProxy,
+)
 from bokeh.plotting import figure
 from tsdownsample import LTTBDownsampler
 
 from ..results import EnvelopeResult, Results, StageResult
 
-__all__ = ["DISPLAY_POINTS", "decimate", "envelope_figure", "stage_figure"]
+__all__ = ["DISPLAY_POINTS", "decimate", "envelope_figure", "linked_row", "stage_figure"]
 
 DISPLAY_POINTS = 1500
 # Colours of our own: ink for curves, amber for peaks, teal for critical state, grey for excluded.
@@ -42,10 +55,31 @@ def decimate(x: np.ndarray, columns: list[np.ndarray], n_out: int = DISPLAY_POIN
 def _panel(title: str, y_label: str, name: str, x_range=None) -> figure:
     shared = {"x_range": x_range} if x_range is not None else {}
     p = figure(title=title, height=220, width=380, tools=TOOLS, name=name, x_axis_label="horizontal displacement (mm)",
-               y_axis_label=y_label, **shared)
-    p.toolbar.logo = None
+               y_axis_label=y_label, toolbar_location=None, **shared)
     p.title.text_font_size = "11px"
     return p
+
+
+def linked_row(plots: list[figure]) -> GridPlot:
+    """Plots side by side under one toolbar (what ``bokeh.layouts.gridplot`` makes, built directly).
+
+    Each tool of the first plot is joined by a :class:`ToolProxy` with the same tool of the others,
+    so one button works all plots; a single save tool saves the row. ``gridplot`` walks every model
+    of every plot and compares every tool's properties to find that out, which costs more than the
+    plots themselves on a long record.
+    """
+    per_plot = [[t for t in p.toolbar.tools if not isinstance(t, SaveTool)] for p in plots]
+    proxies = [ToolProxy(tools=list(group)) for group in zip(*per_plot, strict=True)]
+    toolbar = Toolbar(tools=[*proxies, SaveTool()], logo=None)
+    return GridPlot(children=[(p, 0, i) for i, p in enumerate(plots)], toolbar=toolbar, toolbar_location="right")
+
+
+def _draw(p: figure, glyph, source: ColumnDataSource) -> GlyphRenderer:
+    """Add a glyph without the selection and mute variants ``figure.line`` builds: nothing here
+    selects or mutes, and BokehJS derives them itself when asked ("auto")."""
+    r = GlyphRenderer(data_source=source, glyph=glyph)
+    p.renderers.append(r)
+    return r
 
 
 def stage_figure(s: StageResult):
@@ -62,32 +96,35 @@ def stage_figure(s: StageResult):
     tau = _panel(f"{label} - shear stress", "shear stress tau (kPa)", f"stage-{s.stage_id}-tau")
     vert = _panel("vertical displacement (dilation +)", "vertical displacement (mm)", f"stage-{s.stage_id}-y", tau.x_range)
     void = _panel("void ratio", "void ratio e", f"stage-{s.stage_id}-e", tau.x_range)
-    items = {"readings": [tau.line("x_mm", "tau_kpa", source=src, color=colour, line_width=1.2)]}
-    vert.line("x_mm", "y_mm", source=src, color=colour, line_width=1.2)
-    void.line("x_mm", "e", source=src, color=colour, line_width=1.2)
+    items = {"readings": [_draw(tau, Line(x="x_mm", y="tau_kpa", line_color=colour, line_width=1.2), src)]}
+    _draw(vert, Line(x="x_mm", y="y_mm", line_color=colour, line_width=1.2), src)
+    _draw(void, Line(x="x_mm", y="e", line_color=colour, line_width=1.2), src)
+    hover = [("x", "@x_mm{0.000} mm"), ("tau", "@tau_kpa{0.0} kPa"), ("y", "@y_mm{0.000} mm"), ("e", "@e{0.0000}"),
+             ("dy/dx", "@dydx{+0.0000}")]
     for p in (tau, vert, void):
         p.add_layout(BoxAnnotation(left=s.cs.x_from_mm, right=s.cs.x_to_mm, fill_color=CRIT, fill_alpha=0.12))
-        p.add_tools(HoverTool(tooltips=[("x", "@x_mm{0.000} mm"), ("tau", "@tau_kpa{0.0} kPa"), ("y", "@y_mm{0.000} mm"),
-                                        ("e", "@e{0.0000}"), ("dy/dx", "@dydx{+0.0000}")], mode="vline"))
-    items["critical state (window mean)"] = [
-        tau.line([s.cs.x_from_mm, s.cs.x_to_mm], [s.cs.tau_kpa] * 2, color=CRIT, line_width=3)
-    ]
+        p.add_tools(HoverTool(tooltips=hover, mode="vline"))
+    sug = s.cs_suggested
+    windows = ColumnDataSource({"x": [s.cs.x_from_mm, s.cs.x_to_mm], "tau": [s.cs.tau_kpa] * 2,
+                                "x_sug": [sug.x_from_mm, sug.x_to_mm], "tau_sug": [sug.tau_kpa] * 2})
+    items["critical state (window mean)"] = [_draw(tau, Line(x="x", y="tau", line_color=CRIT, line_width=3), windows)]
     if s.cs_source == "manual":
-        sug = s.cs_suggested
-        items["critical state suggested"] = [tau.line([sug.x_from_mm, sug.x_to_mm], [sug.tau_kpa] * 2, color=SUGGESTED,
-                                                      line_width=2, line_dash="dashed")]
+        items["critical state suggested"] = [_draw(tau, Line(x="x_sug", y="tau_sug", line_color=SUGGESTED, line_width=2,
+                                                             line_dash="dashed"), windows)]
+    p, q = s.peak, s.peak_suggested
+    points = ColumnDataSource({"x": [p.x_mm], "tau": [p.tau_kpa], "y": [float(c["y_mm"].iloc[p.index])], "e": [p.e],
+                               "x_sug": [q.x_mm], "tau_sug": [q.tau_kpa]})
     if not (s.no_distinct_peak and s.peak_source == "suggested"):
-        p = s.peak
-        items["peak"] = [tau.scatter([p.x_mm], [p.tau_kpa], size=11, color=PEAK, marker="diamond")]
-        vert.scatter([p.x_mm], [float(c["y_mm"].iloc[p.index])], size=9, color=PEAK, marker="diamond")
-        void.scatter([p.x_mm], [p.e], size=9, color=PEAK, marker="diamond")
+        items["peak"] = [_draw(tau, Scatter(x="x", y="tau", size=11, fill_color=PEAK, line_color=PEAK, marker="diamond"),
+                               points)]
+        _draw(vert, Scatter(x="x", y="y", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
+        _draw(void, Scatter(x="x", y="e", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
         vert.add_layout(Span(location=p.x_mm, dimension="height", line_color=PEAK, line_dash="dotted"))
     if s.peak_source == "manual":
-        q = s.peak_suggested
-        items["peak suggested"] = [tau.scatter([q.x_mm], [q.tau_kpa], size=10, line_color=SUGGESTED, fill_color=None,
-                                               marker="diamond", line_width=2)]
+        items["peak suggested"] = [_draw(tau, Scatter(x="x_sug", y="tau_sug", size=10, line_color=SUGGESTED,
+                                                      fill_color=None, marker="diamond", line_width=2), points)]
     tau.add_layout(Legend(items=list(items.items()), location="bottom_right", label_text_font_size="9px"))
-    return gridplot([[tau, vert, void]], toolbar_location="right", merge_tools=True)
+    return linked_row([tau, vert, void])
 
 
 def _line_points(fit, sigma_max: float) -> tuple[list[float], list[float]]:

@@ -1,0 +1,75 @@
+"""Settings the interpretation file records: plain data with their own checks, no numerical stack.
+
+Kept apart from the modules that use them (:mod:`.reduce`, :mod:`.picks`, :mod:`.design`, which
+re-export them) so that reading and checking an interpretation file imports neither pandas nor
+scipy: ``shearbook record`` checks the file before it starts the kernel.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Final, Literal
+
+__all__ = ["PARTIAL_FACTOR_SETS", "AreaConvention", "PickSettings", "ReductionSettings"]
+
+AreaConvention = Literal["corrected", "nominal"]
+
+# EN 1997-1 Annex A, Table A.4 (recommended values): set -> (gamma_phi' on tan phi', gamma_c')
+PARTIAL_FACTOR_SETS: Final = {"M1": (1.0, 1.0), "M2": (1.25, 1.25)}
+
+
+@dataclass(frozen=True)
+class ReductionSettings:
+    """Settings of the reduction, recorded in the interpretation file and the record.
+
+    Attributes
+    ----------
+    area_convention
+        ``"corrected"`` divides forces by the overlap area of the two halves of the box at the
+        current displacement (default); ``"nominal"`` by the initial plan area.
+    smoothing_window_mm
+        Width of the Savitzky-Golay window (quadratic) used for the rate of dilation, in mm of
+        horizontal displacement, on a curve resampled at a uniform step of window/25.
+    peak_smoothing_mm
+        Width of the light Savitzky-Golay smoothing of the shear stress used to locate picks.
+    seating_fraction
+        The start of shear is taken where the shear force first reaches this fraction of its
+        maximum; the horizontal displacement before it is seating slack.
+    """
+
+    area_convention: AreaConvention = "corrected"
+    smoothing_window_mm: float = 0.5
+    seating_fraction: float = 0.02
+    peak_smoothing_mm: float = 0.25
+
+    def __post_init__(self) -> None:
+        if self.area_convention not in ("corrected", "nominal"):
+            raise ValueError(f"area_convention must be 'corrected' or 'nominal', not {self.area_convention!r}")
+        if not self.smoothing_window_mm > 0:
+            raise ValueError(f"smoothing_window_mm must be positive, not {self.smoothing_window_mm!r}")
+        if not self.peak_smoothing_mm > 0:
+            raise ValueError(f"peak_smoothing_mm must be positive, not {self.peak_smoothing_mm!r}")
+        if not 0 < self.seating_fraction < 0.5:
+            raise ValueError(f"seating_fraction must be between 0 and 0.5, not {self.seating_fraction!r}")
+
+
+@dataclass(frozen=True)
+class PickSettings:
+    """Tolerances of the suggestion rules (see the module docstring)."""
+
+    cs_window_mm: float = 2.0
+    cs_rate_tolerance: float = 0.01
+    cs_trend_tolerance: float = 0.02
+    distinct_peak_margin: float = 0.03
+    peak_rule: Literal["tau", "ratio"] = "tau"  # maximum shear stress, or maximum stress ratio tau/sigma
+    peak_dilation_offset_mm: float = 0.5  # flag when the peak is further than this from the maximum dilation rate
+    stick_slip_fraction: float = 0.02  # flag when the readings scatter about the smoothed peak by more than this
+    residual_tolerance: float = 0.03  # successive forward passes agree within this fraction
+
+    def __post_init__(self) -> None:
+        for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin",
+                     "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance"):
+            if not getattr(self, name) > 0:
+                raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
+        if self.peak_rule not in ("tau", "ratio"):
+            raise ValueError(f"peak_rule must be 'tau' or 'ratio', not {self.peak_rule!r}")
