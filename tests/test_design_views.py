@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
-from bokeh.models import GlyphRenderer, MultiLine, VArea
+from bokeh.models import GlyphRenderer, Legend, MultiLine, VArea
 
 from kernels_helpers import Interpretation, interpret
 from kernels_helpers.design import DESIGN_CAUTION
@@ -87,3 +87,29 @@ def test_power_law_angles_at_a_stress_the_engineer_names(results) -> None:
         if st.power is not None:  # tan phi_t = b tan phi_s (REFERENCES sec. 6 [C]); values from the stored fit
             assert f"{float(st.power.phi_secant_deg(75.0)):.1f} / {float(st.power.phi_tangent_deg(75.0)):.1f}" in html
     assert "at 75 kPa" in html
+
+
+def test_stage_row_has_one_toolbar_working_all_three_plots() -> None:
+    from bokeh.models import GridPlot, SaveTool, ToolProxy
+
+    from kernels_helpers.views.figures import stage_figure
+
+    results = interpret(EXAMPLE)  # with the example's interpretation file: a manual peak on BH03-D2
+    s = next(s for s in results.stages if s.peak_source == "manual")
+    row = stage_figure(s)
+    assert isinstance(row, GridPlot)
+    plots = [child for child, _, _ in row.children]
+    assert [p.name for p in plots] == [f"stage-{s.stage_id}-{k}" for k in ("tau", "y", "e")]
+    assert all(p.toolbar_location is None for p in plots)  # the row's toolbar replaces theirs
+    proxies = [t for t in row.toolbar.tools if isinstance(t, ToolProxy)]
+    assert {type(p.tools[0]).__name__ for p in proxies} == {"PanTool", "BoxZoomTool", "WheelZoomTool", "ResetTool",
+                                                            "HoverTool"}
+    for proxy in proxies:  # each proxy joins the same tool of the three plots
+        assert [next(p for p in plots if t in p.toolbar.tools) for t in proxy.tools] == plots
+    assert sum(isinstance(t, SaveTool) for t in row.toolbar.tools) == 1
+    tau = plots[0]
+    labels = [item.label.value for item in tau.select(type=Legend)[0].items]
+    assert labels == ["readings", "critical state (window mean)", "peak", "peak suggested"]
+    drawn = {(r.glyph.x, r.glyph.y): r.data_source.data for r in tau.renderers}
+    assert drawn[("x", "tau")]["tau"] == [s.peak.tau_kpa] and drawn[("x_sug", "tau_sug")]["tau_sug"] == [s.peak_suggested.tau_kpa]
+    assert list(drawn[("x", "tau")]["x"]) == [s.peak.x_mm]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import re
 from pathlib import Path
 
@@ -10,7 +11,7 @@ import nbformat
 import pytest
 
 from kernels_helpers import interpret, save_interpretation
-from kernels_helpers.errors import RecordError
+from kernels_helpers.errors import InterpretationFileError, RecordError
 from kernels_helpers.interpretation import Interpretation, StageDecision
 from kernels_helpers.record import TEMPLATE, execute_workbook, network_references, write_record
 
@@ -117,3 +118,40 @@ def test_record_does_not_touch_the_raw_readings(example_copy: Path, tmp_path: Pa
     before = {p: p.read_bytes() for p in (example_copy / "readings").iterdir()}
     write_record(example_copy, tmp_path / "r.html")
     assert {p: p.read_bytes() for p in (example_copy / "readings").iterdir()} == before
+
+
+def _kernels_of_this_process() -> list[int]:
+    """Kernel processes started by this test process (Linux /proc), still alive."""
+    me, found = os.getpid(), []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+            cmdline = (stat.parent / "cmdline").read_bytes()
+        except OSError:
+            continue
+        if int(fields[1]) == me and b"ipykernel" in cmdline and fields[0] != "Z":
+            found.append(int(stat.parent.name))
+    return found
+
+
+def test_a_bad_interpretation_file_stops_the_export_and_the_kernel(example_copy: Path, tmp_path: Path) -> None:
+    # the kernel is started before the interpretation file is checked (record.py): it must not outlive the error
+    (example_copy / "interpretation.json").write_text('{"schema": "shearbook.interpretation/1", "version": "x"',
+                                                      encoding="utf-8")
+    out = tmp_path / "never.html"
+    with pytest.raises(InterpretationFileError, match=r"interpretation\.json"):
+        write_record(example_copy, out)
+    assert not out.exists()
+    assert _kernels_of_this_process() == []
+
+
+def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_copy: Path, tmp_path: Path) -> None:
+    write_record(example_copy, tmp_path / "r.html")
+    assert _kernels_of_this_process() == []
+    nb = nbformat.read(TEMPLATE, as_version=4)
+    nb.cells.insert(3, nbformat.v4.new_code_cell("raise RuntimeError('early')"))
+    broken = tmp_path / "broken.ipynb"
+    nbformat.write(nb, broken)
+    with pytest.raises(RecordError):
+        write_record(example_copy, tmp_path / "never.html", template=broken)
+    assert _kernels_of_this_process() == []
