@@ -12,9 +12,9 @@ import pytest
 
 from kernels_helpers import Interpretation, interpret, load_project
 from kernels_helpers.checks import hampel_spikes, normal_load_flags, phase_flags, size_flags
+from kernels_helpers.dilatancy import interlocking_free_ratio
 from kernels_helpers.errors import ReadingsError
 from kernels_helpers.readings import read_stage
-from kernels_helpers.dilatancy import interlocking_free_ratio
 from kernels_helpers.reduce import (
     ReductionSettings,
     corrected_area_mm2,

@@ -27,7 +27,6 @@ from kernels_helpers.interpretation import save_interpretation  # noqa: E402
 from kernels_helpers.pipeline import analyse_stage, assemble_results  # noqa: E402
 from kernels_helpers.views.widgets import live_workbook  # noqa: E402
 
-
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync"]
 
