@@ -27,17 +27,18 @@ class InterpretationDiff:
     settings: tuple[str, ...]
     signoff: tuple[str, ...]
     envelopes: tuple[str, ...]
+    design: tuple[str, ...] = ()
 
     @property
     def empty(self) -> bool:
-        return not (self.stages or self.settings or self.signoff or self.envelopes)
+        return not (self.stages or self.settings or self.signoff or self.envelopes or self.design)
 
     def to_text(self, before: str = "before", after: str = "after") -> str:
         if self.empty:
             return f"No difference between {before} and {after}.\n"
         out = [f"Changes from {before} to {after}:"]
         for title, lines in (("Stages", self.stages), ("Settings", self.settings), ("Sign-off", self.signoff),
-                             ("Envelopes", self.envelopes)):
+                             ("Envelopes", self.envelopes), ("Characteristic and design values", self.design)):
             if lines:
                 out.append(f"{title}:")
                 out.extend(f"  - {line}" for line in lines)
@@ -55,7 +56,7 @@ def _flat(d: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
     return out
 
 
-def _stage_lines(a: StageResult, b: StageResult) -> list[str]:
+def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> list[str]:
     sid, lines = a.stage_id, []
     if a.included != b.included:
         lines.append(f"{sid}: excluded ({b.exclusion_reason})" if not b.included else f"{sid}: restored to the envelopes")
@@ -75,9 +76,21 @@ def _stage_lines(a: StageResult, b: StageResult) -> list[str]:
             f" -> {b.cs_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
             f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa" + (f"; note: {b.cs_note}" if b.cs_note else "")
         )
+    ra, rb = a.residual, b.residual
+    if a.residual_source != b.residual_source or (ra and ra.tau_kpa) != (rb and rb.tau_kpa):
+        lines.append(f"{sid}: residual {a.residual_source} ({_residual(ra)}) -> {b.residual_source} ({_residual(rb)})"
+                     + (f"; note: {residual_note}" if residual_note else ""))
     if a.note != b.note:
         lines.append(f"{sid}: note changed to \"{b.note}\"" if b.note else f"{sid}: note removed")
     return lines
+
+
+def _residual(r) -> str:
+    if r is None:
+        return "none"
+    if r.tau_kpa is None:
+        return "not reached"
+    return f"tau {r.tau_kpa:.1f} kPa" + ("" if r.reached else ", not reached")
 
 
 def _f(value: float, sign: str = "") -> str:
@@ -113,10 +126,44 @@ def _envelope_lines(ra: Results, rb: Results) -> list[str]:
     return lines
 
 
+_STAMPS = ("author", "time_utc")  # who and when: reported with the change, not as one
+
+
+def _design_lines(before: Interpretation, after: Interpretation, ra: Results, rb: Results) -> list[str]:
+    da, db = dataclasses.asdict(before.design), dataclasses.asdict(after.design)
+    changed = [k for k in da if k not in _STAMPS and da[k] != db[k]]
+    lines = [f"{k}: {da[k]!r} -> {db[k]!r}" for k in changed]
+    if changed and after.design.author:
+        lines.append(f"choices changed by {after.design.author} at {after.design.time_utc}")
+    xa, xb = ra.design, rb.design
+    if xa is None or xb is None:
+        if (xa is None) != (xb is None):
+            lines.append("characteristic values " + ("no longer derived" if xb is None else "now derived"))
+        return lines
+    ka, kb = (xa.phi_k_deg, xa.c_k_kpa), (xb.phi_k_deg, xb.c_k_kpa)
+    if ka != kb:
+        lines.append(_pair("phi'_k", "deg", ka[0], kb[0]) + ", " + _pair("c'_k", "kPa", ka[1], kb[1]))
+    if xa.design and xb.design:
+        a0, b0 = xa.design[0], xb.design[0]  # the chosen set
+        if (a0.set_name, a0.phi_d_deg, a0.c_d_kpa) != (b0.set_name, b0.phi_d_deg, b0.c_d_kpa):
+            lines.append(f"design values ({a0.set_name} -> {b0.set_name}): " + _pair("phi'_d", "deg", a0.phi_d_deg,
+                                                                                    b0.phi_d_deg)
+                         + ", " + _pair("c'_d", "kPa", a0.c_d_kpa, b0.c_d_kpa))
+    return lines
+
+
+def _pair(name: str, unit: str, a: float | None, b: float | None) -> str:
+    if a is None or b is None:
+        return f"{name} {'none' if a is None else _f(a)} -> {'none' if b is None else _f(b)} {unit}"
+    return f"{name} {_f(a)} -> {_f(b)} {unit} ({_f(b - a, '+')})"
+
+
 def diff_interpretations(project: Project, before: Interpretation, after: Interpretation) -> InterpretationDiff:
     """Compare two interpretations of ``project`` by their decisions and by their results."""
     ra, rb = interpret(project, before), interpret(project, after)
-    stages = [line for sa, sb in zip(ra.stages, rb.stages, strict=True) for line in _stage_lines(sa, sb)]
+    notes = {sid: d.residual.note for sid, d in after.stages.items()}
+    stages = [line for sa, sb in zip(ra.stages, rb.stages, strict=True)
+              for line in _stage_lines(sa, sb, notes.get(sb.stage_id, ""))]
     fa, fb = _flat(dataclasses.asdict(before.settings)), _flat(dataclasses.asdict(after.settings))
     settings = [f"{k}: {fa.get(k)!r} -> {fb.get(k)!r}" for k in sorted(set(fa) | set(fb)) if fa.get(k) != fb.get(k)]
     signoff = []
@@ -124,4 +171,5 @@ def diff_interpretations(project: Project, before: Interpretation, after: Interp
         last = after.signoff.history[-1] if after.signoff.history else {}
         who = f" by {last.get('who')} at {last.get('time_utc')}" if last else ""
         signoff.append(f"{before.signoff.state} -> {after.signoff.state}{who}")
-    return InterpretationDiff(tuple(stages), tuple(settings), tuple(signoff), tuple(_envelope_lines(ra, rb)))
+    return InterpretationDiff(tuple(stages), tuple(settings), tuple(signoff), tuple(_envelope_lines(ra, rb)),
+                              tuple(_design_lines(before, after, ra, rb)))

@@ -103,6 +103,29 @@ shear_force = {{ column = "f", unit = "N" }}
 """
 
 
+def reversal_readings(ratios: list[float], normal_n: float, seed: int, *, taylor_first_pass: bool = True,
+                      noise_n: float = 0.5, settlement_mm: float = 0.0) -> dict[str, np.ndarray]:
+    """A reversal test: forward 8 mm, back to 0, forward again...; pass k settles on the ratio ``ratios[k]``.
+
+    The first pass follows the Taylor model (peak, then critical state) unless ``taylor_first_pass``
+    is False; later passes rise as tanh(u / 0.3 mm). The specimen settles by ``settlement_mm`` over
+    the test (square-root law), with Gaussian noise of ``noise_n`` on the force.
+    """
+    xs, fs = [], []
+    for k, r in enumerate(ratios):
+        forward = k % 2 == 0
+        x = np.linspace(0.0, 8.0, 401) if forward else np.linspace(8.0, 0.0, 401)
+        u = x if forward else 8.0 - x
+        ratio = Model().ratio(np.clip(u - 0.2, 0, None)) if k == 0 and taylor_first_pass else r * np.tanh(u / 0.3)
+        f = (1.0 if forward else -1.0) * ratio * normal_n
+        xs.append(x if k == 0 else x[1:])
+        fs.append(f if k == 0 else f[1:])
+    x = np.concatenate(xs)
+    f = np.concatenate(fs) + np.random.default_rng(seed).normal(0.0, noise_n, len(x))
+    y = -settlement_mm * np.sqrt(np.arange(len(x)) / len(x))
+    return {"t": np.arange(len(x)) * 2.0, "x": x, "y": y, "f": f}
+
+
 def write_project(folder: Path, stages: dict[str, tuple], normal_column: bool = False) -> Path:
     """A project with one stage per entry: id -> (columns, normal force N, test type[, test set])."""
     folder.mkdir(parents=True, exist_ok=True)

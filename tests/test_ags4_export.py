@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 from conftest import EXAMPLE
 from python_ags4 import AGS4  # the AGS4 data-format group's own library: checker, reader, dictionary
-from synthetic import Model, write_project
+from synthetic import Model, reversal_readings, write_project
 
 from kernels_helpers.ags4_export import PARAMETER_CAUTION, write_ags4
 from kernels_helpers.cli import main
@@ -206,23 +206,9 @@ def test_cli_export_ags4(example_copy: Path, tmp_path: Path) -> None:
     assert _errors(out) == {}
 
 
-def _reversal(normal_n: float, ratios: list[float], seed: int) -> dict[str, np.ndarray]:
-    """Forward 8 mm, back, forward...: pass k ends on the stress ratio ratios[k] (invented readings)."""
-    xs, fs = [], []
-    for k, r in enumerate(ratios):
-        x = np.linspace(0.0, 8.0, 401) if k % 2 == 0 else np.linspace(8.0, 0.0, 401)
-        u = x if k % 2 == 0 else 8.0 - x
-        f = (1.0 if k % 2 == 0 else -1.0) * r * np.tanh(u / 0.3) * normal_n
-        xs.append(x if k == 0 else x[1:])
-        fs.append(f if k == 0 else f[1:])
-    x = np.concatenate(xs)
-    f = np.concatenate(fs) + np.random.default_rng(seed).normal(0.0, 0.3, len(x))
-    return {"t": np.arange(len(x)) * 2.0, "x": x, "y": -0.02 * np.sqrt(np.arange(len(x)) / len(x)), "f": f}
-
-
 def test_reversal_tests_export_the_residual(tmp_path: Path) -> None:
     ratios = [0.62, 0.55, 0.45, 0.42, 0.40, 0.40, 0.40]
-    stages = {f"R{k}": (_reversal(n, ratios, k), n, "reversal") for k, n in enumerate((180.0, 360.0, 720.0), start=1)}
+    stages = {f"R{k}": (reversal_readings(ratios, n, k, taylor_first_pass=False, noise_n=0.3, settlement_mm=0.02), n, "reversal") for k, n in enumerate((180.0, 360.0, 720.0), start=1)}
     folder = write_project(tmp_path / "p", stages)
     text = (folder / "project.toml").read_text(encoding="utf-8")
     for k, (_, normal, _) in enumerate(stages.values(), start=1):  # invented sample identification, one per stage

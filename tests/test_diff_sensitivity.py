@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pytest
 from scipy import stats
+from synthetic import reversal_readings, write_project
 
 from kernels_helpers import interpret, load_project, save_interpretation
 from kernels_helpers.cli import main
@@ -119,3 +120,35 @@ def test_a_changed_consolidation_file_marks_its_stage_stale(example_copy: Path) 
     assert any(f.startswith("raw file readings/BH03-D1-consolidation.csv (consolidation stage) changed since the "
                             "interpretation was saved") for f in after.flags), after.flags
     assert not interpret(example_copy).stage("BH03-D2").stale
+
+
+def test_diff_reports_changed_design_choices_and_their_effect(example_copy: Path, base: Interpretation) -> None:
+    project = load_project(example_copy)
+    after = base.with_design(AUTHOR, limit_state="local", partial_factors="M1", gamma_phi=1.0, gamma_c=1.0)
+    report = diff_interpretations(project, base, after)
+    assert "limit_state: 'large zone' -> 'local'" in report.design and "partial_factors: 'M2' -> 'M1'" in report.design
+    assert f"choices changed by {AUTHOR} at {after.design.time_utc}" in report.design
+    da, db = interpret(project, base).design, interpret(project, after).design
+    assert f"phi'_k {da.phi_k_deg:.2f} -> {db.phi_k_deg:.2f} deg" in next(x for x in report.design if x.startswith("phi'_k"))
+    a0, b0 = da.design[0], db.design[0]  # the chosen set: M2 before, M1 after
+    line = next(x for x in report.design if x.startswith("design values"))
+    assert line.startswith("design values (M2 -> M1): ") and f"phi'_d {a0.phi_d_deg:.2f} -> {b0.phi_d_deg:.2f} deg" in line
+    assert "Characteristic and design values:" in report.to_text()
+    assert not report.stages and not report.envelopes  # the picks and fits did not move
+    assert diff_interpretations(project, after, after).empty
+
+
+def test_diff_reports_a_manual_residual(tmp_path: Path) -> None:
+    ratios = [0.62, 0.55, 0.48, 0.45, 0.42]  # forward passes 1, 3, 5 still falling: the rule says "not reached"
+    folder = write_project(tmp_path / "p", {f"R{k}": (reversal_readings(ratios, n, k), n, "reversal")
+                                            for k, n in enumerate((360.0, 720.0), start=1)})
+    project = load_project(folder)
+    before = Interpretation()
+    after = before.with_residual("R1", 5, 6.0, 8.0, AUTHOR, "last pass, end of travel")
+    report = diff_interpretations(project, before, after)
+    s, r = interpret(project, before).stage("R1").residual, interpret(project, after).stage("R1").residual
+    assert not s.reached and r.reached  # the rule's last forward pass, then the engineer's window
+    assert (f"R1: residual suggested (tau {s.tau_kpa:.1f} kPa, not reached) -> manual (tau {r.tau_kpa:.1f} kPa); "
+            "note: last pass, end of travel") in report.stages
+    assert diff_interpretations(project, after, after.back_to_suggestion("R1", "residual")).stages == (
+        f"R1: residual manual (tau {r.tau_kpa:.1f} kPa) -> suggested (tau {s.tau_kpa:.1f} kPa, not reached)",)

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from bokeh.core.serialization import Serializer
-from synthetic import Model, readings, write_project
+from synthetic import Model, readings, reversal_readings, write_project
 
 from kernels_helpers import interpret
 from kernels_helpers.views.widgets import LiveWorkbook, StagePanel, live_workbook
@@ -22,27 +22,11 @@ from kernels_helpers.views.widgets import LiveWorkbook, StagePanel, live_workboo
 RATIOS = [0.62, 0.55, 0.48, 0.45, 0.42]  # passes 1-5 (forward 1, 3, 5): still falling, residual not reached
 
 
-def _reversal(ratios: list[float], normal_n: float, seed: int) -> dict[str, np.ndarray]:
-    """Forward 8 mm, back to 0, forward again...; pass k settles on the stress ratio ``ratios[k]``."""
-    xs, fs = [], []
-    for k, r in enumerate(ratios):
-        forward = k % 2 == 0
-        x = np.linspace(0.0, 8.0, 401) if forward else np.linspace(8.0, 0.0, 401)
-        u = x if forward else 8.0 - x
-        ratio = r * np.tanh(u / 0.3) if k else Model().ratio(np.clip(u - 0.2, 0, None))
-        f = (1.0 if forward else -1.0) * ratio * normal_n
-        xs.append(x if k == 0 else x[1:])
-        fs.append(f if k == 0 else f[1:])
-    x = np.concatenate(xs)
-    f = np.concatenate(fs) + np.random.default_rng(seed).normal(0.0, 0.5, len(x))
-    return {"t": np.arange(len(x)) * 2.0, "x": x, "y": np.zeros(len(x)), "f": f}
-
-
 @pytest.fixture
 def folder(tmp_path: Path) -> Path:
     return write_project(tmp_path / "p", {
-        "R1": (_reversal(RATIOS, 360.0, 1), 360.0, "reversal"),
-        "R2": (_reversal(RATIOS, 720.0, 2), 720.0, "reversal"),
+        "R1": (reversal_readings(RATIOS, 360.0, 1), 360.0, "reversal"),
+        "R2": (reversal_readings(RATIOS, 720.0, 2), 720.0, "reversal"),
         "S1": (readings(Model(normal_n=540.0, seed=3)), 540.0, "single-stage"),
     })
 
