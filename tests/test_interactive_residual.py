@@ -111,7 +111,21 @@ def test_residual_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
     after = wb.controller.results.envelope("synthetic", "residual")
     assert after.stage_ids == ("R1", "R2") and after.chosen is not None  # both picked: the envelope is fitted
     assert 'data-kind="residual"' in wb.parameters.value
+    plot = next(e for e in wb.envelope_plots if e.group == "synthetic")  # the live envelope plot draws it too
+    drawn = plot.sources["residual"]
+    assert drawn["in"].data["stage"] == ["R1", "R2"] and drawn["in"].data["y"] == list(after.tau_kpa)
+    fit = after.chosen
+    assert drawn["line"].data["y"][-1] == fit.intercept + fit.slope * drawn["line"].data["x"][-1]
     _matches_interpret(wb)
+
+
+def test_the_live_envelope_plot_has_a_residual_envelope_only_with_reversal_tests(wb: LiveWorkbook,
+                                                                                tmp_path: Path) -> None:
+    assert [k for k, _, _ in wb.envelope_plots[0].kinds] == ["peak", "critical_state", "residual"]
+    plain = write_project(tmp_path / "plain", {f"S{k}": (readings(Model(normal_n=n, seed=k)), n, "single-stage")
+                                               for k, n in enumerate((180.0, 360.0, 720.0), start=1)})
+    other = live_workbook(plain, author="T. Tester")
+    assert all([k for k, _, _ in e.kinds] == ["peak", "critical_state"] for e in other.envelope_plots)
 
 
 def test_refused_residual_picks_leave_the_file_alone(wb: LiveWorkbook) -> None:

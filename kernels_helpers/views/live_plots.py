@@ -210,9 +210,12 @@ def _line(fit, sigma_max: float) -> dict[str, list[float]]:
 
 
 class EnvelopePlot:
-    """tau against sigma' for one group: included and excluded points, both envelopes and bands."""
+    """tau against sigma' for one group: included and excluded points, the envelopes and their bands.
 
-    KINDS = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"))
+    Peak and critical state always; residual when the group holds reversal tests.
+    """
+
+    STYLES = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"), ("residual", RESIDUAL, "square"))
 
     def __init__(self, results: Results, group: str) -> None:
         self.group = group
@@ -224,7 +227,9 @@ class EnvelopePlot:
         self.sources: dict[str, dict[str, ColumnDataSource]] = {}
         self._drawn: dict[str, tuple[EnvelopeResult, float, bool]] = {}
         items = []
-        for kind, colour, marker in self.KINDS:
+        present = {e.kind for e in results.envelopes if e.group == group}
+        self.kinds = [st for st in self.STYLES if st[0] in present or st[0] != "residual"]
+        for kind, colour, marker in self.kinds:
             src = {n: ColumnDataSource({k: [] for k in cols}) for n, cols in (
                 ("in", ("x", "y", "stage")), ("out", ("x", "y", "stage")), ("line", ("x", "y", "lo", "hi")),
                 ("curve", ("x", "y")))}
@@ -251,11 +256,11 @@ class EnvelopePlot:
         members = [s for s in results.stages
                    if self.group in ((s.test_set or "all stages"), f"stratum {s.stratum} (all sets)")]
         sigma_max = max([1.0, *(s.cs.sigma_kpa for s in members), *(s.peak.sigma_kpa for s in members)])
-        for kind, _, _ in self.KINDS:
+        for kind, _, _ in self.kinds:
             env: EnvelopeResult = results.envelope(self.group, kind)
             src = self.sources[kind]
-            pick = (lambda s: s.peak) if kind == "peak" else (lambda s: s.cs)
-            out = [s for s in members if not s.included]
+            pick = {"peak": lambda s: s.peak, "critical_state": lambda s: s.cs, "residual": lambda s: s.residual}[kind]
+            out = [s for s in members if not s.included and pick(s) is not None and pick(s).tau_kpa is not None]
             _set(src["in"], {"x": list(env.sigma_kpa), "y": list(env.tau_kpa), "stage": list(env.stage_ids)})
             _set(src["out"], {"x": [pick(s).sigma_kpa for s in out], "y": [pick(s).tau_kpa for s in out],
                               "stage": [s.stage_id for s in out]})
