@@ -113,8 +113,8 @@ def _verify(args: argparse.Namespace) -> int:
     if args.record.is_dir():
         def bar(done: int, total: int, record: Path) -> None:
             filled = int(30 * done / total)
-            print(f"\r[{'#' * filled}{'.' * (30 - filled)}] {done}/{total} {record.name[:40]:40s}", end="", file=sys.stderr,
-                  flush=True)
+            print(f"\r[{'#' * filled}{'.' * (30 - filled)}] {done}/{total} {record.name[:40]:40s}", end="",
+                  file=sys.stderr, flush=True)
 
         summary = args.summary or args.record / "verify-summary.csv"
         outcome = verify_folder(args.record, summary, args.project, args.jobs, bar)
@@ -160,10 +160,10 @@ def _open(args: argparse.Namespace) -> int:
     if jupyter is None:
         raise ShearbookError("jupyter-lab is not installed in this environment; run the README's set-up command.")
     url = f"http://{args.ip}:{args.port}/lab/tree/{notebook.name}"
-    print(f"Opening the workbook {notebook} in JupyterLab.\nURL: {url}  (JupyterLab prints the URL with its token below)",
-          flush=True)
-    cmd = [jupyter, f"--ServerApp.root_dir={project.root}", f"--ServerApp.ip={args.ip}", f"--ServerApp.port={args.port}",
-           notebook.name]
+    print(f"Opening the workbook {notebook} in JupyterLab.\nURL: {url}  "
+          "(JupyterLab prints the URL with its token below)", flush=True)
+    cmd = [jupyter, f"--ServerApp.root_dir={project.root}", f"--ServerApp.ip={args.ip}",
+           f"--ServerApp.port={args.port}", notebook.name]
     if args.no_browser:
         cmd.append("--no-browser")
     if hasattr(os, "geteuid") and os.geteuid() == 0:  # JupyterLab refuses root without it (containers, CI)
@@ -183,16 +183,20 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("record", help="write the self-contained HTML record of a project (headless)")
     p.add_argument("project", type=Path)
     p.add_argument("-o", "--output", type=Path, help="record file (default: PROJECT/records/shearbook-VIEW-UTC.html)")
-    p.add_argument("-i", "--interpretation", type=Path, help="interpretation file (default: PROJECT/interpretation.json)")
-    p.add_argument("--view", choices=("report", "audit"), default="report", help="report hides the code; audit shows it")
+    p.add_argument("-i", "--interpretation", type=Path,
+                   help="interpretation file (default: PROJECT/interpretation.json)")
+    p.add_argument("--view", choices=("report", "audit"), default="report",
+                   help="report hides the code; audit shows it")
     p.set_defaults(func=_record)
     p = sub.add_parser("verify", help="re-run a record (or every record under a folder) and compare every number")
     p.add_argument("record", type=Path, help="a record .html file, or a folder of records (batch, in parallel)")
-    p.add_argument("--project", type=Path, help="project folder (default: the folder above the record holding project.toml)")
+    p.add_argument("--project", type=Path,
+                   help="project folder (default: the folder above the record holding project.toml)")
     p.add_argument("--jobs", type=int, help="parallel workers for a folder (default: all cores)")
     p.add_argument("--summary", type=Path, help="CSV summary table for a folder (default: FOLDER/verify-summary.csv)")
     p.set_defaults(func=_verify)
-    p = sub.add_parser("signoff", help="record a sign-off step (draft -> checked -> approved) in the interpretation file")
+    p = sub.add_parser("signoff",
+                       help="record a sign-off step (draft -> checked -> approved) in the interpretation file")
     p.add_argument("project", type=Path)
     p.add_argument("--state", choices=("draft", "checked", "approved"), required=True)
     p.add_argument("--who", required=True, help="name of the person signing")

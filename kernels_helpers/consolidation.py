@@ -29,8 +29,7 @@ import numpy as np
 from scipy.signal import savgol_filter
 
 __all__ = ["T50", "T90", "CasagrandeFit", "ConsolidationResult", "RateCheck", "TaylorFit", "analyse_consolidation",
-           "consolidation_dict",
-           "casagrande", "rate_check", "taylor", "terzaghi_u"]
+           "casagrande", "consolidation_dict", "rate_check", "taylor", "terzaghi_u"]
 
 T50, T90 = 0.197, 0.848  # time factors (REFERENCES sec. 2, published)
 SECONDS_PER_YEAR = 365.25 * 86400.0

@@ -59,7 +59,8 @@ def _flat(d: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
 def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> list[str]:
     sid, lines = a.stage_id, []
     if a.included != b.included:
-        lines.append(f"{sid}: excluded ({b.exclusion_reason})" if not b.included else f"{sid}: restored to the envelopes")
+        lines.append(f"{sid}: excluded ({b.exclusion_reason})" if not b.included
+                     else f"{sid}: restored to the envelopes")
     elif not b.included and a.exclusion_reason != b.exclusion_reason:
         lines.append(f"{sid}: reason for exclusion changed to \"{b.exclusion_reason}\"")
     pa, pb = a.peak, b.peak
@@ -72,7 +73,8 @@ def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> lis
     ca, cb = a.cs, b.cs
     if (a.cs_source, ca.x_from_mm, ca.x_to_mm) != (b.cs_source, cb.x_from_mm, cb.x_to_mm):
         lines.append(
-            f"{sid}: critical-state window {a.cs_source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm (tau {ca.tau_kpa:.1f} kPa)"
+            f"{sid}: critical-state window {a.cs_source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm "
+            f"(tau {ca.tau_kpa:.1f} kPa)"
             f" -> {b.cs_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
             f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa" + (f"; note: {b.cs_note}" if b.cs_note else "")
         )

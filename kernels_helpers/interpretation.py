@@ -178,7 +178,9 @@ class DesignChoices:
             if getattr(self, name) not in allowed:
                 raise ValueError(f"{name} must be one of {', '.join(map(repr, allowed))}, not {getattr(self, name)!r}")
         if not (self.gamma_phi > 0 and self.gamma_c > 0):
-            raise ValueError(f"partial factors must be positive, not gamma_phi {self.gamma_phi!r}, gamma_c {self.gamma_c!r}")
+            raise ValueError(
+                f"partial factors must be positive, not gamma_phi {self.gamma_phi!r}, gamma_c {self.gamma_c!r}"
+            )
         table = PARTIAL_FACTOR_SETS.get(self.partial_factors)
         if table is not None and table != (self.gamma_phi, self.gamma_c):
             raise ValueError(
@@ -256,7 +258,9 @@ class Interpretation:
             raise ValueError(f"sign-off state must be one of {', '.join(order)}, not {state!r}")
         now = order.index(self.signoff.state)
         if state != "draft" and order.index(state) != now + 1:
-            raise ValueError(f"sign-off goes draft -> checked -> approved; cannot go from {self.signoff.state} to {state}")
+            raise ValueError(
+                f"sign-off goes draft -> checked -> approved; cannot go from {self.signoff.state} to {state}"
+            )
         if not who.strip():
             raise ValueError("a sign-off needs the name of the person")
         event = {"state": state, "who": who, "time_utc": utc_now(), "note": note}

@@ -29,7 +29,8 @@ class LoadStep:
     force_n: float
 
 
-def split_by_normal_load(normal_force_n: np.ndarray, min_rows: int = 50, tolerance: float = 0.03) -> tuple[LoadStep, ...]:
+def split_by_normal_load(normal_force_n: np.ndarray, min_rows: int = 50,
+                         tolerance: float = 0.03) -> tuple[LoadStep, ...]:
     """Runs of steady normal force (see the module docstring), in file order."""
     f = np.asarray(normal_force_n, dtype=float)
     steps: list[LoadStep] = []
@@ -84,8 +85,9 @@ def expand_multistage(spec: StageSpec, readings: StageReadings) -> list[tuple[St
             spec,
             id=f"{spec.id}/{k}",
             specimen=dataclasses.replace(spec.specimen, consolidation_settlement_mm=settled),
-            normal_load=NormalLoad(step.force_n, f"stage {k} of {len(steps)} of a multi-stage test: median normal force "
-                                                 f"{step.force_n:.1f} N of file rows {step.start + 1}-{step.stop}"),
+            normal_load=NormalLoad(step.force_n, f"stage {k} of {len(steps)} of a multi-stage test: "
+                                                 f"median normal force {step.force_n:.1f} N of file rows "
+                                                 f"{step.start + 1}-{step.stop}"),
             description=f"{spec.description} (stage {k} of {len(steps)})".strip(),
         )
         continued = k > 1 and float(part["x_mm"].iloc[0]) - x_first > 0.5

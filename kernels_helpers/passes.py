@@ -7,6 +7,7 @@ displacement alone: a pass is a run of readings moving one way over at least ``m
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 
 import numpy as np
@@ -102,7 +103,7 @@ def end_of_pass_window(x_mm: np.ndarray, labels: np.ndarray, pass_no: int,
 def residual_strength(passes: tuple[PassStress, ...], tolerance: float = 0.03) -> Residual:
     """First two successive forward passes whose end stresses agree within ``tolerance`` (fraction)."""
     fwd = [p for p in passes if p.forward]
-    for a, b in zip(fwd, fwd[1:], strict=False):
+    for a, b in itertools.pairwise(fwd):
         if abs(b.tau_kpa - a.tau_kpa) <= tolerance * b.tau_kpa:
             return Residual(True, b.tau_kpa, b.sigma_kpa, (a.pass_no, b.pass_no),
                             f"residual reached: forward passes {a.pass_no} and {b.pass_no} agree within "
@@ -112,8 +113,9 @@ def residual_strength(passes: tuple[PassStress, ...], tolerance: float = 0.03) -
     last = fwd[-2:]
     change = (last[1].tau_kpa - last[0].tau_kpa) / last[1].tau_kpa
     return Residual(False, last[1].tau_kpa, last[1].sigma_kpa, None,
-                    f"residual not reached: the last two forward passes ({last[0].pass_no}, {last[1].pass_no}) differ by "
-                    f"{change * 100:+.1f} % (tolerance {tolerance * 100:g} %); the last value is an upper bound")
+                    f"residual not reached: the last two forward passes ({last[0].pass_no}, {last[1].pass_no}) "
+                    f"differ by {change * 100:+.1f} % (tolerance {tolerance * 100:g} %); "
+                    "the last value is an upper bound")
 
 
 def residual_over_window(x_mm: np.ndarray, tau_kpa: np.ndarray, sigma_kpa: np.ndarray, labels: np.ndarray,
@@ -123,7 +125,9 @@ def residual_over_window(x_mm: np.ndarray, tau_kpa: np.ndarray, sigma_kpa: np.nd
     sel = (labels == pass_no) & (x_mm >= lo) & (x_mm <= hi)
     n = int(np.count_nonzero(sel))
     if n < 5:
-        raise ValueError(f"the residual window {lo:.2f}-{hi:.2f} mm on pass {pass_no} holds {n} readings; it needs at least 5")
+        raise ValueError(
+            f"the residual window {lo:.2f}-{hi:.2f} mm on pass {pass_no} holds {n} readings; it needs at least 5"
+        )
     tau, sigma = float(np.mean(np.abs(tau_kpa[sel]))), float(np.mean(sigma_kpa[sel]))
     return Residual(True, tau, sigma, None, f"residual picked by hand: pass {pass_no}, {lo:.2f}-{hi:.2f} mm, "
                                            f"mean |tau| of {n} readings" + (f" ({note})" if note else ""))

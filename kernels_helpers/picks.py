@@ -10,8 +10,8 @@ Rules (also stated in the contributor guide and the record):
   "reached" when, over that window, the mean rate of dilation is within ``cs_rate_tolerance`` of
   zero and the fitted trend of the stress ratio tau/sigma changes it by less than
   ``cs_trend_tolerance`` (a fraction of the mean) across the window (the ratio, not tau: on the
-  corrected area both stresses grow as the contact shrinks while the strength is steady). Otherwise the value is still reported, with the flag
-  "critical state not reached" and the numbers.
+  corrected area both stresses grow as the contact shrinks while the strength is steady).
+  Otherwise the value is still reported, with the flag "critical state not reached" and the numbers.
 """
 
 from __future__ import annotations
@@ -157,8 +157,8 @@ def suggest_peak(reduced: ReducedStage, cs: WindowValues, settings: PickSettings
         return x_peak, "no distinct peak: the maximum shear stress lies in the critical-state window"
     if excess < settings.distinct_peak_margin:
         return x_peak, (
-            f"no distinct peak: the maximum {'shear stress' if settings.peak_rule == 'tau' else 'stress ratio'} exceeds "
-            f"the critical state by {excess * 100:.1f} % "
+            f"no distinct peak: the maximum {'shear stress' if settings.peak_rule == 'tau' else 'stress ratio'} "
+            f"exceeds the critical state by {excess * 100:.1f} % "
             f"(less than {settings.distinct_peak_margin * 100:g} %)"
         )
     return x_peak, None
@@ -187,10 +187,11 @@ def peak_flags(reduced: ReducedStage, peak: PointValues, settings: PickSettings)
     dev = np.abs(rows["tau_kpa"].to_numpy()[near] - rows["tau_smooth_kpa"].to_numpy()[near])
     if dev.size and float(np.percentile(dev, 95)) > settings.stick_slip_fraction * peak.tau_kpa:
         flags.append(f"stick-slip or noise near the peak: readings scatter by {float(np.percentile(dev, 95)):.1f} kPa "
-                     f"({float(np.percentile(dev, 95)) / peak.tau_kpa * 100:.1f} % of the peak) about the smoothed curve; "
-                     "the peak value is uncertain by about that much")
+                     f"({float(np.percentile(dev, 95)) / peak.tau_kpa * 100:.1f} % of the peak) "
+                     "about the smoothed curve; the peak value is uncertain by about that much")
     x_raw_max = float(x[int(np.argmax(rows["tau_kpa"].to_numpy()))])
     if abs(x_raw_max - peak.x_mm) > 0.5:
-        flags.append(f"the largest single reading is at {x_raw_max:.2f} mm, {abs(x_raw_max - peak.x_mm):.2f} mm from the "
+        flags.append(f"the largest single reading is at {x_raw_max:.2f} mm, "
+                     f"{abs(x_raw_max - peak.x_mm):.2f} mm from the "
                      f"peak of the smoothed curve at {peak.x_mm:.2f} mm: noise or stick-slip may move the peak")
     return tuple(flags)

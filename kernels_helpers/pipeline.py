@@ -34,7 +34,8 @@ from .results import EnvelopeResult, Results, StageResult
 from .sensitivity import leave_one_out
 from .stage_checks import check_stage
 
-__all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance", "raw_file_hashes", "read_all", "stage_units"]
+__all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance",
+           "raw_file_hashes", "read_all", "stage_units"]
 
 DEPENDENCIES = ("numpy", "scipy", "pandas")
 
@@ -170,15 +171,17 @@ def pair_flags(stages: tuple[StageResult, ...], ratio_tolerance: float = 0.05, e
             for me, other in ((a, b), (b, a)):
                 if dr > ratio_tolerance:
                     extra[me.stage_id].append(
-                        f"critical-state stress ratio {me.cs.ratio:.3f} differs from {other.cs.ratio:.3f} of {other.stage_id} "
-                        f"({other.test_set}) at the same normal stress by {dr * 100:.1f} %: dense and loose specimens should "
-                        "reach the same critical state; check both picks")
+                        f"critical-state stress ratio {me.cs.ratio:.3f} differs from {other.cs.ratio:.3f} "
+                        f"of {other.stage_id} ({other.test_set}) at the same normal stress by {dr * 100:.1f} %: "
+                        "dense and loose specimens should reach the same critical state; check both picks")
                 if de > e_tolerance:
                     extra[me.stage_id].append(
                         f"void ratio at critical state {me.cs.e:.3f} differs from {other.cs.e:.3f} of {other.stage_id} "
-                        f"({other.test_set}) by {de:.3f}: the specimen-average void ratio may not represent the shear zone, "
-                        "or critical state was not reached")
-    return tuple(dataclasses.replace(s, flags=(*s.flags, *extra[s.stage_id])) if extra[s.stage_id] else s for s in stages)
+                        f"({other.test_set}) by {de:.3f}: the specimen-average void ratio may not represent "
+                        "the shear zone, or critical state was not reached")
+    return tuple(
+        dataclasses.replace(s, flags=(*s.flags, *extra[s.stage_id])) if extra[s.stage_id] else s for s in stages
+    )
 
 
 def _groups(stages: Iterable[StageResult]) -> dict[str, list[StageResult]]:
@@ -211,7 +214,8 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
     reason = None
     reported = fit.cohesion
     if free is None:
-        reason = f"{len(used)} included stage(s) with a {kind.replace('_', '-')} value: a fit with c' free needs 3 or more"
+        reason = (f"{len(used)} included stage(s) with a {kind.replace('_', '-')} value: "
+                  "a fit with c' free needs 3 or more")
         if kind == "peak" and len(used) < len(members):
             reason += " (stages without a distinct peak and excluded stages do not count)"
         if origin is not None:
@@ -242,7 +246,8 @@ def provenance(project: Project, readings: Mapping[str, StageReadings],
     versions.update({d: _version(d) for d in DEPENDENCIES})
     return {
         "raw_files": {r.relpath: {"sha256": r.sha256, "size_bytes": r.size_bytes} for r in readings.values()}
-        | {s.consolidation.relpath: {"sha256": sha256_of(s.consolidation.file), "size_bytes": s.consolidation.file.stat().st_size}
+        | {s.consolidation.relpath: {"sha256": sha256_of(s.consolidation.file),
+                                     "size_bytes": s.consolidation.file.stat().st_size}
            for s in project.stages if s.consolidation is not None and s.consolidation.file.is_file()},
         "interpretation_sha256": interpretation.sha256 if interpretation is not None else None,
         "versions": versions,
@@ -251,7 +256,7 @@ def provenance(project: Project, readings: Mapping[str, StageReadings],
     }
 
 
-@functools.lru_cache(maxsize=None)  # a metadata look-up costs milliseconds; the live workbook refits on every drag
+@functools.cache  # a metadata look-up costs milliseconds; the live workbook refits on every drag
 def _version(dist: str) -> str:
     try:
         return importlib.metadata.version(dist)
@@ -278,8 +283,9 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
     analysed: list[StageResult] = []
     origin: float | None = None
     for spec, part, continued in stage_units(proj, readings):
-        result = analyse_stage(spec, part, interp.decision(spec.id), interp.settings, interp.raw_files.get(spec.relpath),
-                               origin if continued else None, saved_files=interp.raw_files)
+        result = analyse_stage(spec, part, interp.decision(spec.id), interp.settings,
+                               interp.raw_files.get(spec.relpath), origin if continued else None,
+                               saved_files=interp.raw_files)
         if not continued:
             origin = result.reduced.seating_shift_mm
         analysed.append(result)

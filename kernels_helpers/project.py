@@ -370,7 +370,8 @@ def _consolidation(root: Path, top: _Fields) -> ConsolidationSpec | None:
     return ConsolidationSpec(
         file=_inside(root, relpath, f"{top.where}: consolidation_file"),
         relpath=relpath,
-        columns=_columns(_Fields(top.table_of("consolidation_columns"), f"{where}_columns"), relpath, consolidation=True),
+        columns=_columns(_Fields(top.table_of("consolidation_columns"), f"{where}_columns"), relpath,
+                         consolidation=True),
         csv=_csv(_Fields(top.table_of("consolidation_csv"), f"{where}_csv"), _suffix_format(relpath)),
     )
 
@@ -410,7 +411,9 @@ def load_project(folder: str | Path) -> Project:
     root = Path(folder).resolve()
     path = root / PROJECT_FILE
     if not path.is_file():
-        raise ProjectFileError(f"{path}: no project file here. Point Shearbook at a project folder holding {PROJECT_FILE}.")
+        raise ProjectFileError(
+            f"{path}: no project file here. Point Shearbook at a project folder holding {PROJECT_FILE}."
+        )
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:

@@ -170,7 +170,8 @@ def _numeric(path: Path, fmt: CsvFormat, frame: pd.DataFrame, column: str, lines
         line = lines[min(i, len(lines) - 1)] if lines else i + 1  # lines has one entry per data row
         raise ReadingsError(
             f"{path}, line {line}, column {column!r}: {frame[column].iloc[i]!r} is not a number "
-            f"({bad.size} such value(s) in this column). Fix the file's copy or the column map; Shearbook never edits raw readings."
+            f"({bad.size} such value(s) in this column). Fix the file's copy or the column map; "
+            "Shearbook never edits raw readings."
         )
     return values
 

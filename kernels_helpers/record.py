@@ -98,7 +98,9 @@ def _execute(project_dir: Path, interpretation_file: Path | None, template: Path
     from nbclient.exceptions import CellExecutionError
 
     if not template.is_file():
-        raise RecordError(f"{template}: workbook template not found. Run from a checkout of Shearbook (pip install -e .).")
+        raise RecordError(
+            f"{template}: workbook template not found. Run from a checkout of Shearbook (pip install -e .)."
+        )
     nb = nbformat.read(template, as_version=4)
     if not live:
         nb.cells = [c for c in nb.cells if LIVE_TAG not in c.get("metadata", {}).get("tags", [])]
@@ -109,13 +111,14 @@ def _execute(project_dir: Path, interpretation_file: Path | None, template: Path
     try:
         client.execute()
     except CellExecutionError as exc:
-        index = next((i for i, c in enumerate(nb.cells) if any(o.get("output_type") == "error" for o in c.get("outputs", []))), None)
+        index = next((i for i, c in enumerate(nb.cells)
+                      if any(o.get("output_type") == "error" for o in c.get("outputs", []))), None)
         err = next((o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"), {})
         where = f"cell {index + 1}" if index is not None else "a cell"
         first_line = nb.cells[index].source.splitlines()[0] if index is not None and nb.cells[index].source else ""
         raise RecordError(
-            f"{template.name}: {where} ({first_line!r}) raised {err.get('ename', 'an error')}: {err.get('evalue', exc)}. "
-            "No record was written; fix the cause and export again."
+            f"{template.name}: {where} ({first_line!r}) raised {err.get('ename', 'an error')}: "
+            f"{err.get('evalue', exc)}. No record was written; fix the cause and export again."
         ) from None
     return nb
 
@@ -166,7 +169,8 @@ def export_html(nb: nbformat.NotebookNode, view: View) -> str:
     exporter.exclude_output_prompt = True
     # The live screen (cells tagged "interactive") needs a kernel; the record keeps the static cells.
     exporter.register_preprocessor(TagRemovePreprocessor(remove_cell_tags={LIVE_TAG}, enabled=True), enabled=True)
-    nb = nbformat.from_dict({**nb, "metadata": {k: v for k, v in nb.metadata.items() if k != "widgets"}})  # their state too
+    nb = nbformat.from_dict({**nb, "metadata": {k: v for k, v in nb.metadata.items()
+                                                if k != "widgets"}})  # their state too
     body, _ = exporter.from_notebook_node(nb, resources={"metadata": {"name": "Shearbook record"}})
     return body
 
@@ -221,7 +225,9 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
     html_text = export_html(nb, view)
     refs = network_references(html_text)
     if refs:
-        raise RecordError(f"the exported record would fetch from the network: {', '.join(refs[:5])}. Nothing was written.")
+        raise RecordError(
+            f"the exported record would fetch from the network: {', '.join(refs[:5])}. Nothing was written."
+        )
     html_text = _embed(html_text, {"shearbook-results": results_json, "shearbook-interpretation": interpretation_json,
                                    "shearbook-record": json.dumps({"view": view, "schema": "shearbook.record/1"})})
     path = Path(out).resolve() if out else default_record_path(root, view)

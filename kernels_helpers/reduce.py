@@ -24,10 +24,10 @@ __all__ = [
     "ReductionSettings",
     "corrected_area_mm2",
     "dilation_rate",
-    "height_of_solids_mm",
-    "reduce_stage",
     "dry_density_mg_m3",
     "height_mm",
+    "height_of_solids_mm",
+    "reduce_stage",
     "seating_shift_mm",
     "smooth_on_x",
     "stresses_kpa",
@@ -119,10 +119,11 @@ class ReducedStage:
 
     ``curve`` columns: ``time_s``, ``x_raw_mm`` (as read), ``x_mm`` (after the seating shift),
     ``y_mm`` (dilation positive, zero at the first reading), ``area_mm2`` (the area forces were
-    divided by), ``tau_kpa``, ``tau_smooth_kpa`` (lightly smoothed, to locate picks), ``sigma_kpa``, ``ratio`` (tau/sigma), ``e``,
-    ``dydx``, ``in_shear`` (False for seating readings, which are kept but not used for picks) and
-    ``pass_no`` (1 for the first forward pass; reversal tests count their passes) and ``spike``
-    (isolated spike, Hampel filter: kept and shown, left out of the smoothing and of suggestions).
+    divided by), ``tau_kpa``, ``tau_smooth_kpa`` (lightly smoothed, to locate picks), ``sigma_kpa``,
+    ``ratio`` (tau/sigma), ``e``, ``dydx``, ``in_shear`` (False for seating readings, which are kept
+    but not used for picks) and ``pass_no`` (1 for the first forward pass; reversal tests count
+    their passes) and ``spike`` (isolated spike, Hampel filter: kept and shown, left out of the
+    smoothing and of suggestions).
     Derived on demand, so a long curve does not carry them: stresses on the other area convention
     (:func:`stresses_kpa`), height (:func:`height_mm`), dry density (:func:`dry_density_mg_m3`),
     Taylor's interlocking-free ratio (:func:`kernels_helpers.dilatancy.interlocking_free_ratio`).
@@ -161,7 +162,8 @@ def dry_density_mg_m3(reduced: ReducedStage, specimen: Specimen) -> np.ndarray:
     return specimen.gs / (1.0 + reduced.curve["e"].to_numpy())
 
 
-def stresses_kpa(reduced: ReducedStage, specimen: Specimen, convention: AreaConvention) -> tuple[np.ndarray, np.ndarray]:
+def stresses_kpa(reduced: ReducedStage, specimen: Specimen,
+                 convention: AreaConvention) -> tuple[np.ndarray, np.ndarray]:
     """Shear and normal stress (kPa) at every reading on the ``"nominal"`` or ``"corrected"`` area.
 
     Either convention is available whichever one the curve was reduced with: the force is
@@ -189,7 +191,8 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
     force = t["shear_force_n"].to_numpy() if "shear_force_n" in t else (
         t["shear_stress_nominal_kpa"].to_numpy() * stage.specimen.area0_mm2 / 1000.0)
     try:
-        shift, start = (origin_mm, 0) if origin_mm is not None else seating_shift_mm(x_raw, force, settings.seating_fraction)
+        shift, start = ((origin_mm, 0) if origin_mm is not None
+                        else seating_shift_mm(x_raw, force, settings.seating_fraction))
     except ValueError as exc:
         raise ReadingsError(f"{stage.file}: {exc}; check the shear force column and its unit.") from exc
     x = x_raw - shift
@@ -233,7 +236,9 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
             dydx[sel] = dilation_rate(x[sel], y_clean[sel], settings.smoothing_window_mm)
             tau_smooth[sel] = smooth_on_x(x[sel], tau_clean[sel], settings.peak_smoothing_mm)
         except ValueError as exc:
-            raise ReadingsError(f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column.") from exc
+            raise ReadingsError(
+                f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column."
+            ) from exc
     curve = pd.DataFrame(
         {
             "time_s": t["time_s"].to_numpy(),

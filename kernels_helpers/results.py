@@ -207,7 +207,8 @@ class Results:
                     "passes": [{**dataclasses.asdict(p), "ratio": p.ratio} for p in s.passes],
                     "residual": None if s.residual is None else {
                         **dataclasses.asdict(s.residual), "source": s.residual_source,
-                        "suggested": None if s.residual_suggested is None else dataclasses.asdict(s.residual_suggested)},
+                        "suggested": (None if s.residual_suggested is None
+                                      else dataclasses.asdict(s.residual_suggested))},
                     "consolidation": consolidation_dict(s.consolidation),
                     "rate_check": None if s.rate is None else dataclasses.asdict(s.rate),
                 }

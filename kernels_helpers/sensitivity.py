@@ -42,7 +42,8 @@ def _free(sigma: list[float], tau: list[float], level: float) -> tuple[str, floa
         return "least squares, c' free", fit.phi_deg, fit.intercept
     if len(sigma) == 2 and sigma[0] != sigma[1]:
         slope = (tau[1] - tau[0]) / (sigma[1] - sigma[0])
-        return "exact line through the 2 remaining points (no statistics)", math.degrees(math.atan(slope)), tau[0] - slope * sigma[0]
+        return ("exact line through the 2 remaining points (no statistics)", math.degrees(math.atan(slope)),
+                tau[0] - slope * sigma[0])
     return f"{len(sigma)} point(s) left: no line with c' free", None, None
 
 

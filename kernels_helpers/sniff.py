@@ -154,7 +154,8 @@ def _xlsx_layout(path: Path, data: bytes, sheet: str, min_fields: int) -> Layout
             raise ImportFolderError(f"{path}: no sheet {sheet!r}; the workbook has {book.sheetnames}. Correct the "
                                     "sheet column of the specimen table.")
         ws = book[sheet] if sheet else book.worksheets[0]
-        rows = [["" if v is None else v for v in r] for _, r in zip(range(SCAN_LINES), ws.iter_rows(values_only=True))]
+        rows = [["" if v is None else v for v in r]
+                for _, r in zip(range(SCAN_LINES), ws.iter_rows(values_only=True), strict=False)]
     finally:
         book.close()
     hit = _find_header(rows, min_fields)
@@ -200,7 +201,7 @@ def _direction(words: set[str]) -> str | None:
 
 def classify(label: str, unit: str | None) -> str | None:
     """The quantity a header holds, from its unit's dimension and its words; None if unclear."""
-    words = set(re.findall(r"[a-z]+", label.lower().replace("τ", " tau ").replace("σ", " sigma ")))
+    words = set(re.findall(r"[a-z]+", label.lower().replace("τ", " tau ").replace("σ", " sigma ")))  # noqa: RUF001 - Greek sigma in headers, on purpose
     dim = DIMENSION_OF.get(unit.strip().lower()) if unit else None
     if dim is None:  # no (known) unit: only words that say the quantity outright
         if words & {"time", "elapsed"}:

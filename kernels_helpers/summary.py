@@ -45,5 +45,6 @@ def summary_text(results: Results) -> str:
         out.append(f"{name}: phi' {fit.phi_deg:.1f} deg [{lo:.1f}, {hi:.1f}], {c}, n {fit.n}"
                    + (f" ({e.not_fitted})" if e.not_fitted else ""))
     out.append("")
-    out.append("Caution: laboratory parameters need engineering judgement, the governing code and a licensed engineer's review.")
+    out.append("Caution: laboratory parameters need engineering judgement, the governing code "
+               "and a licensed engineer's review.")
     return "\n".join(out) + "\n"

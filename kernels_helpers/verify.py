@@ -35,7 +35,9 @@ SKIP = ("provenance.platform", "provenance.python", "provenance.versions")  # de
 def _block(text: str, name: str, path: Path) -> Any:
     m = re.search(rf'<script type="application/json" id="{name}">(.*?)</script>', text, re.S)
     if not m:
-        raise RecordError(f"{path}: not a Shearbook record (no {name} block). Verify only records written by `shearbook record`.")
+        raise RecordError(
+            f"{path}: not a Shearbook record (no {name} block). Verify only records written by `shearbook record`."
+        )
     try:
         return json.loads(m.group(1))
     except json.JSONDecodeError as exc:
@@ -85,7 +87,8 @@ class Verification:
         return not self.changed_files and not self.mismatches
 
     def to_text(self) -> str:
-        mode = "bit-identical (same versions)" if self.exact else f"within rel {REL_TOL:g} / abs {ABS_TOL:g} (versions differ)"
+        mode = ("bit-identical (same versions)" if self.exact
+                else f"within rel {REL_TOL:g} / abs {ABS_TOL:g} (versions differ)")
         lines = [f"{self.record}: {'MATCH' if self.ok else 'MISMATCH'} - {self.compared} values compared, {mode}"]
         lines += [f"  raw file changed: {f}" for f in self.changed_files]
         lines += [f"  moved: {m}" for m in self.mismatches[:50]]
@@ -118,7 +121,9 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
     b = {k: v for k, v in _leaves(now) if not k.startswith(SKIP)}
     mismatches = [f"{k}: {a.get(k)!r} -> {b.get(k)!r}" for k in sorted(set(a) | set(b))
                   if k not in a or k not in b or not _same(a[k], b[k], exact)]
-    notes = () if exact else (f"software versions differ: recorded {versions_then[0]}, now {now['provenance']['versions']}",)
+    notes = () if exact else (
+        f"software versions differ: recorded {versions_then[0]}, now {now['provenance']['versions']}",
+    )
     return Verification(rec_path, root, exact, changed, tuple(mismatches), len(a), notes)
 
 
@@ -127,7 +132,9 @@ def project_of(record: Path) -> Path:
     for folder in record.resolve().parents:
         if (folder / "project.toml").is_file():
             return folder
-    raise RecordError(f"{record}: no project.toml in any folder above this record; name the project folder with --project.")
+    raise RecordError(
+        f"{record}: no project.toml in any folder above this record; name the project folder with --project."
+    )
 
 
 def _verify_one(args: tuple[Path, Path | None]) -> tuple[Path, Verification | None, str]:
@@ -164,11 +171,12 @@ def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Pa
     path.parent.mkdir(parents=True, exist_ok=True)
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["record", "project", "status", "changed_raw_files", "values_moved", "values_compared", "mode", "error"])
+        w.writerow(["record", "project", "status", "changed_raw_files", "values_moved", "values_compared", "mode",
+                    "error"])
         for rec, v, err in out:
             if v is None:
                 w.writerow([rec, "", "error", "", "", "", "", err])
             else:
-                w.writerow([rec, v.project, "match" if v.ok else "mismatch", "; ".join(v.changed_files), len(v.mismatches),
-                            v.compared, "exact" if v.exact else f"rel {REL_TOL:g}", ""])
+                w.writerow([rec, v.project, "match" if v.ok else "mismatch", "; ".join(v.changed_files),
+                            len(v.mismatches), v.compared, "exact" if v.exact else f"rel {REL_TOL:g}", ""])
     return out

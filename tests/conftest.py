@@ -39,7 +39,8 @@ def browser() -> Iterator[object]:
 
     with sync_playwright() as pw, tempfile.TemporaryDirectory() as profile:
         context = pw.chromium.launch_persistent_context(
-            profile, executable_path=str(CHROMIUM), headless=True, args=CHROMIUM_ARGS, viewport={"width": 1400, "height": 1000}
+            profile, executable_path=str(CHROMIUM), headless=True, args=CHROMIUM_ARGS,
+            viewport={"width": 1400, "height": 1000}
         )
         yield context
         context.close()

@@ -136,7 +136,8 @@ def write_project(folder: Path, stages: dict[str, tuple], normal_column: bool = 
         test_set = rest[0] if rest else "synthetic"
         names = list(cols)
         rows = np.column_stack([cols[k] for k in names])
-        np.savetxt(folder / "readings" / f"{sid}.csv", rows, delimiter=",", header=",".join(names), comments="", fmt="%.6f")
+        np.savetxt(folder / "readings" / f"{sid}.csv", rows, delimiter=",", header=",".join(names), comments="",
+                   fmt="%.6f")
         text += (f'\n[[stage]]\nid = "{sid}"\nfile = "readings/{sid}.csv"\ntest_set = "{test_set}"\n'
                  f'test_type = "{test_type}"\n[stage.normal_load]\nforce_n = {normal}\n')
     (folder / "project.toml").write_text(text, encoding="utf-8")

@@ -208,7 +208,9 @@ def test_cli_export_ags4(example_copy: Path, tmp_path: Path) -> None:
 
 def test_reversal_tests_export_the_residual(tmp_path: Path) -> None:
     ratios = [0.62, 0.55, 0.45, 0.42, 0.40, 0.40, 0.40]
-    stages = {f"R{k}": (reversal_readings(ratios, n, k, taylor_first_pass=False, noise_n=0.3, settlement_mm=0.02), n, "reversal") for k, n in enumerate((180.0, 360.0, 720.0), start=1)}
+    stages = {f"R{k}": (reversal_readings(ratios, n, k, taylor_first_pass=False, noise_n=0.3, settlement_mm=0.02),
+                        n, "reversal")
+              for k, n in enumerate((180.0, 360.0, 720.0), start=1)}
     folder = write_project(tmp_path / "p", stages)
     text = (folder / "project.toml").read_text(encoding="utf-8")
     for k, (_, normal, _) in enumerate(stages.values(), start=1):  # invented sample identification, one per stage

@@ -124,7 +124,7 @@ def test_large_file_handled(tmp_path: Path) -> None:
     t = np.arange(n) * 0.02
     x = t * 12.0 / t[-1]
     lines = ["t (s),x (mm),y (mm),Shear force (N)"]
-    lines += [f"{a:.2f},{b:.5f},{0.01 * b:.5f},{300.0 * np.tanh(b):.3f}" for a, b in zip(t, x)]
+    lines += [f"{a:.2f},{b:.5f},{0.01 * b:.5f},{300.0 * np.tanh(b):.3f}" for a, b in zip(t, x, strict=True)]
     lab = tmp_path / "lab"
     lab.mkdir()
     (lab / "S1.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")

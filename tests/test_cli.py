@@ -21,7 +21,8 @@ def test_results_prints_the_same_numbers_as_interpret(example_copy: Path, capsys
 def test_results_of_a_folder_without_project_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["results", str(tmp_path)]) == 2
     err = capsys.readouterr().err
-    assert err == f"shearbook: error: {tmp_path / 'project.toml'}: no project file here. Point Shearbook at a project folder holding project.toml.\n"
+    assert err == (f"shearbook: error: {tmp_path / 'project.toml'}: no project file here. "
+                   "Point Shearbook at a project folder holding project.toml.\n")
 
 
 @pytest.mark.notebook

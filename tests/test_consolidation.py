@@ -93,7 +93,8 @@ def test_rate_check_rule_and_flag() -> None:
     assert check.rate_mm_min == pytest.approx(0.1, rel=1e-9)
     assert check.time_to_failure_s == 1200.0
     # ASTM rule t_f = 50 t_50 [P, secondary]; 11.6 t_90 [M]; 12.7 t_100 [M]: all near 50 t_50 = 329 min here
-    assert sorted(k.split(" (")[0] for k in check.candidates_s) == ["t_f = 11.6 t_90", "t_f = 12.7 t_100", "t_f = 50 t_50"]
+    assert sorted(k.split(" (")[0] for k in check.candidates_s) == ["t_f = 11.6 t_90", "t_f = 12.7 t_100",
+                                                                     "t_f = 50 t_50"]
     assert check.required_s == max(check.candidates_s.values())
     assert check.required_s == pytest.approx(50 * t50, rel=0.05)
     assert check.too_fast

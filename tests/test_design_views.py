@@ -111,5 +111,6 @@ def test_stage_row_has_one_toolbar_working_all_three_plots() -> None:
     labels = [item.label.value for item in tau.select(type=Legend)[0].items]
     assert labels == ["readings", "critical state (window mean)", "peak", "peak suggested"]
     drawn = {(r.glyph.x, r.glyph.y): r.data_source.data for r in tau.renderers}
-    assert drawn[("x", "tau")]["tau"] == [s.peak.tau_kpa] and drawn[("x_sug", "tau_sug")]["tau_sug"] == [s.peak_suggested.tau_kpa]
+    assert (drawn[("x", "tau")]["tau"] == [s.peak.tau_kpa]
+            and drawn[("x_sug", "tau_sug")]["tau_sug"] == [s.peak_suggested.tau_kpa])
     assert list(drawn[("x", "tau")]["x"]) == [s.peak.x_mm]

@@ -50,19 +50,22 @@ def test_diff_in_words(example_copy: Path, base: Interpretation) -> None:
     report = diff_interpretations(project, base, after)
     ra, rb = interpret(project, base), interpret(project, after)
     pa, pb = ra.stage("BH03-D3").peak, rb.stage("BH03-D3").peak
-    assert (f"BH03-D3: peak suggested at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) -> manual at x = {pb.x_mm:.2f} mm "
+    assert (f"BH03-D3: peak suggested at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) "
+            f"-> manual at x = {pb.x_mm:.2f} mm "
             f"(tau {pb.tau_kpa:.1f} kPa): moved {pb.x_mm - pa.x_mm:+.2f} mm, tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa; "
             "note: earlier crest") in report.stages
     assert "BH03-D1: excluded (disturbed in trimming)" in report.stages
     fa, fb = ra.envelope("BH03 dense", "peak").chosen, rb.envelope("BH03 dense", "peak").chosen
     line = next(x for x in report.envelopes if x.startswith("BH03 dense, peak:"))
-    assert f"phi' {fa.phi_deg:.2f} -> {fb.phi_deg:.2f} deg" in line and "stages 3 -> 2" in line and "(fit c' free -> c' = 0)" in line
+    assert (f"phi' {fa.phi_deg:.2f} -> {fb.phi_deg:.2f} deg" in line and "stages 3 -> 2" in line
+            and "(fit c' free -> c' = 0)" in line)
     assert diff_interpretations(project, after, after).empty
     restored = diff_interpretations(project, after, after.restored("BH03-D1", AUTHOR))
     assert "BH03-D1: restored to the envelopes" in restored.stages
 
 
-def test_diff_command(example_copy: Path, base: Interpretation, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_diff_command(example_copy: Path, base: Interpretation, tmp_path: Path,
+                      capsys: pytest.CaptureFixture[str]) -> None:
     a, b = tmp_path / "a.json", tmp_path / "b.json"
     save_interpretation(base, a)
     save_interpretation(base.with_signoff("checked", "C. Checker"), b)
@@ -102,7 +105,8 @@ def test_summary_command_shows_manual_pick_beside_suggestion_and_exclusion(capsy
     example = Path(__file__).resolve().parent.parent / "example_project"  # ships one manual pick, one exclusion
     assert main(["summary", str(example)]) == 0
     out = capsys.readouterr().out
-    assert "BH03-D2 (BH03 dense), sigma'n 100 kPa" in out and "peak (manual): x 2.05 mm" in out and "[suggested x " in out
+    assert ("BH03-D2 (BH03 dense), sigma'n 100 kPa" in out and "peak (manual): x 2.05 mm" in out
+            and "[suggested x " in out)
     assert "BH03-L2 (BH03 loose), sigma'n 100 kPa - EXCLUDED: Laboratory remark" in out
     assert "Caution:" in out
 
@@ -129,10 +133,12 @@ def test_diff_reports_changed_design_choices_and_their_effect(example_copy: Path
     assert "limit_state: 'large zone' -> 'local'" in report.design and "partial_factors: 'M2' -> 'M1'" in report.design
     assert f"choices changed by {AUTHOR} at {after.design.time_utc}" in report.design
     da, db = interpret(project, base).design, interpret(project, after).design
-    assert f"phi'_k {da.phi_k_deg:.2f} -> {db.phi_k_deg:.2f} deg" in next(x for x in report.design if x.startswith("phi'_k"))
+    assert f"phi'_k {da.phi_k_deg:.2f} -> {db.phi_k_deg:.2f} deg" in next(
+        x for x in report.design if x.startswith("phi'_k"))
     a0, b0 = da.design[0], db.design[0]  # the chosen set: M2 before, M1 after
     line = next(x for x in report.design if x.startswith("design values"))
-    assert line.startswith("design values (M2 -> M1): ") and f"phi'_d {a0.phi_d_deg:.2f} -> {b0.phi_d_deg:.2f} deg" in line
+    assert (line.startswith("design values (M2 -> M1): ")
+            and f"phi'_d {a0.phi_d_deg:.2f} -> {b0.phi_d_deg:.2f} deg" in line)
     assert "Characteristic and design values:" in report.to_text()
     assert not report.stages and not report.envelopes  # the picks and fits did not move
     assert diff_interpretations(project, after, after).empty

@@ -131,7 +131,8 @@ def test_exclusion_needs_a_reason_and_greys_the_point(wb: LiveWorkbook) -> None:
     assert wb.controller.path.read_bytes() == before  # a reason alone changes nothing while included
     row["include"].value = False
     d = _file(wb)["stages"][OTHER]
-    assert d["included"] is False and d["exclusion_reason"] == "specimen disturbed on trimming" and d["author"] == "T. Tester"
+    assert (d["included"] is False and d["exclusion_reason"] == "specimen disturbed on trimming"
+            and d["author"] == "T. Tester")
     loose = wb.controller.results.envelope("BH03 loose", "critical_state")
     assert OTHER not in loose.stage_ids
     plot = next(e for e in wb.envelope_plots if e.group == "BH03 loose")
@@ -198,7 +199,8 @@ def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) 
     nb = execute_workbook(example_copy, live=True)  # the whole template, as JupyterLab runs it
     live = [c for c in nb.cells if LIVE_TAG in c.metadata.get("tags", [])]
     assert live and all(o.get("output_type") != "error" for c in live for o in c.get("outputs", []))
-    assert any("application/vnd.jupyter.widget-view+json" in o.get("data", {}) for c in live for o in c.get("outputs", []))
+    assert any("application/vnd.jupyter.widget-view+json" in o.get("data", {})
+               for c in live for o in c.get("outputs", []))
     html_text = export_html(nb, "audit")
     assert "live_workbook" not in html_text and "live-envelope" not in html_text and "widget-state" not in html_text
     assert '"name":"envelope-BH03 dense"' in html_text  # the static record is still there

@@ -130,7 +130,8 @@ def test_multistage_split_by_normal_load(tmp_path: Path) -> None:
     n_noisy = n + rng.normal(0, 0.5, len(n))
     steps = split_by_normal_load(n_noisy)
     assert [round(s.force_n) for s in steps] == levels
-    cols = {"t": np.arange(len(x)) * 2.0, "x": x, "y": np.zeros(len(x)), "f": f + rng.normal(0, 0.3, len(x)), "n": n_noisy}
+    cols = {"t": np.arange(len(x)) * 2.0, "x": x, "y": np.zeros(len(x)), "f": f + rng.normal(0, 0.3, len(x)),
+            "n": n_noisy}
     write_project(tmp_path / "p", {"M1": (cols, 180.0, "multi-stage")}, normal_column=True)
     results = interpret(tmp_path / "p")
     assert [s.stage_id for s in results.stages] == ["M1/1", "M1/2", "M1/3"]

@@ -109,7 +109,8 @@ def test_failed_cell_stops_the_export(example_copy: Path, tmp_path: Path) -> Non
     broken = tmp_path / "broken.ipynb"
     nbformat.write(nb, broken)
     out = tmp_path / "never.html"
-    with pytest.raises(RecordError, match=r"broken\.ipynb: cell \d+ \(\"raise RuntimeError.*\) raised RuntimeError: stage table is inconsistent\. No record was written"):
+    with pytest.raises(RecordError, match=r"broken\.ipynb: cell \d+ \(\"raise RuntimeError.*\) raised RuntimeError: "
+                                          r"stage table is inconsistent\. No record was written"):
         write_record(example_copy, out, template=broken)
     assert not out.exists()
 

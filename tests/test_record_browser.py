@@ -53,7 +53,8 @@ def test_record_renders_offline_with_plots(browser, example_copy: Path, artifact
         img = Image.open(io.BytesIO(png)).convert("L")
         stat = ImageStat.Stat(img)
         colours = len(img.getcolors(maxcolors=1 << 16) or [])
-        assert stat.stddev[0] > 10 and colours > 20, f"plot {name} looks blank (sd {stat.stddev[0]:.1f}, {colours} greys)"
+        assert stat.stddev[0] > 10 and colours > 20, (
+            f"plot {name} looks blank (sd {stat.stddev[0]:.1f}, {colours} greys)")
     page.close()
 
 
@@ -62,7 +63,8 @@ def test_escaped_note_does_not_run_in_the_browser(browser, example_copy: Path, a
     from kernels_helpers.interpretation import Interpretation, StageDecision
 
     note = "<script>alert(1)</script><img src=x onerror=alert(2)>"
-    save_interpretation(Interpretation().with_decision("BH03-D3", StageDecision(note=note)), example_copy / "interpretation.json")
+    save_interpretation(Interpretation().with_decision("BH03-D3", StageDecision(note=note)),
+                        example_copy / "interpretation.json")
     record = write_record(example_copy, artifacts / "record-escaped.html").path
     page = browser.new_page()
     dialogs: list[str] = []

@@ -50,7 +50,8 @@ def test_unchanged_project_matches_bit_for_bit(recorded: Path, capsys: pytest.Ca
     assert "MATCH" in capsys.readouterr().out
 
 
-def test_changed_raw_file_is_named_and_fails(recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_changed_raw_file_is_named_and_fails(recorded: Path, tmp_path: Path,
+                                             capsys: pytest.CaptureFixture[str]) -> None:
     root = _copy(recorded, tmp_path)
     raw = root / "readings" / "BH03-D3.csv"
     lines = raw.read_text(encoding="utf-8").split("\n")

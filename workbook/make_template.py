@@ -91,9 +91,11 @@ CELLS = [
         "# None: the ends and the middle of the design range\n"
         "views.show_envelope_statistics(results, angles_at_kpa=None)"
     ),
-    new_markdown_cell("## Test sets within a stratum\nEach set's envelope beside the pooled one, and whether they belong together."),
+    new_markdown_cell("## Test sets within a stratum\n"
+                      "Each set's envelope beside the pooled one, and whether they belong together."),
     new_code_cell("views.show_set_comparison(results)"),
-    new_markdown_cell("## Critical-state line\nVoid ratio at critical state against ln sigma', dense and loose together."),
+    new_markdown_cell("## Critical-state line\n"
+                      "Void ratio at critical state against ln sigma', dense and loose together."),
     new_code_cell("views.show_critical_state_line(results)"),
     new_markdown_cell("## Stress-dilatancy (interpretation aids)"),
     new_code_cell("views.show_dilatancy(results)"),
@@ -103,7 +105,8 @@ CELLS = [
         "file's `design` entry; the method and the cautions are written out below."
     ),
     new_code_cell("views.show_design(results)"),
-    new_markdown_cell("## Changes since the last record\nWhat this interpretation changes against the one the newest record "
+    new_markdown_cell("## Changes since the last record\n"
+                      "What this interpretation changes against the one the newest record "
                       "in the project's records/ folder was made with."),
     new_code_cell("views.show_changes_since_record(project, interpretation_path)"),
     new_markdown_cell("## Sign-off and provenance"),

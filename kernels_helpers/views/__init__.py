@@ -22,4 +22,5 @@ from .notebook import (
 
 __all__ = ["setup_notebook", "show_envelopes", "show_header", "show_provenance", "show_stages", "show_tables"]
 __all__ += ["show_changes_since_record", "show_consolidation"]
-__all__ += ["show_critical_state_line", "show_design", "show_dilatancy", "show_envelope_statistics", "show_set_comparison"]
+__all__ += ["show_critical_state_line", "show_design", "show_dilatancy", "show_envelope_statistics",
+            "show_set_comparison"]

@@ -90,11 +90,14 @@ def stage_figure(s: StageResult):
     keep = decimate(x, [shear["tau_kpa"].to_numpy(), shear["y_mm"].to_numpy()])
     d = shear.iloc[keep]
     # float32 is ample for drawing (7 digits) and halves the record; the computation keeps float64
-    src = ColumnDataSource({k: d[k].to_numpy(dtype=np.float32) for k in ("x_mm", "tau_kpa", "y_mm", "e", "dydx", "ratio")})
+    src = ColumnDataSource(
+        {k: d[k].to_numpy(dtype=np.float32) for k in ("x_mm", "tau_kpa", "y_mm", "e", "dydx", "ratio")}
+    )
     label = f"{s.stage_id}: sigma'n {s.sigma_nominal_kpa:.0f} kPa" + ("" if s.included else " (excluded)")
     colour = INK if s.included else GREY
     tau = _panel(f"{label} - shear stress", "shear stress tau (kPa)", f"stage-{s.stage_id}-tau")
-    vert = _panel("vertical displacement (dilation +)", "vertical displacement (mm)", f"stage-{s.stage_id}-y", tau.x_range)
+    vert = _panel("vertical displacement (dilation +)", "vertical displacement (mm)", f"stage-{s.stage_id}-y",
+                  tau.x_range)
     void = _panel("void ratio", "void ratio e", f"stage-{s.stage_id}-e", tau.x_range)
     items = {"readings": [_draw(tau, Line(x="x_mm", y="tau_kpa", line_color=colour, line_width=1.2), src)]}
     _draw(vert, Line(x="x_mm", y="y_mm", line_color=colour, line_width=1.2), src)
@@ -115,8 +118,8 @@ def stage_figure(s: StageResult):
     points = ColumnDataSource({"x": [p.x_mm], "tau": [p.tau_kpa], "y": [float(c["y_mm"].iloc[p.index])], "e": [p.e],
                                "x_sug": [q.x_mm], "tau_sug": [q.tau_kpa]})
     if not (s.no_distinct_peak and s.peak_source == "suggested"):
-        items["peak"] = [_draw(tau, Scatter(x="x", y="tau", size=11, fill_color=PEAK, line_color=PEAK, marker="diamond"),
-                               points)]
+        items["peak"] = [_draw(tau, Scatter(x="x", y="tau", size=11, fill_color=PEAK, line_color=PEAK,
+                                            marker="diamond"), points)]
         _draw(vert, Scatter(x="x", y="y", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
         _draw(void, Scatter(x="x", y="e", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
         vert.add_layout(Span(location=p.x_mm, dimension="height", line_color=PEAK, line_dash="dotted"))

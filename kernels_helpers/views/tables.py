@@ -93,7 +93,8 @@ def inputs_table(results: Results, project: Project) -> str:
             esc(f"{q}: '{c.column}' [{c.unit}]" + ("" if c.dilation_positive else ", reads down on dilation: flipped"))
             for q, c in spec.columns.items()
         )
-        rows.append((esc(s.stage_id), esc(s.relpath), f"{s.size_bytes:,}", f'<span class="sb-mono">{s.sha256}</span>', cmap))
+        rows.append((esc(s.stage_id), esc(s.relpath), f"{s.size_bytes:,}", f'<span class="sb-mono">{s.sha256}</span>',
+                     cmap))
     return table(("stage", "file", "bytes", "SHA-256", "column map (unit in file)"), rows)
 
 
@@ -108,8 +109,8 @@ def specimen_table(results: Results, project: Project) -> str:
             num(r.e_initial, 3), num(sp.consolidation_settlement_mm, 3), num(r.e_start, 3), num(r.seating_shift_mm, 3),
         ))
     return table(
-        ("stage", "test set", "box", "H0 (mm)", "Ms (g)", "Gs", "normal load given as", "N (N)", "sigma'n nominal (kPa)",
-         "e0", "consol. settlement (mm)", "e at start of shear", "seating slack removed (mm)"),
+        ("stage", "test set", "box", "H0 (mm)", "Ms (g)", "Gs", "normal load given as", "N (N)",
+         "sigma'n nominal (kPa)", "e0", "consol. settlement (mm)", "e at start of shear", "seating slack removed (mm)"),
         rows,
     )
 
@@ -120,10 +121,13 @@ def _pick_cells(s: StageResult) -> list[str]:
         peak = ["no distinct peak (see flags)"] + ["&ndash;"] * 3
     else:
         peak = [num(p.x_mm, 2), num(p.tau_kpa, 1), num(p.sigma_kpa, 1), num(math.degrees(math.atan(p.ratio)), 1)]
-    peak_src = esc(s.peak_source) + (f" (suggested at {num(ps.x_mm, 2)} mm, {num(ps.tau_kpa, 1)} kPa)" if s.peak_source == "manual" else "")
+    peak_src = esc(s.peak_source) + (
+        f" (suggested at {num(ps.x_mm, 2)} mm, {num(ps.tau_kpa, 1)} kPa)" if s.peak_source == "manual" else ""
+    )
     c, cs = s.cs, s.cs_suggested
     cs_src = esc(s.cs_source) + (
-        f" (suggested {num(cs.x_from_mm, 2)}-{num(cs.x_to_mm, 2)} mm, {num(cs.tau_kpa, 1)} kPa)" if s.cs_source == "manual" else ""
+        f" (suggested {num(cs.x_from_mm, 2)}-{num(cs.x_to_mm, 2)} mm, {num(cs.tau_kpa, 1)} kPa)"
+        if s.cs_source == "manual" else ""
     )
     return [
         peak_src, *peak,
@@ -152,7 +156,8 @@ def _fit_row(e: EnvelopeResult, which: str) -> list[str]:
     label = "c' free" if which == "free" else "through origin (c' = 0)"
     chosen = " (reported)" if e.reported == which else ""
     if fit is None:
-        return [esc(e.group), esc(e.kind.replace("_", " ")), esc(label), str(len(e.stage_ids))] + ["&ndash;"] * 5 + [esc(e.not_fitted or "")]
+        return ([esc(e.group), esc(e.kind.replace("_", " ")), esc(label), str(len(e.stage_ids))] + ["&ndash;"] * 5
+                + [esc(e.not_fitted or "")])
     lo, hi = fit.phi_interval_deg
     c_lo, c_hi = fit.c_interval_kpa
     c = "0 (fixed)" if fit.through_origin else f"{num(fit.intercept, 1)} [{c_lo:.1f}, {c_hi:.1f}]"
@@ -217,7 +222,8 @@ def flags_table(results: Results) -> str:
 
 def signoff_table(signoff: SignOff) -> str:
     """The sign-off state and every step of it: who, when, with what remark."""
-    state = {"draft": "DRAFT - not checked", "checked": "checked, not yet approved", "approved": "approved"}[signoff.state]
+    state = {"draft": "DRAFT - not checked", "checked": "checked, not yet approved",
+             "approved": "approved"}[signoff.state]
     rows = [(esc(h.get("state", "")), esc(h.get("who", "")), esc(h.get("time_utc", "")), esc(h.get("note", "")))
             for h in signoff.history]
     head = f'<p>Sign-off state: <b>{esc(state)}</b></p>'

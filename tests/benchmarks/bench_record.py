@@ -20,7 +20,7 @@ from pathlib import Path
 import nbformat
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from synthetic import benchmark_project  # noqa: E402
+from synthetic import benchmark_project
 
 STAGES, ROWS = 12, 50_000
 BIN = Path(sys.executable).parent
@@ -51,7 +51,8 @@ def main() -> None:
         print(f"jupyter nbconvert --execute, one-cell notebook (floor): {floor:6.2f} s  {_runs(floors)}")
         print(f"shearbook record:                                       {export:6.2f} s  {_runs(exports)}"
               f"  ({export / floor:.2f} x floor; target <= 3)")
-        print(f"record size:                                            {record.stat().st_size / 1e6:6.2f} MB (target < 5)")
+        print(f"record size:                                            {record.stat().st_size / 1e6:6.2f} MB "
+              "(target < 5)")
         print(f"shearbook verify (re-run and compare, match):           {verify:6.2f} s")
 
 
