@@ -15,8 +15,9 @@ the first reading of the consolidation file.
   ``c_v = 0.848 H_dr^2 / t_90``; ``d_100 = d_0 + (d_90 - d_0)/0.9`` and ``t_100`` where the first
   line reaches ``d_100`` (T = pi/4).
 * ``H_dr = H/2`` (drainage at both faces of the box), ``H`` the specimen height at that time.
-* Time to failure: ``t_f = 50 t_50``, ``11.6 t_90`` or ``12.7 t_100``; the largest available
-  governs (the cautious choice) and is named. Actual rate: least-squares slope of horizontal
+* Time to failure: ``t_f = 50 t_50``, ``11.6 t_90`` or ``12.7 t_100``; by default the largest
+  available governs (the cautious choice), or the one rule the engineer names
+  (``RateSettings.time_to_failure``); the rule used is named. Actual rate: least-squares slope of horizontal
   displacement against time during shear; the stage is "too fast for drained conditions" when
   the failure pick was reached in less than the required ``t_f``.
 """
@@ -27,6 +28,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.signal import savgol_filter
+
+from .settings import TIME_TO_FAILURE_RULES
 
 __all__ = ["T50", "T90", "CasagrandeFit", "ConsolidationResult", "RateCheck", "TaylorFit", "analyse_consolidation",
            "casagrande", "consolidation_dict", "rate_check", "taylor", "terzaghi_u"]
@@ -222,21 +225,26 @@ def analyse_consolidation(time_s: np.ndarray, settlement_mm: np.ndarray, height0
 
 
 def rate_check(time_s: np.ndarray, x_mm: np.ndarray, start: int, failure: int,
-               result: ConsolidationResult) -> RateCheck | None:
-    """The drained-rate check of one stage; None when neither construction gave a time.
+               result: ConsolidationResult, rule: str = "largest") -> RateCheck | None:
+    """The drained-rate check of one stage; None when the construction(s) the rule needs gave no time.
 
     ``start`` and ``failure`` are rows of the shear readings: the start of shear and the failure
     pick (the peak; the start of the critical-state window when there is no distinct peak).
+    ``rule``: "largest" of the rules available, or one of :data:`TIME_TO_FAILURE_RULES`.
     """
+    times = {"t_50": (result.casagrande.t50_s, "log time") if result.casagrande else None,
+             "t_90": (result.taylor.t90_s, "root time") if result.taylor else None,
+             "t_100": (result.taylor.t100_s, "root time") if result.taylor else None}
     cand: dict[str, float] = {}
-    if result.casagrande:
-        cand[f"t_f = 50 t_50 (t_50 {result.casagrande.t50_s / 60:.3g} min, log time)"] = 50 * result.casagrande.t50_s
-    if result.taylor:
-        cand[f"t_f = 11.6 t_90 (t_90 {result.taylor.t90_s / 60:.3g} min, root time)"] = 11.6 * result.taylor.t90_s
-        cand[f"t_f = 12.7 t_100 (t_100 {result.taylor.t100_s / 60:.3g} min, root time)"] = 12.7 * result.taylor.t100_s
-    if not cand:
+    named: dict[str, str] = {}
+    for name, (factor, which) in TIME_TO_FAILURE_RULES.items():
+        found = times[which]
+        if found is not None:
+            text = f"t_f = {name} ({which} {found[0] / 60:.3g} min, {found[1]})"
+            cand[text], named[name] = factor * found[0], text
+    if not cand or (rule != "largest" and rule not in named):
         return None
-    rule = max(cand, key=cand.__getitem__)
+    rule = max(cand, key=cand.__getitem__) if rule == "largest" else named[rule]  # every candidate stays reported
     required = cand[rule]
     t, x = np.asarray(time_s, dtype=float), np.asarray(x_mm, dtype=float)
     seg = slice(start, max(failure, start + 2) + 1)

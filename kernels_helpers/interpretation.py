@@ -19,7 +19,7 @@ from typing import Any, Final, Literal
 
 from .atomic import write_text_atomic
 from .errors import InterpretationFileError
-from .settings import PARTIAL_FACTOR_SETS, PickSettings, ReductionSettings
+from .settings import PARTIAL_FACTOR_SETS, PickSettings, RateSettings, ReductionSettings
 
 __all__ = [
     "INTERPRETATION_FILE",
@@ -63,11 +63,12 @@ class FitSettings:
 
 @dataclass(frozen=True)
 class Settings:
-    """All settings that change numbers: reduction, suggestion rules and fits."""
+    """All settings that change numbers or checks: reduction, suggestion rules, fits, drained rate."""
 
     reduction: ReductionSettings = field(default_factory=ReductionSettings)
     picks: PickSettings = field(default_factory=PickSettings)
     fit: FitSettings = field(default_factory=FitSettings)
+    rate: RateSettings = field(default_factory=RateSettings)
 
 
 @dataclass(frozen=True)
@@ -319,6 +320,7 @@ def from_dict(data: Mapping[str, Any], where: str) -> Interpretation:
         reduction=_build(ReductionSettings, s.get("reduction", {}), f"{where} settings.reduction"),
         picks=_build(PickSettings, s.get("picks", {}), f"{where} settings.picks"),
         fit=_build(FitSettings, s.get("fit", {}), f"{where} settings.fit"),
+        rate=_build(RateSettings, s.get("rate", {}), f"{where} settings.rate"),  # absent in older files: default
     )
     stages = {}
     for sid, raw in data.get("stages", {}).items():

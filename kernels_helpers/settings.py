@@ -10,7 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Final, Literal
 
-__all__ = ["PARTIAL_FACTOR_SETS", "AreaConvention", "PickSettings", "ReductionSettings"]
+__all__ = ["PARTIAL_FACTOR_SETS", "TIME_TO_FAILURE_RULES", "AreaConvention", "PickSettings", "RateSettings",
+           "ReductionSettings"]
 
 AreaConvention = Literal["corrected", "nominal"]
 
@@ -73,3 +74,27 @@ class PickSettings:
                 raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
         if self.peak_rule not in ("tau", "ratio"):
             raise ValueError(f"peak_rule must be 'tau' or 'ratio', not {self.peak_rule!r}")
+
+
+#: rule -> (multiplier, consolidation time it multiplies); REFERENCES sec. 1: ASTM D3080 50 t_50,
+#: its root-time equivalent 11.6 t_90, BS 1377-7 12.7 t_100 (Gibson & Henkel 1954, 95 % drainage)
+TIME_TO_FAILURE_RULES: Final = {"50 t_50": (50.0, "t_50"), "11.6 t_90": (11.6, "t_90"), "12.7 t_100": (12.7, "t_100")}
+
+
+@dataclass(frozen=True)
+class RateSettings:
+    """How the drained-rate check takes the required time to failure from the consolidation stage.
+
+    ``time_to_failure`` "largest" (the default) takes the largest of the rules the consolidation
+    constructions give, the cautious choice; or one rule by name, the one the governing standard
+    states: "50 t_50" (ASTM D3080, t_50 from log time), "11.6 t_90" (the same on root time) or
+    "12.7 t_100" (BS 1377-7, t_100 from root time).
+    """
+
+    time_to_failure: str = "largest"
+
+    def __post_init__(self) -> None:
+        allowed = ("largest", *TIME_TO_FAILURE_RULES)
+        if self.time_to_failure not in allowed:
+            raise ValueError(f"time_to_failure must be one of {', '.join(map(repr, allowed))}, "
+                             f"not {self.time_to_failure!r}")

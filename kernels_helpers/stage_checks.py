@@ -37,8 +37,12 @@ def _normal_force(spec: StageSpec, readings: StageReadings) -> np.ndarray | None
     return None
 
 
-def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, x_failure_mm: float) -> StageChecks:
-    """Every check of one stage; ``x_failure_mm`` is where failure was picked (for the rate check)."""
+def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, x_failure_mm: float,
+                time_to_failure: str = "largest") -> StageChecks:
+    """Every check of one stage; ``x_failure_mm`` is where failure was picked (for the rate check).
+
+    ``time_to_failure``: the rule of the rate check (:class:`.settings.RateSettings`).
+    """
     c = reduced.curve
     in_shear = c["in_shear"].to_numpy()
     flags = [*readings.notes]
@@ -60,7 +64,10 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
     if rows.size >= 3:
         x = c["x_mm"].to_numpy()
         failure = int(rows[np.argmin(np.abs(x[rows] - x_failure_mm))])
-        rate = rate_check(c["time_s"].to_numpy(), x, int(rows[0]), failure, result)
+        rate = rate_check(c["time_s"].to_numpy(), x, int(rows[0]), failure, result, time_to_failure)
         if rate is not None and rate.flag:
             flags.append(rate.flag)
+        if rate is None and time_to_failure != "largest":
+            flags.append(f"no drained-rate check: the rule t_f = {time_to_failure} chosen in the settings needs a "
+                         f"time the consolidation stage ({relpath}) did not give")
     return StageChecks(tuple(flags), result, cons_readings.sha256, rate)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -11,6 +12,8 @@ import pytest
 
 from kernels_helpers import Interpretation, interpret
 from kernels_helpers.consolidation import T50, T90, analyse_consolidation, rate_check, terzaghi_u
+from kernels_helpers.interpretation import Settings
+from kernels_helpers.settings import RateSettings
 
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"
 H0 = 20.0  # mm
@@ -102,6 +105,40 @@ def test_rate_check_rule_and_flag() -> None:
     assert f"by {check.rule}" in check.flag
     slow = rate_check(time * 100, x, 0, failure, r)
     assert slow is not None and not slow.too_fast and slow.flag is None
+    # one rule by name (the governing standard's): that one is required, every candidate still reported
+    for rule, factor, t_cons in (("50 t_50", 50.0, r.casagrande.t50_s), ("11.6 t_90", 11.6, r.taylor.t90_s),
+                                 ("12.7 t_100", 12.7, r.taylor.t100_s)):
+        named = rate_check(time, x, 0, failure, r, rule)
+        assert named is not None and named.rule.startswith(f"t_f = {rule} (")
+        assert named.required_s == factor * t_cons and named.candidates_s == check.candidates_s
+        assert f"by {named.rule}" in named.flag
+
+
+def test_a_named_rule_without_its_construction_gives_no_check_and_says_so(monkeypatch: pytest.MonkeyPatch) -> None:
+    from kernels_helpers import stage_checks
+
+    r = analyse_consolidation(*terzaghi_curve(0.05), H0)
+    short = dataclasses.replace(r, casagrande=None)  # e.g. a stage stopped before the secondary branch: no t_50
+    time = np.arange(0.0, 3600.0, 10.0)
+    x = 0.1 / 60.0 * time
+    assert rate_check(time, x, 0, 120, short, "50 t_50") is None
+    assert rate_check(time, x, 0, 120, short).rule.startswith("t_f = 12.7 t_100")  # the largest of those left
+    monkeypatch.setattr(stage_checks, "analyse_consolidation", lambda *a, **k: short)
+    results = interpret(EXAMPLE, Interpretation(settings=Settings(rate=RateSettings("50 t_50"))))
+    for s in results.stages:
+        assert s.rate is None
+        assert (f"no drained-rate check: the rule t_f = 50 t_50 chosen in the settings needs a time the "
+                f"consolidation stage (readings/{s.stage_id}-consolidation.csv) did not give") in s.flags
+
+
+def test_the_rule_is_a_setting_of_the_interpretation() -> None:
+    results = interpret(EXAMPLE, Interpretation(settings=Settings(rate=RateSettings("12.7 t_100"))))
+    for s in results.stages:
+        assert s.rate is not None and s.rate.rule.startswith("t_f = 12.7 t_100 (")
+    assert json.loads(results.to_json())["settings"]["rate"] == {"time_to_failure": "12.7 t_100"}
+    default = interpret(EXAMPLE, Interpretation())
+    for s in default.stages:
+        assert s.rate.required_s == max(s.rate.candidates_s.values())
 
 
 def test_example_project_consolidation_and_rate() -> None:

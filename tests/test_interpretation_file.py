@@ -178,6 +178,9 @@ def test_bad_decisions_in_the_file(tmp_path: Path, stage: dict[str, object], par
         ("fit", {"level": 1.5}, "settings.fit: level must be between 0.5 and 1, not 1.5"),
         ("reduction", {"area_convention": "shrunk"}, "settings.reduction: area_convention must be"),
         ("picks", {"cs_window_mm": 0}, "settings.picks: cs_window_mm must be positive, not 0"),
+        ("rate", {"time_to_failure": "100 t_50"}, "settings.rate: time_to_failure must be one of 'largest', "
+                                                  "'50 t_50', '11.6 t_90', '12.7 t_100', not '100 t_50'"),
+        ("rate", {"rule": "largest"}, "settings.rate: unknown field(s) rule"),
     ],
 )
 def test_bad_settings_in_the_file(tmp_path: Path, section: str, value: dict[str, object], part: str) -> None:

@@ -52,7 +52,8 @@ def _wait(check: Callable[[], object], timeout_s: float, what: str) -> object:
 def running_lab(project: Path, scratch: Path) -> Iterator[str]:
     """JupyterLab on 127.0.0.1 with fresh configuration dirs; yields the project workbook's URL; stops it by PID."""
     env = {**os.environ, "JUPYTER_CONFIG_DIR": str(scratch / "config"), "JUPYTER_RUNTIME_DIR": str(scratch / "runtime"),
-           "JUPYTERLAB_SETTINGS_DIR": str(scratch / "settings"), "JUPYTERLAB_WORKSPACES_DIR": str(scratch / "workspaces")}
+           "JUPYTERLAB_SETTINGS_DIR": str(scratch / "settings"),
+           "JUPYTERLAB_WORKSPACES_DIR": str(scratch / "workspaces")}
     for rel, value in SETTINGS.items():
         path = scratch / "settings" / rel
         path.parent.mkdir(parents=True, exist_ok=True)
@@ -115,7 +116,8 @@ def _shown_matches_file(page, project: Path) -> list[tuple[str, str, str]] | Non
     return expected if shown == expected else None
 
 
-def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, example_copy: Path, artifacts: Path) -> None:
+def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, example_copy: Path,
+                                                          artifacts: Path) -> None:
     page = browser.new_page()
     errors: list[str] = []
     page.on("pageerror", lambda e: errors.append(str(e)))
@@ -149,7 +151,8 @@ def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, exam
         assert saved["raw_files"], "the raw-file hashes are saved with the decisions"
         panel = page.evaluate(PLOT_BOX, [name, 0, 0])
         page.screenshot(path=str(artifacts / "workbook-after-drag.png"),
-                        clip={"x": max(panel["left"] - 10, 0), "y": max(panel["top"] - 40, 0), "width": 1100, "height": 520})
+                        clip={"x": max(panel["left"] - 10, 0), "y": max(panel["top"] - 40, 0), "width": 1100,
+                              "height": 520})
 
         row = page.locator(f".sb-reason-{EXCLUDED} input")
         row.scroll_into_view_if_needed()

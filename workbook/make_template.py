@@ -71,7 +71,8 @@ CELLS = [
     new_markdown_cell(
         "## Consolidation and rate of shearing\nEach consolidation stage on log time (Casagrande: d_0, d_100 "
         "from the tangent and the secondary branch, t_50) and root time (Taylor: the 1.15 line, t_90), then the "
-        "required time to failure (the largest of 50 t_50, 11.6 t_90 and 12.7 t_100) against the test."
+        "required time to failure (by default the largest of 50 t_50, 11.6 t_90 and 12.7 t_100; the interpretation "
+        "file's settings.rate may name one rule) against the test."
     ),
     new_code_cell("views.show_consolidation(results)"),
     new_markdown_cell(

@@ -99,4 +99,8 @@ def show_consolidation(results: Results) -> None:
         return
     for s in stages:
         show_static(consolidation_figure(s))
-    display(HTML(rate_table(results)))
+    rule = results.settings.get("rate", {}).get("time_to_failure", "largest")
+    said = ("the largest of 50 t_50, 11.6 t_90 and 12.7 t_100 that the constructions give (the cautious choice)"
+            if rule == "largest" else f"t_f = {tables.esc(rule)}, as chosen in the interpretation file's settings")
+    display(HTML(f"<p>Required time to failure: {said}; settings.rate.time_to_failure in the interpretation "
+                 "file chooses the rule the governing standard states.</p>" + rate_table(results)))

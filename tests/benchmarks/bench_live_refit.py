@@ -154,7 +154,8 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
                 print(f"repeat {k}: no redraw seen; screenshot {shot}", page.evaluate(
                     "() => [window.__sb_up, window.__sb_env]"), interpret(root).stage(sid).peak_source)
                 print(page.evaluate(f"""() => Bokeh.index.query_one(v => v.model.name === '{env_name}').model.renderers
-                    .map(r => JSON.stringify(r.data_source.data.y ? Array.from(r.data_source.data.y).slice(0, 4) : null))"""))
+                    .map(r => JSON.stringify(r.data_source.data.y
+                                             ? Array.from(r.data_source.data.y).slice(0, 4) : null))"""))
                 env = interpret(root).envelope(group, "peak")
                 print("python:", env.stage_ids, env.tau_kpa)
                 raise
