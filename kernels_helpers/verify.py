@@ -81,16 +81,29 @@ class Verification:
     mismatches: tuple[str, ...]  # "path: recorded -> now"
     compared: int
     notes: tuple[str, ...] = field(default=())
+    rerun_error: str | None = None  # the re-run raised: nothing could be compared
 
     @property
     def ok(self) -> bool:
-        return not self.changed_files and not self.mismatches
+        return not self.changed_files and not self.mismatches and self.rerun_error is None
+
+    @property
+    def mode(self) -> str:
+        if self.rerun_error is not None:
+            return "re-run failed"
+        return "exact" if self.exact else f"rel {REL_TOL:g}"
 
     def to_text(self) -> str:
-        mode = ("bit-identical (same versions)" if self.exact
+        if self.rerun_error is not None:
+            head = "the re-run failed, no values compared"
+        else:
+            head = f"{self.compared} values compared, " + (
+                "bit-identical (same versions)" if self.exact
                 else f"within rel {REL_TOL:g} / abs {ABS_TOL:g} (versions differ)")
-        lines = [f"{self.record}: {'MATCH' if self.ok else 'MISMATCH'} - {self.compared} values compared, {mode}"]
+        lines = [f"{self.record}: {'MATCH' if self.ok else 'MISMATCH'} - {head}"]
         lines += [f"  raw file changed: {f}" for f in self.changed_files]
+        if self.rerun_error is not None:
+            lines.append(f"  re-run failed: {self.rerun_error}")
         lines += [f"  moved: {m}" for m in self.mismatches[:50]]
         if len(self.mismatches) > 50:
             lines.append(f"  ... and {len(self.mismatches) - 50} more")
@@ -114,7 +127,7 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
     try:
         now = json.loads(interpret(project, from_dict(interp_json, f"{rec_path} (embedded interpretation)")).to_json())
     except ShearbookError as exc:
-        return Verification(rec_path, root, False, changed, (f"the re-run failed: {exc}",), 0)
+        return Verification(rec_path, root, False, changed, (), 0, rerun_error=str(exc))
     versions_then = (recorded["provenance"].get("versions"), recorded["provenance"].get("python"))
     exact = versions_then == (now["provenance"]["versions"], now["provenance"]["python"])
     a = {k: v for k, v in _leaves(recorded) if not k.startswith(SKIP)}
@@ -178,5 +191,5 @@ def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Pa
                 w.writerow([rec, "", "error", "", "", "", "", err])
             else:
                 w.writerow([rec, v.project, "match" if v.ok else "mismatch", "; ".join(v.changed_files),
-                            len(v.mismatches), v.compared, "exact" if v.exact else f"rel {REL_TOL:g}", ""])
+                            len(v.mismatches), v.compared, v.mode, v.rerun_error or ""])
     return out
