@@ -144,6 +144,19 @@ def write_project(folder: Path, stages: dict[str, tuple], normal_column: bool = 
     return folder
 
 
+UNSETTLED = [0.62, 0.55, 0.48, 0.45, 0.42]  # passes 1-5 (forward 1, 3, 5): still falling, residual not reached
+
+
+def reversal_project(folder: Path) -> Path:
+    """Two reversal stages whose forward passes have not settled (the rule says "residual not
+    reached"), R1 and R2, and one single-stage test S1, in one test set."""
+    return write_project(folder, {
+        "R1": (reversal_readings(UNSETTLED, 360.0, 1), 360.0, "reversal"),
+        "R2": (reversal_readings(UNSETTLED, 720.0, 2), 720.0, "reversal"),
+        "S1": (readings(Model(normal_n=540.0, seed=3)), 540.0, "single-stage"),
+    })
+
+
 def benchmark_project(folder: Path, n_stages: int = 12, n_readings: int = 50_000) -> Path:
     """A project of ``n_stages`` dense stages in four test sets at four normal stresses, for benchmarks."""
     stages = {}

@@ -14,21 +14,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 from bokeh.core.serialization import Serializer
-from synthetic import Model, readings, reversal_readings, write_project
+from synthetic import Model, readings, reversal_project, write_project
 
 from kernels_helpers import interpret
 from kernels_helpers.views.widgets import LiveWorkbook, StagePanel, live_workbook
 
-RATIOS = [0.62, 0.55, 0.48, 0.45, 0.42]  # passes 1-5 (forward 1, 3, 5): still falling, residual not reached
-
 
 @pytest.fixture
 def folder(tmp_path: Path) -> Path:
-    return write_project(tmp_path / "p", {
-        "R1": (reversal_readings(RATIOS, 360.0, 1), 360.0, "reversal"),
-        "R2": (reversal_readings(RATIOS, 720.0, 2), 720.0, "reversal"),
-        "S1": (readings(Model(normal_n=540.0, seed=3)), 540.0, "single-stage"),
-    })
+    return reversal_project(tmp_path / "p")
 
 
 @pytest.fixture

@@ -116,19 +116,48 @@ def _shown_matches_file(page, project: Path) -> list[tuple[str, str, str]] | Non
     return expected if shown == expected else None
 
 
+def open_and_run_all(page, url: str, plot_name: str) -> None:
+    """Open the workbook, run every cell, and wait until the plot ``plot_name`` is drawn and the kernel idle."""
+    page.goto(url)
+    page.wait_for_function(KERNEL_IDLE, timeout=90_000)
+    page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
+    page.wait_for_function(f"() => window.Bokeh && Bokeh.index.query_one(v => v.model.name === '{plot_name}')",
+                           timeout=90_000)
+    page.wait_for_function(KERNEL_IDLE, timeout=90_000)
+
+
+def drag_until_saved(page, plot: str, x_from: float, y: float, x_to: float, saved: Callable[[], object],
+                     what: str, tries: int = 3) -> object:
+    """Drag on ``plot`` from (x_from, y) to (x_to, y) in data units until ``saved()`` is true; return it.
+
+    The first drags after the outputs appear can be lost while the page's Bokeh models finish
+    connecting to the kernel (DEVELOPERS.md, live refit budget): a user drags again, so do we.
+    """
+    for _ in range(tries):
+        page.evaluate(PLOT_BOX, [plot, x_from, y])  # scroll into view, then let the page settle
+        page.wait_for_timeout(800)
+        start = page.evaluate(PLOT_BOX, [plot, x_from, y])
+        end = page.evaluate(PLOT_BOX, [plot, x_to, y])
+        page.mouse.move(start["x"], start["y"])
+        page.wait_for_timeout(200)
+        page.mouse.down()
+        page.mouse.move(end["x"], end["y"], steps=10)
+        page.mouse.up()
+        try:
+            return _wait(saved, 8, what)
+        except AssertionError:
+            continue
+    raise AssertionError(f"{tries} drags on {plot} and still no {what}")
+
+
 def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, example_copy: Path,
                                                           artifacts: Path) -> None:
     page = browser.new_page()
     errors: list[str] = []
     page.on("pageerror", lambda e: errors.append(str(e)))
     try:
-        page.goto(lab)
-        page.wait_for_function(KERNEL_IDLE, timeout=90_000)
-        page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
         name = f"live-{STAGE}-tau"
-        page.wait_for_function(f"() => window.Bokeh && Bokeh.index.query_one(v => v.model.name === '{name}')",
-                               timeout=90_000)
-        page.wait_for_function(KERNEL_IDLE, timeout=90_000)
+        open_and_run_all(page, lab, name)
         page.wait_for_timeout(500)
         page.locator(".sb-author").scroll_into_view_if_needed()
         page.screenshot(path=str(artifacts / "workbook-after-run.png"))
@@ -137,14 +166,10 @@ def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, exam
         page.locator(".sb-author input").press("Tab")
         before = interpret(example_copy).stage(STAGE)
         x_new = before.peak.x_mm + 1.5
-        start = page.evaluate(PLOT_BOX, [name, before.peak.x_mm, before.peak.tau_kpa])
-        end = page.evaluate(PLOT_BOX, [name, x_new, before.peak.tau_kpa])
-        page.mouse.move(start["x"], start["y"])
-        page.mouse.down()
-        page.mouse.move(end["x"], end["y"], steps=10)
-        page.mouse.up()
-        saved = _wait(lambda: _file(example_copy).get("stages", {}).get(STAGE, {}).get("peak", {}).get("author")
-                      == "B. Browser" and _file(example_copy), 20, "the dragged peak in the interpretation file")
+        saved = drag_until_saved(
+            page, name, before.peak.x_mm, before.peak.tau_kpa, x_new,
+            lambda: _file(example_copy).get("stages", {}).get(STAGE, {}).get("peak", {}).get("author") == "B. Browser"
+            and _file(example_copy), "dragged peak in the interpretation file")
         peak = saved["stages"][STAGE]["peak"]
         assert peak["source"] == "manual" and peak["time_utc"].endswith("Z")
         assert abs(peak["x_mm"] - x_new) < 0.1, peak  # snapped to a reading near where it was dropped

@@ -13,14 +13,13 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-from synthetic import Model, readings, reversal_readings, write_project
-from test_workbook_browser import KERNEL_IDLE, PLOT_BOX, _wait, running_lab
+from synthetic import reversal_project
+from test_workbook_browser import PLOT_BOX, _wait, drag_until_saved, open_and_run_all, running_lab
 
 from kernels_helpers import interpret
 
 pytestmark = pytest.mark.browser
 
-RATIOS = [0.62, 0.55, 0.48, 0.45, 0.42]  # passes 1-5 (forward 1, 3, 5): still falling, residual not reached
 STAGE = "R1"
 # the data of the envelope plot's residual points, as the page holds them
 RESIDUAL_POINTS = """([name]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
@@ -31,11 +30,7 @@ RESIDUAL_POINTS = """([name]) => { const v = Bokeh.index.query_one(v => v.model.
 
 @pytest.fixture
 def project(tmp_path: Path) -> Path:
-    return write_project(tmp_path / "p", {
-        "R1": (reversal_readings(RATIOS, 360.0, 1), 360.0, "reversal"),
-        "R2": (reversal_readings(RATIOS, 720.0, 2), 720.0, "reversal"),
-        "S1": (readings(Model(normal_n=540.0, seed=3)), 540.0, "single-stage"),
-    })
+    return reversal_project(tmp_path / "p")
 
 
 @pytest.fixture
@@ -56,13 +51,8 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
     errors: list[str] = []
     page.on("pageerror", lambda e: errors.append(str(e)))
     try:
-        page.goto(lab)
-        page.wait_for_function(KERNEL_IDLE, timeout=90_000)
-        page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
         name = f"live-{STAGE}-tau"
-        page.wait_for_function(f"() => window.Bokeh && Bokeh.index.query_one(v => v.model.name === '{name}')",
-                               timeout=90_000)
-        page.wait_for_function(KERNEL_IDLE, timeout=90_000)
+        open_and_run_all(page, lab, name)
         page.locator(".sb-author input").fill("R. Browser")
         page.locator(".sb-author input").press("Tab")
         before = interpret(project).stage(STAGE)
@@ -76,26 +66,9 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
         target = x_to - 1.2  # pull the far end of the window back along the pass
         envelope = "live-envelope-synthetic"
         shown_before = page.evaluate(RESIDUAL_POINTS, [envelope])
-        # the first drags after the outputs appear can be lost while the page's Bokeh models finish
-        # connecting to the kernel (DEVELOPERS.md, live refit budget): a user drags again, so do we
-        for _ in range(3):
-            page.evaluate(PLOT_BOX, [name, x_to, y])
-            page.wait_for_timeout(800)
-            start = page.evaluate(PLOT_BOX, [name, x_to, y])
-            end = page.evaluate(PLOT_BOX, [name, target, y])
-            page.mouse.move(start["x"], start["y"])
-            page.wait_for_timeout(200)
-            page.mouse.down()
-            page.mouse.move(end["x"], end["y"], steps=10)
-            page.mouse.up()
-            try:
-                saved = _wait(lambda: _residual(project).get("author") == "R. Browser" and _residual(project), 8,
-                              "the dragged residual window in the interpretation file")
-                break
-            except AssertionError:
-                continue
-        else:
-            raise AssertionError("three drags of the residual window end reached no saved pick")
+        saved = drag_until_saved(page, name, x_to, y, target,
+                                 lambda: _residual(project).get("author") == "R. Browser" and _residual(project),
+                                 "dragged residual window in the interpretation file")
         assert saved["source"] == "manual" and saved["pass_no"] == 5 and saved["time_utc"].endswith("Z")
         assert abs(saved["x_from_mm"] - x_from) < 0.05, saved  # the other end stayed
         assert abs(saved["x_to_mm"] - target) < 0.1, saved  # snapped to a reading near the drop
