@@ -130,11 +130,16 @@ def _cv(time_factor: float, height0_mm: float, d_mm: float, t_s: float) -> float
     return time_factor * h_dr**2 / t_s
 
 
-def casagrande(t_s: np.ndarray, d_mm: np.ndarray, height0_mm: float) -> tuple[CasagrandeFit | None, str | None]:
-    """Casagrande's log-time construction (see the module docstring); (None, reason) when not possible."""
+def _after_zero(t_s: np.ndarray, d_mm: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+    """The readings after time zero and the settlement observed over them (mm)."""
     ok = t_s > 0
     t, d = t_s[ok], d_mm[ok]
-    total = float(d[-1] - d[0])
+    return t, d, float(d[-1] - d[0]) if d.size else 0.0
+
+
+def casagrande(t_s: np.ndarray, d_mm: np.ndarray, height0_mm: float) -> tuple[CasagrandeFit | None, str | None]:
+    """Casagrande's log-time construction (see the module docstring); (None, reason) when not possible."""
+    t, d, total = _after_zero(t_s, d_mm)
     if t.size < 8 or total <= 0:
         return None, "Casagrande log-time: too few readings or no settlement"
     t1 = max(float(t[0]), _interp_time(t, d, d[0] + 0.1 * total))
@@ -172,9 +177,7 @@ def casagrande(t_s: np.ndarray, d_mm: np.ndarray, height0_mm: float) -> tuple[Ca
 
 def taylor(t_s: np.ndarray, d_mm: np.ndarray, height0_mm: float) -> tuple[TaylorFit | None, str | None]:
     """Taylor's root-time construction (see the module docstring); (None, reason) when not possible."""
-    ok = t_s > 0
-    t, d = t_s[ok], d_mm[ok]
-    total = float(d[-1] - d[0])
+    t, d, total = _after_zero(t_s, d_mm)
     if t.size < 8 or total <= 0:
         return None, "Taylor root-time: too few readings or no settlement"
     early = d - d[0] <= 0.4 * total

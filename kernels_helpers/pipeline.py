@@ -187,7 +187,7 @@ def pair_flags(stages: tuple[StageResult, ...], ratio_tolerance: float = 0.05, e
 
 def _groups(stages: Iterable[StageResult]) -> dict[str, list[StageResult]]:
     """Envelope groups: each test set, and each stratum that holds more than one test set."""
-    out: dict[str, list[StageResult]] = {}
+    out: dict[str, list[StageResult]] = {}  # names as StageResult.in_group reads them
     strata: dict[str, set[str]] = {}
     for s in stages:
         out.setdefault(s.test_set or "all stages", []).append(s)
@@ -206,7 +206,7 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
         tau = tuple(float(s.residual.tau_kpa) for s in used)  # type: ignore[union-attr, arg-type]
     else:
         used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)]
-        points = [(s.peak if kind == "peak" else s.cs) for s in used]
+        points = [s.strength(kind) for s in used]
         sigma = tuple(p.sigma_kpa for p in points)
         tau = tuple(p.tau_kpa for p in points)
     ids = tuple(s.stage_id for s in used)

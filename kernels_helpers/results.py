@@ -69,6 +69,14 @@ class StageResult:
         """Normal stress on the nominal (initial) area, kPa: the stage's label."""
         return self.reduced.normal_force_n / self.reduced.area0_mm2 * 1000.0
 
+    def strength(self, kind: str) -> PointValues | WindowValues | Residual | None:
+        """The pick of one kind ("peak", "critical_state", "residual"): its sigma_kpa and tau_kpa."""
+        return {"peak": self.peak, "critical_state": self.cs, "residual": self.residual}[kind]
+
+    def in_group(self, group: str) -> bool:
+        """Whether the stage belongs to envelope group ``group``: its test set, or its stratum pooled."""
+        return group in (self.test_set or "all stages", f"stratum {self.stratum} (all sets)")
+
 
 @dataclass(frozen=True)
 class EnvelopeResult:

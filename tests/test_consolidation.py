@@ -105,7 +105,9 @@ def test_rate_check_rule_and_flag() -> None:
     assert f"by {check.rule}" in check.flag
     slow = rate_check(time * 100, x, 0, failure, r)
     assert slow is not None and not slow.too_fast and slow.flag is None
-    # one rule by name (the governing standard's): that one is required, every candidate still reported
+    # one rule by name (the governing standard's): that one is required, every candidate still reported.
+    # Factors: 50 t_50 ASTM D3080, 11.6 t_90 its root-time equivalent, 12.7 t_100 BS 1377-7 after
+    # Gibson & Henkel 1954 (REFERENCES sec. 1)
     for rule, factor, t_cons in (("50 t_50", 50.0, r.casagrande.t50_s), ("11.6 t_90", 11.6, r.taylor.t90_s),
                                  ("12.7 t_100", 12.7, r.taylor.t100_s)):
         named = rate_check(time, x, 0, failure, r, rule)

@@ -17,6 +17,7 @@ from synthetic import reversal_project
 from test_workbook_browser import PLOT_BOX, _wait, drag_until_saved, open_and_run_all, running_lab
 
 from kernels_helpers import interpret
+from kernels_helpers.views.figures import RESIDUAL
 
 pytestmark = pytest.mark.browser
 
@@ -60,7 +61,7 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
         ends = page.evaluate(f"""() => {{ const v = Bokeh.index.query_one(v => v.model.name === '{name}');
             const r = v.model.renderers.find(r => r.glyph.marker && r.glyph.marker.value === 'square'
                                                  && r.data_source.data.x && r.data_source.data.x.length === 2
-                                                 && r.glyph.fill_color.value === '#8c564b');
+                                                 && r.glyph.fill_color.value === '{RESIDUAL}');
             return [Array.from(r.data_source.data.x), Array.from(r.data_source.data.y)]; }}""")
         (x_from, x_to), (y, _) = ends
         target = x_to - 1.2  # pull the far end of the window back along the pass

@@ -26,6 +26,7 @@ from bokeh.plotting import figure
 from tsdownsample import LTTBDownsampler
 
 from ..results import EnvelopeResult, Results, StageResult
+from .tables import num
 
 __all__ = ["DISPLAY_POINTS", "decimate", "envelope_figure", "linked_row", "stage_figure"]
 
@@ -135,10 +136,6 @@ def _line_points(fit, sigma_max: float) -> tuple[list[float], list[float]]:
     return xs, [fit.intercept + fit.slope * v for v in xs]
 
 
-def _c_text(value: float) -> str:
-    return f"{value + 0.0:.1f}".replace("-0.0", "0.0")  # + 0.0 turns -0.0 into 0.0
-
-
 def envelope_figure(results: Results, group: str):
     """tau against sigma' for one group, every pick type in one plot.
 
@@ -156,6 +153,7 @@ def envelope_figure(results: Results, group: str):
     items = []
     styles = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"), ("residual", RESIDUAL, "square"))
     sigma_max = max([1.0, *(v for e in members.values() for v in e.sigma_kpa)])
+    out = [s for s in results.stages if s.in_group(group) and not s.included]
     for kind, colour, marker in [st for st in styles if st[0] in members]:
         env: EnvelopeResult = members[kind]
         stat = stats.get(kind)
@@ -163,9 +161,8 @@ def envelope_figure(results: Results, group: str):
         src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids),
                                 "phi_sec": list(stat.secant_phi_deg) if stat else [float("nan")] * len(env.stage_ids)})
         r = p.scatter("sigma", "tau", source=src, size=10, color=colour, marker=marker)
-        out = [s for s in results.stages if (s.test_set == group or group.startswith("stratum")) and not s.included]
         if out and kind != "residual":
-            gx = [(s.peak if kind == "peak" else s.cs) for s in out]
+            gx = [s.strength(kind) for s in out]
             items.append((f"{name} excluded", [p.scatter([q.sigma_kpa for q in gx], [q.tau_kpa for q in gx], size=9,
                                                           color=GREY, marker=marker, alpha=0.7)]))
         fit = env.chosen
@@ -186,7 +183,7 @@ def envelope_figure(results: Results, group: str):
             items.append((f"{name}: {pct} prediction band (one new specimen)", [pred]))
         else:
             xs, ys = _line_points(fit, sigma_max)
-        c_txt = "0" if fit.through_origin else _c_text(fit.intercept)
+        c_txt = "0" if fit.through_origin else num(fit.intercept, 1)
         line = p.line(xs, ys, color=colour, line_width=2)
         items.insert(0, (f"{name}: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg", [r, line]))
         if stat is not None and stat.power is not None:
@@ -202,7 +199,7 @@ def envelope_figure(results: Results, group: str):
         items.append((f"{d.kind.replace('_', ' ')}: lower bound used for the characteristic value",
                       [p.line(ch.sigma_kpa, ch.tau_bound_kpa, color=DESIGN, line_width=1.5)]))
         xs = [lo_r, hi_r]
-        items.append((f"characteristic line: c'_k {_c_text(round(d.c_k_kpa, 1))} kPa, phi'_k {d.phi_k_deg:.1f} deg "
+        items.append((f"characteristic line: c'_k {num(d.c_k_kpa, 1)} kPa, phi'_k {d.phi_k_deg:.1f} deg "
                        f"({ch.expressed})", [p.line(xs, [d.c_k_kpa + d.tan_phi_k * x for x in xs], color=DESIGN,
                                                     line_width=3)]))
     p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("tau", "@tau{0.0} kPa"),

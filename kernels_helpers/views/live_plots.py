@@ -253,17 +253,16 @@ class EnvelopePlot:
         self.update(results)
 
     def update(self, results: Results) -> None:
-        members = [s for s in results.stages
-                   if self.group in ((s.test_set or "all stages"), f"stratum {s.stratum} (all sets)")]
+        members = [s for s in results.stages if s.in_group(self.group)]
         sigma_max = max([1.0, *(s.cs.sigma_kpa for s in members), *(s.peak.sigma_kpa for s in members)])
         for kind, _, _ in self.kinds:
             env: EnvelopeResult = results.envelope(self.group, kind)
             src = self.sources[kind]
-            pick = {"peak": lambda s: s.peak, "critical_state": lambda s: s.cs, "residual": lambda s: s.residual}[kind]
-            out = [s for s in members if not s.included and pick(s) is not None and pick(s).tau_kpa is not None]
+            out = {s.stage_id: p for s in members
+                   if not s.included and (p := s.strength(kind)) is not None and p.tau_kpa is not None}
             _set(src["in"], {"x": list(env.sigma_kpa), "y": list(env.tau_kpa), "stage": list(env.stage_ids)})
-            _set(src["out"], {"x": [pick(s).sigma_kpa for s in out], "y": [pick(s).tau_kpa for s in out],
-                              "stage": [s.stage_id for s in out]})
+            _set(src["out"], {"x": [p.sigma_kpa for p in out.values()], "y": [p.tau_kpa for p in out.values()],
+                              "stage": list(out)})
             drawn = (env, sigma_max, self.curved)
             if self._drawn.get(kind) != drawn:  # the band needs t quantiles: only when the fit changed
                 self._drawn[kind] = drawn

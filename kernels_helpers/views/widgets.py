@@ -362,9 +362,8 @@ _NOWRAP = "<style>.sb-live td:not(:last-child), .sb-live th {white-space: nowrap
 
 
 def _kpa(value: float) -> str:
-    """A stress to 0.1 kPa, never "-0.0"."""
-    text = f"{value:.1f}"
-    return "0.0" if text == "-0.0" else text
+    """A stress to 0.1 kPa, never "-0.0" (short for ``tables.num(value, 1)``)."""
+    return tables.num(value, 1)
 
 
 def summary_html(results: Results, controller: Controller) -> str:
