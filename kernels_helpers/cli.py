@@ -15,18 +15,17 @@ from __future__ import annotations
 
 import argparse
 import os
-import shutil
 import subprocess
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import Any
 
 from .errors import ShearbookError
 from .project import load_project
 
 __all__ = ["main"]
 
-WORKBOOK_NAME = "shear_interpretation.ipynb"
 
 
 def _results(args: argparse.Namespace) -> int:
@@ -34,6 +33,7 @@ def _results(args: argparse.Namespace) -> int:
 
     results = interpret(load_project(args.project), args.interpretation)
     sys.stdout.write(results.to_json())
+    _flags(args, results.to_dict())
     return 0
 
 
@@ -50,11 +50,12 @@ def _export(args: argparse.Namespace) -> int:
         from .export_tables import write_tables
 
         for path in write_tables(results, args.csv):
-            print(path)
+            _result(args, str(path))
     if args.ags4 is not None:
         from .ags4_export import write_ags4
 
-        print(write_ags4(project, results, interp, args.ags4, args.date))
+        _result(args, str(write_ags4(project, results, interp, args.ags4, args.date)))
+    _flags(args, results.to_dict())
     return 0
 
 
@@ -83,7 +84,7 @@ def _signoff(args: argparse.Namespace) -> int:
     if args.state != "draft":  # a signature is given against these exact raw files
         interp = interp.with_raw_files(raw_file_hashes(project, read_all(project)))
     save_interpretation(interp, path)
-    print(f"{path}: sign-off {args.state} by {args.who}")
+    _result(args, f"{path}: sign-off {args.state} by {args.who}")
     return 0
 
 
@@ -103,39 +104,68 @@ def _summary(args: argparse.Namespace) -> int:
     from .pipeline import interpret
     from .summary import summary_text
 
-    sys.stdout.write(summary_text(interpret(load_project(args.project), args.interpretation)))
+    sys.stdout.write(summary_text(interpret(load_project(args.project), args.interpretation)))  # flags included
     return 0
 
 
 def _verify(args: argparse.Namespace) -> int:
-    from .verify import verify_folder, verify_record
+    from .verify import verify_record
 
     if args.record.is_dir():
-        def bar(done: int, total: int, record: Path) -> None:
-            filled = int(30 * done / total)
-            print(f"\r[{'#' * filled}{'.' * (30 - filled)}] {done}/{total} {record.name[:40]:40s}", end="",
-                  file=sys.stderr, flush=True)
-
-        summary = args.summary or args.record / "verify-summary.csv"
-        outcome = verify_folder(args.record, summary, args.project, args.jobs, bar)
-        print(file=sys.stderr)
-        bad = [r for r, v, err in outcome if v is None or not v.ok]
-        for rec, v, err in outcome:
-            print(v.to_text().rstrip() if v else f"{rec}: ERROR - {err}")
-        print(f"{len(outcome) - len(bad)} of {len(outcome)} records match; summary table: {summary}")
-        return 1 if bad else 0
+        return _verify_folder(args)
+    if args.scheduler or args.workers:
+        raise ShearbookError("--scheduler and --workers verify a folder of records; name a folder, not one record.")
     from .verify import project_of
 
     v = verify_record(args.record, args.project or project_of(args.record))
-    sys.stdout.write(v.to_text())
+    if not (args.quiet and v.ok):  # with -q only a mismatch is printed: it is the failure the run exists to find
+        sys.stdout.write(v.to_text())
     return 0 if v.ok else 1
+
+
+def _progress_bar(args: argparse.Namespace) -> Callable[[int, int, Path], None] | None:
+    """A one-line progress bar on a terminal (standard error); none with -q or when stderr is not a terminal."""
+    if args.quiet or not sys.stderr.isatty():
+        return None
+
+    def bar(done: int, total: int, record: Path) -> None:
+        filled = int(30 * done / total)
+        end = "\n" if done == total else ""
+        print(f"\r[{'#' * filled}{'.' * (30 - filled)}] {done}/{total} {record.name[:40]:40s}", end=end,
+              file=sys.stderr, flush=True)
+
+    return bar
+
+
+def _verify_folder(args: argparse.Namespace) -> int:
+    from .verify import Runner, verify_folder
+
+    if args.scheduler and args.workers:
+        raise ShearbookError("give either --scheduler ADDRESS (an existing dask cluster) or --workers N "
+                             "(a local dask cluster of N workers), not both.")
+    if args.workers is not None and args.workers < 1:
+        raise ShearbookError(f"--workers {args.workers}: give a whole number of workers, 1 or more.")
+    if args.jobs is not None and args.jobs < 1:
+        raise ShearbookError(f"--jobs {args.jobs}: give a whole number of processes, 1 or more.")
+    runner = Runner(jobs=args.jobs, scheduler=args.scheduler, workers=args.workers)
+    summary = args.summary or args.record / "verify-summary.csv"
+    _say(args, f"Verifying the records under {args.record} on {runner.describe()} ...")
+    outcome = verify_folder(args.record, summary, args.project, progress=_progress_bar(args), runner=runner)
+    bad = [r for r, v, err in outcome if v is None or not v.ok]
+    for rec, v, err in outcome:
+        if v is None or not (args.quiet and v.ok):
+            print(v.to_text().rstrip() if v else f"{rec}: ERROR - {err}")
+    _result(args, f"{len(outcome) - len(bad)} of {len(outcome)} records match; summary table: {summary}")
+    return 1 if bad else 0
 
 
 def _record(args: argparse.Namespace) -> int:
     from .record import write_record  # nbconvert is imported only by the jobs that need it
 
+    _say(args, f"Running the workbook on {args.project} and exporting the record ...")
     record = write_record(args.project, args.output, args.interpretation, view=args.view)
-    print(record.path)
+    _result(args, str(record.path))
+    _flags(args, record.results)
     return 0
 
 
@@ -143,37 +173,120 @@ def workbook_in_project(project_dir: Path) -> Path:
     """The project's own copy of the template workbook, made on first use (never overwritten)."""
     import nbformat
 
-    from .record import TEMPLATE, inject_parameters
+    from .record import inject_parameters
+    from .resources import WORKBOOK_NAME, workbook_template
 
     target = project_dir / WORKBOOK_NAME
     if not target.exists():
-        nb = nbformat.read(TEMPLATE, as_version=4)
+        nb = nbformat.read(workbook_template(), as_version=4)
         nb = inject_parameters(nb, {"project_dir": ".", "interpretation_file": None})
         nbformat.write(nb, target)
     return target
 
 
+def _port_free(ip: str, port: int) -> bool:
+    import socket
+
+    with socket.socket(socket.AF_INET6 if ":" in ip else socket.AF_INET) as sock:
+        try:
+            sock.bind((ip, port))
+        except OSError:
+            return False
+    return True
+
+
+def _wait_until_serving(url: str, server: subprocess.Popen[bytes], timeout_s: float = 120.0) -> bool:
+    """True once ``url`` answers; False if the server exits or ``timeout_s`` passes first."""
+    import time
+    import urllib.error
+    import urllib.request
+
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline and server.poll() is None:
+        try:
+            with urllib.request.urlopen(url, timeout=2):
+                return True
+        except urllib.error.HTTPError:
+            return True  # it answers (a redirect or a refusal is still an answer)
+        except OSError:
+            time.sleep(0.25)
+    return False
+
+
 def _open(args: argparse.Namespace) -> int:
+    import secrets
+    from urllib.parse import quote
+
     project = load_project(args.project)
+    if not _port_free(args.ip, args.port):
+        raise ShearbookError(f"port {args.port} on {args.ip} is already in use (another JupyterLab?); "
+                             "choose a free one with --port.")
     notebook = workbook_in_project(project.root)
-    jupyter = shutil.which("jupyter-lab", path=str(Path(sys.executable).parent)) or shutil.which("jupyter-lab")
-    if jupyter is None:
-        raise ShearbookError("jupyter-lab is not installed in this environment; run the README's set-up command.")
-    url = f"http://{args.ip}:{args.port}/lab/tree/{notebook.name}"
-    print(f"Opening the workbook {notebook} in JupyterLab.\nURL: {url}  "
-          "(JupyterLab prints the URL with its token below)", flush=True)
-    cmd = [jupyter, f"--ServerApp.root_dir={project.root}", f"--ServerApp.ip={args.ip}",
-           f"--ServerApp.port={args.port}", notebook.name]
+    token = os.environ.get("JUPYTER_TOKEN") or secrets.token_urlsafe(24)  # passed by environment, not argv
+    url = f"http://{args.ip}:{args.port}/lab/tree/{quote(notebook.name)}"
+    cmd = [sys.executable, "-m", "jupyterlab", f"--ServerApp.root_dir={project.root}", f"--ServerApp.ip={args.ip}",
+           f"--ServerApp.port={args.port}", "--ServerApp.port_retries=0",
+           "--KernelManager.transport=ipc",  # kernels on Unix sockets in the runtime folder, not TCP
+           *[f"--{app}.log_level={'INFO' if args.verbose else 'WARN'}" for app in ("ServerApp", "LabApp")],
+           notebook.name]
     if args.no_browser:
         cmd.append("--no-browser")
     if hasattr(os, "geteuid") and os.geteuid() == 0:  # JupyterLab refuses root without it (containers, CI)
         cmd.append("--ServerApp.allow_root=True")
-    return subprocess.call(cmd, cwd=project.root)
+    _say(args, f"Starting JupyterLab on {project.root} ...")
+    server = subprocess.Popen(cmd, cwd=project.root, env={**os.environ, "JUPYTER_TOKEN": token})
+    try:
+        if _wait_until_serving(f"{url}?token={token}", server):
+            print(f"Workbook: {url}?token={token}\nStop the server with Ctrl+C.", flush=True)
+        return server.wait()
+    except KeyboardInterrupt:  # the server got the same signal and shuts down; wait for it
+        return server.wait()
+
+
+OUTPUT_POLICY = ("A normal run prints Shearbook's own lines only: progress on long work (standard error), the result "
+                 "(standard output) and the flags raised on included stages (standard error); -q prints only errors.")
+
+
+class _Sub:
+    """Sub-command parsers that all take the common options (-q, --verbose)."""
+
+    def __init__(self, sub: argparse._SubParsersAction[argparse.ArgumentParser],
+                 common: argparse.ArgumentParser) -> None:
+        self.sub, self.common = sub, common
+
+    def add_parser(self, name: str, **kwargs: str) -> argparse.ArgumentParser:
+        return self.sub.add_parser(name, parents=[self.common], **kwargs)
+
+
+def _say(args: argparse.Namespace, message: str) -> None:
+    """Progress and information for the person at the terminal (standard error); silent with -q."""
+    if not getattr(args, "quiet", False):
+        print(message, file=sys.stderr, flush=True)
+
+
+def _result(args: argparse.Namespace, message: str) -> None:
+    """A command's result line (standard output); silent with -q."""
+    if not getattr(args, "quiet", False):
+        print(message, flush=True)
+
+
+def _flags(args: argparse.Namespace, results: dict[str, Any]) -> None:
+    """The flags raised on included stages (results JSON), one line each (standard error); silent with -q."""
+    raised = [(s["id"], f) for s in results["stages"] if s["included"] for f in s["flags"]]
+    if raised:
+        _say(args, f"{len(raised)} flag(s) on included stages:")
+        for stage_id, flag in raised:
+            _say(args, f"  flag: {stage_id}: {flag}")
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="shearbook", description="Interpretation of direct shear (shear box) tests.")
-    sub = parser.add_subparsers(dest="command", required=True)
+    parser = argparse.ArgumentParser(prog="shearbook", description="Interpretation of direct shear (shear box) tests.",
+                                     epilog=OUTPUT_POLICY)
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-q", "--quiet", action="store_true",
+                        help="print only errors (and the output a command exists to print: results, summary, diff)")
+    common.add_argument("--verbose", action="store_true", help="also show JupyterLab's own log (open)")
+    sub = _Sub(parser.add_subparsers(dest="command", required=True), common)
     p = sub.add_parser("open", help="open the workbook on a project in JupyterLab")
     p.add_argument("project", type=Path, help="project folder (holds project.toml)")
     p.add_argument("--port", type=int, default=8888)
@@ -192,7 +305,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("record", type=Path, help="a record .html file, or a folder of records (batch, in parallel)")
     p.add_argument("--project", type=Path,
                    help="project folder (default: the folder above the record holding project.toml)")
-    p.add_argument("--jobs", type=int, help="parallel workers for a folder (default: all cores)")
+    p.add_argument("--jobs", type=int, help="local processes for a folder (default: all cores)")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="verify a folder on an existing dask.distributed cluster, e.g. tcp://10.0.0.5:8786 "
+                        "(workers need Shearbook installed and the records and projects at the same paths)")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="verify a folder on a local dask.distributed cluster of N worker processes")
     p.add_argument("--summary", type=Path, help="CSV summary table for a folder (default: FOLDER/verify-summary.csv)")
     p.set_defaults(func=_verify)
     p = sub.add_parser("signoff",
@@ -253,7 +371,8 @@ def _import(args: argparse.Namespace) -> int:
     options = ImportOptions(dilation=args.dilation, columns=_pairs(args.column, "--column"),
                             units=_pairs(args.unit, "--unit"), name=args.name)
     project = import_folder(args.folder, args.specimens, args.output, options)
-    print(f"Project created: {project}\nCheck the column map in {project / 'project.toml'} before interpreting.")
+    _result(args, f"Project created: {project}\nCheck the column map in {project / 'project.toml'} "
+                  "before interpreting.")
     return 0
 
 

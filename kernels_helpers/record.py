@@ -16,30 +16,31 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+import shutil
+import tempfile
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from html.parser import HTMLParser
 from pathlib import Path
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 from .atomic import write_text_atomic
 from .errors import RecordError
 from .interpretation import INTERPRETATION_FILE, load_interpretation
 from .mime import INTERPRETATION_MIME, RESULTS_MIME
 from .project import load_project
+from .resources import record_templates_dir, workbook_template
 
 if TYPE_CHECKING:  # imported where used: the kernel starts before these are imported
     import nbformat
     from jupyter_client.manager import AsyncKernelManager
 
-__all__ = ["TEMPLATE", "execute_workbook", "network_references", "write_record"]
+__all__ = ["execute_workbook", "network_references", "write_record"]
 
-REPO = Path(__file__).resolve().parent.parent
-TEMPLATE = REPO / "workbook" / "shear_interpretation.ipynb"
-TEMPLATES_DIR = Path(__file__).resolve().parent / "templates"
 View = Literal["report", "audit"]
 LIVE_TAG = "interactive"  # cells of the live screen: left out of the record (and of its execution)
 KERNEL = "python3"
+KERNEL_DIR_PREFIX = "shearbook-kernel-"  # a private folder per kernel for its IPC sockets, removed when it stops
 WARM_UP = "import kernels_helpers.pipeline, kernels_helpers.views"  # what the workbook's first cell imports
 
 
@@ -57,11 +58,22 @@ def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> n
 
 def start_kernel(cwd: Path) -> AsyncKernelManager:
     """Launch a kernel in ``cwd`` that imports the package while it starts; returns at once."""
+    from jupyter_client.kernelspec import KernelSpecManager
     from jupyter_client.manager import AsyncKernelManager
     from jupyter_core.utils import run_sync
 
-    km = AsyncKernelManager(kernel_name=KERNEL)
-    run_sync(km.start_kernel)(cwd=str(cwd), extra_arguments=[f"--IPKernelApp.exec_lines={WARM_UP}"])
+    # IPC transport (Unix sockets in a private folder, mode 0700) instead of TCP on localhost: no other user
+    # of the machine can reach the kernel, and ipykernel has no cause to warn about unencrypted TCP.
+    sockets = Path(tempfile.mkdtemp(prefix=KERNEL_DIR_PREFIX))
+    # kernel_dirs=[]: the kernel is this environment's own interpreter (the native "python3"), never a python3
+    # kernel spec installed for the user that may point at another environment and another Shearbook.
+    km = AsyncKernelManager(kernel_name=KERNEL, transport="ipc", connection_file=str(sockets / "kernel.json"),
+                            kernel_spec_manager=KernelSpecManager(kernel_dirs=[]))
+    try:
+        run_sync(km.start_kernel)(cwd=str(cwd), extra_arguments=[f"--IPKernelApp.exec_lines={WARM_UP}"])
+    except BaseException:
+        shutil.rmtree(sockets, ignore_errors=True)
+        raise
     return km
 
 
@@ -70,9 +82,12 @@ def stop_kernel(km: AsyncKernelManager) -> None:
 
     if km.has_kernel:
         run_sync(km.shutdown_kernel)(now=True)
+    sockets = Path(km.connection_file).parent
+    if sockets.name.startswith(KERNEL_DIR_PREFIX):
+        shutil.rmtree(sockets, ignore_errors=True)
 
 
-def execute_workbook(project_dir: Path, interpretation_file: Path | None = None, template: Path = TEMPLATE,
+def execute_workbook(project_dir: Path, interpretation_file: Path | None = None, template: Path | None = None,
                      timeout_s: int = 600, live: bool = False,
                      km: AsyncKernelManager | None = None) -> nbformat.NotebookNode:
     """Execute the template on a project; raise :class:`RecordError` naming the first failed cell.
@@ -81,6 +96,7 @@ def execute_workbook(project_dir: Path, interpretation_file: Path | None = None,
     the record never shows them, and building every live plot costs seconds. ``km``: a kernel
     from :func:`start_kernel`, left running (the caller stops it); None starts and stops one.
     """
+    template = template or workbook_template()
     own = km is None
     if own:
         km = start_kernel(project_dir)
@@ -98,9 +114,7 @@ def _execute(project_dir: Path, interpretation_file: Path | None, template: Path
     from nbclient.exceptions import CellExecutionError
 
     if not template.is_file():
-        raise RecordError(
-            f"{template}: workbook template not found. Run from a checkout of Shearbook (pip install -e .)."
-        )
+        raise RecordError(f"{template}: workbook template not found; name an existing .ipynb file.")
     nb = nbformat.read(template, as_version=4)
     if not live:
         nb.cells = [c for c in nb.cells if LIVE_TAG not in c.get("metadata", {}).get("tags", [])]
@@ -163,7 +177,7 @@ def export_html(nb: nbformat.NotebookNode, view: View) -> str:
     from nbconvert import HTMLExporter
     from nbconvert.preprocessors import TagRemovePreprocessor
 
-    exporter = HTMLExporter(template_name="shearbook_record", extra_template_basedirs=[str(TEMPLATES_DIR)])
+    exporter = HTMLExporter(template_name="shearbook_record", extra_template_basedirs=[str(record_templates_dir())])
     exporter.exclude_input = view == "report"
     exporter.exclude_input_prompt = True
     exporter.exclude_output_prompt = True
@@ -201,6 +215,7 @@ class Record:
     path: Path
     size_bytes: int
     results_sha256: str
+    results: dict[str, Any]  # the results JSON embedded in the record, parsed
 
 
 def default_record_path(project_dir: Path, view: View) -> Path:
@@ -209,9 +224,10 @@ def default_record_path(project_dir: Path, view: View) -> Path:
 
 
 def write_record(project_dir: str | Path, out: str | Path | None = None, interpretation_file: str | Path | None = None,
-                 view: View = "report", template: Path = TEMPLATE) -> Record:
+                 view: View = "report", template: Path | None = None) -> Record:
     """Execute the workbook on ``project_dir`` and write the HTML record; return where and what."""
     root = Path(project_dir).resolve()
+    template = template or workbook_template()
     load_project(root)  # fail early with the project file's own message
     interp_path = Path(interpretation_file).resolve() if interpretation_file else root / INTERPRETATION_FILE
     km = start_kernel(root)  # it starts while the interpretation file is checked and nbconvert imported
@@ -232,4 +248,5 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
                                    "shearbook-record": json.dumps({"view": view, "schema": "shearbook.record/1"})})
     path = Path(out).resolve() if out else default_record_path(root, view)
     _write_atomic(path, html_text)
-    return Record(path, len(html_text.encode("utf-8")), hashlib.sha256(results_json.encode()).hexdigest())
+    return Record(path, len(html_text.encode("utf-8")), hashlib.sha256(results_json.encode()).hexdigest(),
+                  json.loads(results_json))

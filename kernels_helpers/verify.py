@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -25,7 +26,7 @@ from .pipeline import interpret
 from .project import load_project
 from .readings import sha256_of
 
-__all__ = ["ABS_TOL", "REL_TOL", "Verification", "read_record", "verify_record"]
+__all__ = ["ABS_TOL", "REL_TOL", "Runner", "Verification", "read_record", "verify_folder", "verify_record"]
 
 REL_TOL = 1e-6
 ABS_TOL = 1e-9
@@ -151,6 +152,7 @@ def project_of(record: Path) -> Path:
 
 
 def _verify_one(args: tuple[Path, Path | None]) -> tuple[Path, Verification | None, str]:
+    """One record of a batch; runs in a worker process (local pool or dask worker): never raises."""
     record, project = args
     try:
         return record, verify_record(record, project or project_of(record)), ""
@@ -158,27 +160,93 @@ def _verify_one(args: tuple[Path, Path | None]) -> tuple[Path, Verification | No
         return record, None, f"{type(exc).__name__}: {exc}"
 
 
+Outcome = tuple[Path, Verification | None, str]
+
+
+@dataclass(frozen=True)
+class Runner:
+    """Where a batch of records is verified.
+
+    The default is a pool of local processes (``jobs``, default all cores). ``scheduler`` names an
+    existing dask.distributed cluster (``tcp://host:8786``); ``workers`` starts a local dask cluster of
+    that many worker processes. On a cluster every worker needs Shearbook installed and read access to
+    the records and projects at the same paths as this machine (a shared file system).
+    """
+
+    jobs: int | None = None
+    scheduler: str | None = None
+    workers: int | None = None
+    connect_timeout_s: float = 20.0  # how long to wait for the scheduler at ``scheduler``
+
+    def describe(self) -> str:
+        if self.scheduler:
+            return f"the dask cluster at {self.scheduler}"
+        if self.workers:
+            return f"a local dask cluster of {self.workers} worker(s)"
+        return f"{self.jobs or os.cpu_count() or 1} local process(es)"
+
+    def run(self, tasks: list[tuple[Path, Path | None]]) -> Iterator[Outcome]:
+        """Each task's outcome, in the order they finish."""
+        if self.scheduler or self.workers:
+            yield from _on_dask(tasks, self.scheduler, self.workers, self.connect_timeout_s)
+            return
+        from concurrent.futures import ProcessPoolExecutor, as_completed
+
+        with ProcessPoolExecutor(max_workers=self.jobs or os.cpu_count() or 1) as pool:
+            for fut in as_completed([pool.submit(_verify_one, t) for t in tasks]):
+                yield fut.result()
+
+
+def _on_dask(tasks: list[tuple[Path, Path | None]], scheduler: str | None, workers: int | None,
+             timeout_s: float) -> Iterator[Outcome]:
+    try:
+        from distributed import Client, LocalCluster, as_completed
+    except ImportError:
+        raise RecordError("verifying on a dask cluster needs dask.distributed: pip install 'shearbook[cluster]' "
+                          "(or pip install distributed).") from None
+    import contextlib
+    import logging
+
+    with contextlib.ExitStack() as stack:
+        if scheduler:
+            try:
+                client = stack.enter_context(Client(scheduler, timeout=f"{timeout_s}s"))
+            except (OSError, TimeoutError, ValueError) as exc:
+                raise RecordError(f"--scheduler {scheduler}: no dask scheduler answered ({exc}). Check the address "
+                                  "(tcp://HOST:PORT) and that the scheduler is running.") from None
+        else:
+            cluster = stack.enter_context(LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                                       dashboard_address=None, silence_logs=logging.ERROR))
+            client = stack.enter_context(Client(cluster))
+        futures = {client.submit(_verify_one, t, pure=False): t for t in tasks}
+        for fut in as_completed(futures):
+            if fut.status == "finished":
+                yield fut.result()
+            else:  # the worker died or could not run the task: report it as this record's error
+                exc = fut.exception()
+                yield futures[fut][0], None, f"{type(exc).__name__} on the cluster: {exc}"
+
+
 def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Path | None = None,
-                  jobs: int | None = None, progress: Any = None) -> list[tuple[Path, Verification | None, str]]:
+                  jobs: int | None = None, progress: Any = None, runner: Runner | None = None) -> list[Outcome]:
     """Verify every ``*.html`` record under ``folder`` in parallel; write a CSV summary table.
 
-    ``progress`` is called as ``progress(done, total, record)`` after each record.
+    ``runner`` says where (local processes by default, or a dask cluster); ``jobs`` is the number of
+    local processes when no runner is given. ``progress`` is called as ``progress(done, total, record)``
+    after each record.
     """
     import csv
-    import os
-    from concurrent.futures import ProcessPoolExecutor, as_completed
 
     records = sorted(Path(folder).rglob("*.html"))
     if not records:
         raise RecordError(f"{folder}: no .html records under this folder.")
     proj = Path(project).resolve() if project else None
-    out: list[tuple[Path, Verification | None, str]] = []
-    with ProcessPoolExecutor(max_workers=jobs or os.cpu_count() or 1) as pool:
-        futures = [pool.submit(_verify_one, (r, proj)) for r in records]
-        for done, fut in enumerate(as_completed(futures), start=1):
-            out.append(fut.result())
-            if progress:
-                progress(done, len(records), out[-1][0])
+    runner = runner or Runner(jobs=jobs)
+    out: list[Outcome] = []
+    for done, outcome in enumerate(runner.run([(r.resolve(), proj) for r in records]), start=1):
+        out.append(outcome)
+        if progress:
+            progress(done, len(records), outcome[0])
     out.sort(key=lambda item: str(item[0]))
     path = Path(summary_csv)
     path.parent.mkdir(parents=True, exist_ok=True)

@@ -44,6 +44,7 @@ PURE_MODULES = [
     "stage_checks",
     "settings",
     "mime",
+    "resources",
 ]
 FORBIDDEN = ("bokeh", "ipywidgets", "nbconvert", "nbclient", "jupyter_bokeh")
 PACKAGE_DIR = Path(kernels_helpers.__file__).parent

@@ -40,3 +40,34 @@ def test_workbook_copy_points_at_its_own_project(example_copy: Path) -> None:
     assert "project_dir = '.'" in text
     nb_path.write_text(text + " ", encoding="utf-8")
     assert workbook_in_project(example_copy).read_text(encoding="utf-8").endswith(" ")  # never overwritten
+
+
+def test_a_normal_run_prints_the_result_and_the_flags_and_q_only_errors(example_copy: Path,
+                                                                       capsys: pytest.CaptureFixture[str]) -> None:
+    results = interpret(example_copy)
+    raised = [f"  flag: {s.stage_id}: {f}" for s in results.stages if s.included for f in s.flags]
+    assert raised  # the example project raises flags: the test would prove nothing otherwise
+    assert main(["results", str(example_copy)]) == 0
+    out, err = capsys.readouterr()
+    assert json.loads(out) == json.loads(results.to_json())
+    assert err.splitlines() == [f"{len(raised)} flag(s) on included stages:", *raised]
+    assert main(["results", str(example_copy), "-q"]) == 0  # the JSON is what the command exists to print
+    out, err = capsys.readouterr()
+    assert json.loads(out) == json.loads(results.to_json()) and err == ""
+    assert main(["signoff", str(example_copy), "--state", "draft", "--who", "A. Engineer", "-q"]) == 0
+    assert capsys.readouterr() == ("", "")
+    assert main(["results", str(example_copy / "nowhere"), "-q"]) == 2  # errors still print with -q
+    assert capsys.readouterr().err.startswith("shearbook: error: ")
+
+
+def test_open_refuses_a_port_in_use(example_copy: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    import socket
+
+    with socket.socket() as busy:
+        busy.bind(("127.0.0.1", 0))
+        busy.listen()
+        port = busy.getsockname()[1]
+        assert main(["open", str(example_copy), "--no-browser", "--port", str(port)]) == 2
+    assert capsys.readouterr().err == (f"shearbook: error: port {port} on 127.0.0.1 is already in use "
+                                       "(another JupyterLab?); choose a free one with --port.\n")
+    assert not (example_copy / "shear_interpretation.ipynb").exists()  # nothing written before the refusal

@@ -13,7 +13,8 @@ import pytest
 from kernels_helpers import interpret, save_interpretation
 from kernels_helpers.errors import InterpretationFileError, RecordError
 from kernels_helpers.interpretation import Interpretation, StageDecision
-from kernels_helpers.record import TEMPLATE, execute_workbook, network_references, write_record
+from kernels_helpers.record import execute_workbook, network_references, write_record
+from kernels_helpers.resources import workbook_template
 
 pytestmark = pytest.mark.notebook
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"  # the bundled project: a record must not change it
@@ -104,7 +105,7 @@ def test_user_text_is_escaped_in_the_record(example_copy: Path, tmp_path: Path) 
 
 
 def test_failed_cell_stops_the_export(example_copy: Path, tmp_path: Path) -> None:
-    nb = nbformat.read(TEMPLATE, as_version=4)
+    nb = nbformat.read(workbook_template(), as_version=4)
     nb.cells.append(nbformat.v4.new_code_cell("raise RuntimeError('stage table is inconsistent')"))
     broken = tmp_path / "broken.ipynb"
     nbformat.write(nb, broken)
@@ -149,7 +150,7 @@ def test_a_bad_interpretation_file_stops_the_export_and_the_kernel(example_copy:
 def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_copy: Path, tmp_path: Path) -> None:
     write_record(example_copy, tmp_path / "r.html")
     assert _kernels_of_this_process() == []
-    nb = nbformat.read(TEMPLATE, as_version=4)
+    nb = nbformat.read(workbook_template(), as_version=4)
     nb.cells.insert(3, nbformat.v4.new_code_cell("raise RuntimeError('early')"))
     broken = tmp_path / "broken.ipynb"
     nbformat.write(nb, broken)

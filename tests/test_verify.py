@@ -138,3 +138,76 @@ def test_a_new_record_shows_what_changed_since_the_last_one(recorded: Path, tmp_
     text = write_record(root, root / "records" / "r2.html").path.read_text(encoding="utf-8")
     assert "Changes from the record r1.html to this interpretation:" in text
     assert "BH03-L2: restored to the envelopes" in text
+
+
+def _batch_of_three(recorded: Path, tmp_path: Path) -> Path:
+    """records/ with the good record, a copy, and one whose embedded phi' was edited."""
+    root = _copy(recorded, tmp_path)
+    shutil.copy(root / "records" / "r1.html", root / "records" / "r3.html")
+    bad = root / "records" / "sub" / "r2.html"
+    bad.parent.mkdir()
+    shutil.copy(root / "records" / "r1.html", bad)
+    _edit_results(bad, lambda d: d["stages"][0]["critical_state"]["chosen"].update(tau_kpa=1.0))
+    return root
+
+
+def test_batch_on_a_local_dask_cluster_gives_the_same_report_and_summary(recorded: Path, tmp_path: Path) -> None:
+    from kernels_helpers.verify import Runner, verify_folder
+
+    root = _batch_of_three(recorded, tmp_path)
+    seen: list[tuple[int, int]] = []
+    on_pool = verify_folder(root / "records", tmp_path / "pool.csv", runner=Runner(jobs=2))
+    on_dask = verify_folder(root / "records", tmp_path / "dask.csv", runner=Runner(workers=2),
+                            progress=lambda done, total, record: seen.append((done, total)))
+    assert seen == [(1, 3), (2, 3), (3, 3)]
+    assert [(r, v.to_text() if v else e) for r, v, e in on_dask] == [(r, v.to_text() if v else e)
+                                                                     for r, v, e in on_pool]
+    assert (tmp_path / "dask.csv").read_text(encoding="utf-8") == (tmp_path / "pool.csv").read_text(encoding="utf-8")
+    assert [v.ok for _, v, _ in on_dask] == [True, True, False]  # r1, r3, sub/r2
+
+
+def test_a_broken_record_on_the_cluster_is_reported_and_the_others_still_verified(recorded: Path,
+                                                                                  tmp_path: Path) -> None:
+    from kernels_helpers.verify import Runner, verify_folder
+
+    root = _copy(recorded, tmp_path)
+    (root / "records" / "junk.html").write_text("<html>not a record</html>", encoding="utf-8")
+    out = verify_folder(root / "records", tmp_path / "s.csv", runner=Runner(workers=1))
+    by_name = {r.name: (v, e) for r, v, e in out}
+    assert by_name["r1.html"][0].ok
+    assert by_name["junk.html"][0] is None
+    assert "not a Shearbook record (no shearbook-results block)" in by_name["junk.html"][1]
+
+
+def test_verify_command_on_a_dask_cluster(recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    root = _batch_of_three(recorded, tmp_path)
+    summary = tmp_path / "summary.csv"
+    assert main(["verify", str(root / "records"), "--workers", "2", "--summary", str(summary)]) == 1
+    out, err = capsys.readouterr()
+    assert err == f"Verifying the records under {root / 'records'} on a local dask cluster of 2 worker(s) ...\n"
+    assert out.count(": MATCH - ") == 2 and out.count(": MISMATCH - ") == 1
+    assert out.endswith(f"2 of 3 records match; summary table: {summary}\n")
+    assert main(["verify", str(root / "records"), "--workers", "1", "-q", "--summary", str(summary)]) == 1
+    out, err = capsys.readouterr()  # -q: only the failure
+    assert err == "" and out.count("MISMATCH") == 1 and "MATCH -" not in out.replace("MISMATCH", "")
+
+
+@pytest.mark.parametrize(("args", "message"), [
+    (["--workers", "2", "--scheduler", "tcp://127.0.0.1:1"], "give either --scheduler ADDRESS"),
+    (["--workers", "0"], "--workers 0: give a whole number of workers, 1 or more."),
+    (["--jobs", "0"], "--jobs 0: give a whole number of processes, 1 or more."),
+])
+def test_verify_folder_options_that_cannot_work_are_refused(recorded: Path, args: list[str], message: str,
+                                                           capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["verify", str(recorded / "records"), *args]) == 2
+    assert message in capsys.readouterr().err
+
+
+def test_a_scheduler_that_does_not_answer_is_a_clear_error(recorded: Path, tmp_path: Path) -> None:
+    from kernels_helpers.errors import RecordError
+    from kernels_helpers.verify import Runner, verify_folder
+
+    with pytest.raises(RecordError, match=r"--scheduler tcp://127\.0\.0\.1:9: no dask scheduler answered .* Check "
+                                          r"the address \(tcp://HOST:PORT\) and that the scheduler is running\."):
+        verify_folder(recorded / "records", tmp_path / "s.csv",
+                      runner=Runner(scheduler="tcp://127.0.0.1:9", connect_timeout_s=1))
