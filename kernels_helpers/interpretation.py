@@ -11,15 +11,17 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, Final, Literal
 
+from typing_extensions import TypedDict  # pydantic reads typing_extensions' TypedDict on Python 3.11
+
 from .atomic import write_text_atomic
 from .errors import InterpretationFileError
-from .settings import PARTIAL_FACTOR_SETS, PickSettings, RateSettings, ReductionSettings
+from .settings import PARTIAL_FACTOR_SETS, STRICT_FILE, PickSettings, RateSettings, ReductionSettings
 
 __all__ = [
     "INTERPRETATION_FILE",
@@ -32,6 +34,7 @@ __all__ = [
     "SignOff",
     "StageDecision",
     "WindowChoice",
+    "check_stage_ids",
     "load_interpretation",
     "save_interpretation",
 ]
@@ -40,6 +43,19 @@ INTERPRETATION_FILE: Final = "interpretation.json"
 SCHEMA: Final = "shearbook.interpretation/1"
 SCHEMA_VERSION: Final = 1
 Source = Literal["suggested", "manual"]
+SignOffState = Literal["draft", "checked", "approved"]
+
+
+class SignOffStep(TypedDict):
+    """One step of the sign-off history (append-only)."""
+
+    state: SignOffState
+    who: str
+    time_utc: str
+    note: str
+
+
+SignOffStep.__pydantic_config__ = STRICT_FILE  # type: ignore[attr-defined]  # a TypedDict body takes no assignment
 
 
 def utc_now() -> str:
@@ -50,6 +66,8 @@ def utc_now() -> str:
 @dataclass(frozen=True)
 class FitSettings:
     """Envelope options: which c' the reported parameters use, and the confidence level."""
+
+    __pydantic_config__ = STRICT_FILE
 
     cohesion: Literal["free", "zero"] = "free"
     level: float = 0.95
@@ -65,15 +83,26 @@ class FitSettings:
 class Settings:
     """All settings that change numbers or checks: reduction, suggestion rules, fits, drained rate."""
 
+    __pydantic_config__ = STRICT_FILE
+
     reduction: ReductionSettings = field(default_factory=ReductionSettings)
     picks: PickSettings = field(default_factory=PickSettings)
     fit: FitSettings = field(default_factory=FitSettings)
     rate: RateSettings = field(default_factory=RateSettings)
 
 
+def _window_in_order(x_from_mm: float | None, x_to_mm: float | None, what: str) -> None:
+    # a window of one value passes here and is refused where the readings are known ("needs at least 5 readings")
+    if x_from_mm is not None and x_to_mm is not None and x_from_mm > x_to_mm:
+        raise ValueError(f"a {what} runs from the smaller to the larger displacement: x_from_mm {x_from_mm!r} is "
+                         f"more than x_to_mm {x_to_mm!r}; swap them")
+
+
 @dataclass(frozen=True)
 class PeakChoice:
     """The peak pick of a stage: the suggestion, or a manual displacement (mm) with who, when, why."""
+
+    __pydantic_config__ = STRICT_FILE
 
     source: Source = "suggested"
     x_mm: float | None = None
@@ -90,6 +119,8 @@ class PeakChoice:
 class WindowChoice:
     """The critical-state pick: the suggested window, or a manual one (mm) with who, when, why."""
 
+    __pydantic_config__ = STRICT_FILE
+
     source: Source = "suggested"
     x_from_mm: float | None = None
     x_to_mm: float | None = None
@@ -100,11 +131,14 @@ class WindowChoice:
     def __post_init__(self) -> None:
         if self.source == "manual" and (self.x_from_mm is None or self.x_to_mm is None):
             raise ValueError("a manual critical-state window needs x_from_mm and x_to_mm")
+        _window_in_order(self.x_from_mm, self.x_to_mm, "critical-state window")
 
 
 @dataclass(frozen=True)
 class ResidualChoice:
     """The residual pick of a reversal test: the rule's suggestion, or a manual window on one pass (mm)."""
+
+    __pydantic_config__ = STRICT_FILE
 
     source: Source = "suggested"
     pass_no: int | None = None
@@ -117,11 +151,16 @@ class ResidualChoice:
     def __post_init__(self) -> None:
         if self.source == "manual" and (self.pass_no is None or self.x_from_mm is None or self.x_to_mm is None):
             raise ValueError("a manual residual pick needs pass_no, x_from_mm and x_to_mm")
+        if self.pass_no is not None and self.pass_no < 1:
+            raise ValueError(f"pass_no counts forward passes from 1, not {self.pass_no!r}")
+        _window_in_order(self.x_from_mm, self.x_to_mm, "residual window")
 
 
 @dataclass(frozen=True)
 class StageDecision:
     """Inclusion of a stage (a reason is required to exclude it), its picks and a free note."""
+
+    __pydantic_config__ = STRICT_FILE
 
     included: bool = True
     exclusion_reason: str = ""
@@ -141,8 +180,10 @@ class StageDecision:
 class SignOff:
     """Sign-off state with its history: draft -> checked -> approved (who and when)."""
 
-    state: Literal["draft", "checked", "approved"] = "draft"
-    history: tuple[Mapping[str, str], ...] = ()
+    __pydantic_config__ = STRICT_FILE
+
+    state: SignOffState = "draft"
+    history: tuple[SignOffStep, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -158,6 +199,8 @@ class DesignChoices:
     EN 1997-1 Table A.4 values, other values need a name of their own (e.g. the National Annex).
     ``v_known``: a coefficient of variation of tan phi' known from experience (EN 1990 D7.2).
     """
+
+    __pydantic_config__ = STRICT_FILE
 
     limit_state: Literal["large zone", "local"] = "large zone"
     parameter_set: Literal["peak", "critical_state"] = "critical_state"
@@ -206,6 +249,7 @@ class Interpretation:
     signoff: SignOff = field(default_factory=SignOff)
     schema: str = SCHEMA
     design: DesignChoices = field(default_factory=DesignChoices)
+    revision: int = 0  # the file's revision this was read at (0: no file yet); each save adds one
 
     def decision(self, stage_id: str) -> StageDecision:
         return self.stages.get(stage_id, StageDecision())
@@ -264,7 +308,7 @@ class Interpretation:
             )
         if not who.strip():
             raise ValueError("a sign-off needs the name of the person")
-        event = {"state": state, "who": who, "time_utc": utc_now(), "note": note}
+        event = SignOffStep(state=state, who=who, time_utc=utc_now(), note=note)
         return dataclasses.replace(self, signoff=SignOff(state, (*self.signoff.history, event)))
 
     def with_design(self, author: str, **changes: Any) -> Interpretation:
@@ -276,6 +320,7 @@ class Interpretation:
         return {
             "schema": self.schema,
             "schema_version": SCHEMA_VERSION,
+            "revision": self.revision,
             "settings": dataclasses.asdict(self.settings),
             "stages": {k: dataclasses.asdict(v) for k, v in sorted(self.stages.items())},
             "raw_files": dict(sorted(self.raw_files.items())),
@@ -292,65 +337,88 @@ class Interpretation:
         return hashlib.sha256(self.to_json().encode("utf-8")).hexdigest()
 
 
-def _build(cls: type, data: Any, where: str) -> Any:
+def from_dict(data: Any, where: str) -> Interpretation:
+    """Build an :class:`Interpretation` from parsed JSON; every problem of it in one error."""
+    from .file_models import check_interpretation_data
+
+    _refuse_newer(data, where)
+    model, problems = check_interpretation_data(data, where)
+    return _from_model(model, problems, where)
+
+
+def _refuse_newer(data: Any, where: str) -> None:
     if not isinstance(data, Mapping):
-        raise InterpretationFileError(f"{where}: expected an object, found {type(data).__name__}.")
-    names = {f.name for f in dataclasses.fields(cls)}
-    unknown = sorted(set(data) - names)
-    if unknown:
-        raise InterpretationFileError(f"{where}: unknown field(s) {', '.join(unknown)}.")
-    try:
-        return cls(**data)
-    except (TypeError, ValueError) as exc:
-        raise InterpretationFileError(f"{where}: {exc}.") from exc
-
-
-def from_dict(data: Mapping[str, Any], where: str) -> Interpretation:
-    """Build an :class:`Interpretation` from parsed JSON, naming the field at fault on error."""
+        raise InterpretationFileError(f"{where}: expected a JSON object at the top level, found "
+                                      f"{type(data).__name__}. The file is left untouched.")
     if data.get("schema") != SCHEMA:
         raise InterpretationFileError(f"{where}: not a Shearbook interpretation file (schema {data.get('schema')!r}).")
     version = data.get("schema_version")
-    if not isinstance(version, int) or version > SCHEMA_VERSION:
+    if isinstance(version, int) and not isinstance(version, bool) and version > SCHEMA_VERSION:
         raise InterpretationFileError(
             f"{where}: written with schema version {version!r}; this Shearbook reads up to {SCHEMA_VERSION}. "
             "Upgrade Shearbook; the file is left untouched."
         )
-    s = data.get("settings", {})
-    settings = Settings(
-        reduction=_build(ReductionSettings, s.get("reduction", {}), f"{where} settings.reduction"),
-        picks=_build(PickSettings, s.get("picks", {}), f"{where} settings.picks"),
-        fit=_build(FitSettings, s.get("fit", {}), f"{where} settings.fit"),
-        rate=_build(RateSettings, s.get("rate", {}), f"{where} settings.rate"),  # absent in older files: default
-    )
-    stages = {}
-    for sid, raw in data.get("stages", {}).items():
-        w = f"{where} stages.{sid}"
-        raw = dict(raw)
-        peak = _build(PeakChoice, raw.pop("peak", {}), f"{w}.peak")
-        cs = _build(WindowChoice, raw.pop("critical_state", {}), f"{w}.critical_state")
-        residual = _build(ResidualChoice, raw.pop("residual", {}), f"{w}.residual")
-        stages[sid] = _build(StageDecision, {**raw, "peak": peak, "critical_state": cs, "residual": residual}, w)
-    so = data.get("signoff", {})
-    signoff = _build(SignOff, {**so, "history": tuple(so.get("history", ()))}, f"{where} signoff")
-    design = _build(DesignChoices, data.get("design", {}), f"{where} design")  # absent in older files: defaults
-    return Interpretation(stages=stages, settings=settings, raw_files=dict(data.get("raw_files", {})), signoff=signoff,
-                          design=design)
+
+
+def _from_model(model: Any, problems: list[Any], where: str) -> Interpretation:
+    if model is None:
+        from .file_models import listing
+
+        raise InterpretationFileError(f"{where}: {len(problems)} problem(s); nothing was read or changed:\n"
+                                      + listing(problems))
+    return Interpretation(stages=dict(model.stages), settings=model.settings, raw_files=dict(model.raw_files),
+                          signoff=model.signoff, design=model.design, revision=model.revision)
+
+
+def check_stage_ids(interpretation: Interpretation, stage_ids: Sequence[str], where: str) -> None:
+    """Every stage the interpretation decides about must be a stage of the project; else an error naming
+    the nearest id (a decision for a misspelt id would otherwise do nothing, in silence)."""
+    import difflib
+
+    unknown = sorted(set(interpretation.stages) - set(stage_ids))
+    if not unknown:
+        return
+    lines = []
+    for sid in unknown:
+        folded = {i.strip().casefold(): i for i in stage_ids}
+        near = folded.get(sid.strip().casefold()) or next(iter(difflib.get_close_matches(sid, stage_ids, 1, 0.6)), None)
+        lines.append(f"  stages[{json.dumps(sid, ensure_ascii=False)}]: no stage of that id in the project"
+                     + (f"; did you mean {near!r}?" if near else f"; its stages are {', '.join(stage_ids)}"))
+    raise InterpretationFileError(f"{where}: decisions for {len(unknown)} stage id(s) that are not in the project "
+                                  "(they would do nothing); correct the id(s):\n" + "\n".join(lines))
 
 
 def load_interpretation(path: str | Path) -> Interpretation:
-    """Read an interpretation file; a missing file gives the all-suggested default."""
+    """Read and validate an interpretation file; a missing file gives the all-suggested default.
+
+    Every problem of the file is reported at once (:class:`InterpretationFileError`), naming the key
+    path, the value found and what is allowed; the file is never changed by a failed read.
+    """
     p = Path(path)
     if not p.exists():
         return Interpretation()
+    from .file_models import check_interpretation_text
+
     try:
-        data = json.loads(p.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        text = p.read_bytes().decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InterpretationFileError(
+            f"{p}: not UTF-8 text (byte {exc.start} is {exc.object[exc.start:exc.start + 1]!r}); an interpretation "
+            "file is UTF-8 JSON. The file is left untouched; restore it from version control or a backup.") from None
+    except OSError as exc:
+        raise InterpretationFileError(f"{p}: cannot be read ({exc.strerror}).") from None
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
         raise InterpretationFileError(
             f"{p}: not valid JSON ({exc}). The file is left untouched; restore it from version control or a backup."
-        ) from exc
-    if not isinstance(data, Mapping):
-        raise InterpretationFileError(f"{p}: expected a JSON object at the top level.")
-    return from_dict(data, str(p))
+        ) from None
+    except RecursionError:
+        raise InterpretationFileError(f"{p}: nested too deeply to be an interpretation file. The file is left "
+                                      "untouched; restore it from version control or a backup.") from None
+    _refuse_newer(data, str(p))
+    model, problems = check_interpretation_text(text, str(p))
+    return _from_model(model, problems, str(p))
 
 
 def save_interpretation(interpretation: Interpretation, path: str | Path) -> Path:

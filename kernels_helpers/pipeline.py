@@ -22,6 +22,7 @@ from .interpretation import (
     Interpretation,
     Settings,
     StageDecision,
+    check_stage_ids,
     load_interpretation,
 )
 from .multistage import expand_multistage
@@ -280,6 +281,8 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
     if interpretation is None:
         interpretation = proj.root / INTERPRETATION_FILE
     interp = interpretation if isinstance(interpretation, Interpretation) else load_interpretation(interpretation)
+    where = "the interpretation" if isinstance(interpretation, Interpretation) else str(interpretation)
+    check_stage_ids(interp, [s.id for s in proj.stages], where)
     readings = read_all(proj)
     analysed: list[StageResult] = []
     origin: float | None = None

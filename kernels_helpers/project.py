@@ -415,11 +415,21 @@ def load_project(folder: str | Path) -> Project:
             f"{path}: no project file here. Point Shearbook at a project folder holding {PROJECT_FILE}."
         )
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ProjectFileError(f"{path}: not valid TOML ({exc}). Fix the file and try again.") from exc
+        raw = tomllib.loads(path.read_bytes().decode("utf-8"))
+    except UnicodeDecodeError as exc:
+        raise ProjectFileError(f"{path}: not UTF-8 text (byte {exc.start} is {exc.object[exc.start:exc.start + 1]!r});"
+                               " save the project file as UTF-8 and try again.") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ProjectFileError(f"{path}: not valid TOML ({exc}). Fix the file and try again.") from None
+    except RecursionError:
+        raise ProjectFileError(f"{path}: nested too deeply to be a project file.") from None
     if raw.get("schema") != SCHEMA:
         raise ProjectFileError(f"{path}: schema must be {SCHEMA!r}, found {raw.get('schema')!r}.")
+    from .file_models import check_project_table, listing
+
+    problems = check_project_table(raw, str(path))
+    if problems:
+        raise ProjectFileError(f"{path}: {len(problems)} problem(s); fix them and try again:\n" + listing(problems))
     stages_raw = raw.get("stage", [])
     if not isinstance(stages_raw, list) or not stages_raw:
         raise ProjectFileError(f"{path}: no [[stage]] tables. Declare at least one stage.")

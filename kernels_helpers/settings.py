@@ -15,6 +15,11 @@ __all__ = ["PARTIAL_FACTOR_SETS", "TIME_TO_FAILURE_RULES", "AreaConvention", "Pi
 
 AreaConvention = Literal["corrected", "nominal"]
 
+#: how the file models (:mod:`.file_models`, pydantic) read these dataclasses from a file: unknown keys are
+#: errors, a number is a number (never true or "3"), NaN and Infinity are refused. A plain dict, so that this
+#: module imports no validation library.
+STRICT_FILE: Final = {"extra": "forbid", "strict": True, "allow_inf_nan": False}
+
 # EN 1997-1 Annex A, Table A.4 (recommended values): set -> (gamma_phi' on tan phi', gamma_c')
 PARTIAL_FACTOR_SETS: Final = {"M1": (1.0, 1.0), "M2": (1.25, 1.25)}
 
@@ -38,6 +43,8 @@ class ReductionSettings:
         maximum; the horizontal displacement before it is seating slack.
     """
 
+    __pydantic_config__ = STRICT_FILE
+
     area_convention: AreaConvention = "corrected"
     smoothing_window_mm: float = 0.5
     seating_fraction: float = 0.02
@@ -57,6 +64,8 @@ class ReductionSettings:
 @dataclass(frozen=True)
 class PickSettings:
     """Tolerances of the suggestion rules (see the module docstring)."""
+
+    __pydantic_config__ = STRICT_FILE
 
     cs_window_mm: float = 2.0
     cs_rate_tolerance: float = 0.01
@@ -90,6 +99,8 @@ class RateSettings:
     states: "50 t_50" (ASTM D3080, t_50 from log time), "11.6 t_90" (the same on root time) or
     "12.7 t_100" (BS 1377-7, t_100 from root time).
     """
+
+    __pydantic_config__ = STRICT_FILE
 
     time_to_failure: str = "largest"
 

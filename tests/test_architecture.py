@@ -45,6 +45,7 @@ PURE_MODULES = [
     "settings",
     "mime",
     "resources",
+    "file_models",
 ]
 FORBIDDEN = ("bokeh", "ipywidgets", "nbconvert", "nbclient", "jupyter_bokeh")
 PACKAGE_DIR = Path(kernels_helpers.__file__).parent

@@ -78,10 +78,12 @@ def test_bad_readings_file(tmp_path: Path, name: str, message: str, imported: st
     assert hashlib.sha256((lab / "S1.csv").read_bytes()).hexdigest() == before
 
 
+PROBLEM = "1 problem(s); fix them and try again:\n  "
 PROJECT_CASES = [
-    ("project_zero_side.toml", "stage 'S1' specimen: field 'side_mm' must be positive, not 0.0."),
-    ("project_negative_height.toml", "stage 'S1' specimen: field 'height_mm' must be positive, not -20.0."),
-    ("project_gs_zero.toml", "stage 'S1' specimen: field 'gs' must be positive, not 0.0."),
+    ("project_zero_side.toml", f'{PROBLEM}stage "S1".specimen.side_mm: found 0.0; allowed: a number > 0.0'),
+    ("project_negative_height.toml", f'{PROBLEM}stage "S1".specimen.height_mm: found -20.0; allowed: a number > 0.0'),
+    ("project_gs_zero.toml", f'{PROBLEM}stage "S1".specimen.gs: G_s, the specific gravity of the soil particles, lies '
+                             "between 2.0 and 3.5 (quartz 2.65), not 0.0"),
     ("project_outside.toml", "stage 'S1': file: readings path '../outside/S1.csv' points outside the project folder"),
 ]
 

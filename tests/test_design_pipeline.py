@@ -46,7 +46,7 @@ def test_a_file_without_design_choices_reads_with_the_defaults() -> None:
     [
         ({"partial_factors": "M2", "gamma_phi": 1.1}, "give them a name of your own"),
         ({"c_k_zero": True}, "c'_k can only be set to zero with a stated reason"),
-        ({"limit_state": "regional"}, "limit_state must be one of 'large zone', 'local', not 'regional'"),
+        ({"limit_state": "regional"}, "design.limit_state: found \"regional\"; allowed: 'large zone' or 'local'"),
         ({"v_known": 1.5}, "coefficient of variation between 0 and 1"),
     ],
 )
@@ -75,7 +75,8 @@ def test_relative_density_is_read_as_a_fraction(example_copy: Path) -> None:
     assert d1.bolton == bolton_index(0.8, stage.peak.sigma_kpa)
     assert next(d for d in results.dilatancy if d.stage_id == "BH03-D2").bolton is None
     toml.write_text(text.replace("relative_density = 0.8\n", "relative_density = 80\n", 1))
-    message = r"'relative_density' is I_D as a fraction between 0 and 1 \(e.g. 0.65\), not 80.0"
+    message = (r'stage "BH03-D1".specimen.relative_density: relative_density is I_D as a fraction between 0 and 1 '
+               r"\(e.g. 0.65\), not 80")
     with pytest.raises(ProjectFileError, match=message):
         load_project(example_copy)
 

@@ -47,7 +47,8 @@ def _full() -> Interpretation:
         ),
         raw_files={"readings/S2.csv": "b" * 64, "readings/S1.csv": "a" * 64},
         signoff=SignOff(
-            state="checked", history=({"state": "checked", "by": "B. Checker", "time_utc": "2026-01-06T10:00:00Z"},)
+            state="checked",
+            history=({"state": "checked", "who": "B. Checker", "time_utc": "2026-01-06T10:00:00Z", "note": ""},),
         ),
     )
 
@@ -150,44 +151,79 @@ NO_WINDOW = "a manual critical-state window needs x_from_mm and x_to_mm"
 
 
 @pytest.mark.parametrize(
-    ("stage", "parts"),
+    ("stage", "line"),
     [
-        ({"included": False, "exclusion_reason": ""}, ["stages.S1", NO_REASON]),
-        ({"included": False, "exclusion_reason": "   "}, ["stages.S1", NO_REASON]),
-        ({"peak": {"source": "manual"}}, ["stages.S1.peak", "a manual peak pick needs x_mm"]),
-        (
-            {"critical_state": {"source": "manual", "x_from_mm": 8.0}},
-            ["stages.S1.critical_state", NO_WINDOW],
-        ),
-        ({"peak": {"x": 2.0}}, ["stages.S1.peak", "unknown field(s) x"]),
-        ({"colour": "red"}, ["stages.S1", "unknown field(s) colour"]),
+        ({"included": False, "exclusion_reason": ""}, f"stages.S1: {NO_REASON}"),
+        ({"included": False, "exclusion_reason": "   "}, f"stages.S1: {NO_REASON}"),
+        ({"peak": {"source": "manual"}}, "stages.S1.peak: a manual peak pick needs x_mm"),
+        ({"critical_state": {"source": "manual", "x_from_mm": 8.0}}, f"stages.S1.critical_state: {NO_WINDOW}"),
+        ({"peak": {"x": 2.0}}, "stages.S1.peak.x: unknown key 'x'; known keys here: author, note, source, time_utc, "
+                               "x_mm"),
+        ({"peak": {"source": "manual", "x_mmm": 2.0}}, "stages.S1.peak.x_mmm: unknown key 'x_mmm'; did you mean x_mm?"),
+        ({"colour": "red"}, "stages.S1.colour: unknown key 'colour'; known keys here: author, critical_state, "
+                            "exclusion_reason, included, note, peak, residual, time_utc"),
+        ({"critical_state": {"source": "manual", "x_from_mm": 8.0, "x_to_mm": 6.0}},
+         "stages.S1.critical_state: a critical-state window runs from the smaller to the larger displacement: "
+         "x_from_mm 8.0 is more than x_to_mm 6.0; swap them"),
+        ({"residual": {"source": "manual", "pass_no": 0, "x_from_mm": 1.0, "x_to_mm": 6.0}},
+         "stages.S1.residual: pass_no counts forward passes from 1, not 0"),
+        ({"peak": {"source": "manual", "x_mm": True}},
+         "stages.S1.peak.x_mm: Input should be a valid number (found true)"),
+        ({"peak": {"source": "manual", "x_mm": "2.5"}},
+         "stages.S1.peak.x_mm: Input should be a valid number (found \"2.5\")"),
+        ({"included": "no", "exclusion_reason": "disturbed"},
+         "stages.S1.included: Input should be a valid boolean (found \"no\")"),
     ],
 )
-def test_bad_decisions_in_the_file(tmp_path: Path, stage: dict[str, object], parts: list[str]) -> None:
+def test_bad_decisions_in_the_file(tmp_path: Path, stage: dict[str, object], line: str) -> None:
     path = _edited(tmp_path, {}, stage)
-    with pytest.raises(InterpretationFileError, match=re.escape(f"{path} {parts[0]}")) as info:
+    with pytest.raises(InterpretationFileError) as info:
         load_interpretation(path)
-    for part in parts:
-        assert part in str(info.value)
+    assert str(info.value) == f"{path}: 1 problem(s); nothing was read or changed:\n  {line}"
+
+
+@pytest.mark.parametrize("token", ["NaN", "Infinity", "-Infinity", "1e400"])
+def test_nan_and_infinity_are_never_a_pick(tmp_path: Path, token: str) -> None:
+    path = _edited(tmp_path, {}, {"peak": {"source": "manual", "x_mm": 1.0}})
+    path.write_text(path.read_text(encoding="utf-8").replace('"x_mm": 1.0', f'"x_mm": {token}'), encoding="utf-8")
+    with pytest.raises(InterpretationFileError, match=r"stages\.S1\.peak\.x_mm: Input should be a finite number"):
+        load_interpretation(path)
+
+
+def test_every_problem_of_the_file_is_reported_at_once(tmp_path: Path) -> None:
+    path = _edited(tmp_path, {"settings": {"fit": {"cohesion": "some", "levle": 0.9}}},
+                   {"peak": {"source": "manual", "x_mm": "x"}, "included": 0})
+    with pytest.raises(InterpretationFileError) as info:
+        load_interpretation(path)
+    lines = str(info.value).splitlines()
+    assert lines[0] == f"{path}: 4 problem(s); nothing was read or changed:"
+    assert sorted(lines[1:]) == sorted([
+        "  settings.fit.cohesion: found \"some\"; allowed: 'free' or 'zero'",
+        "  settings.fit.levle: unknown key 'levle'; did you mean level?",
+        "  stages.S1.included: Input should be a valid boolean (found 0)",
+        "  stages.S1.peak.x_mm: Input should be a valid number (found \"x\")",
+    ])
 
 
 @pytest.mark.parametrize(
     ("section", "value", "part"),
     [
-        ("fit", {"cohesion": "some"}, "settings.fit: cohesion must be 'free' or 'zero', not 'some'"),
+        ("fit", {"cohesion": "some"}, "settings.fit.cohesion: found \"some\"; allowed: 'free' or 'zero'"),
         ("fit", {"level": 1.5}, "settings.fit: level must be between 0.5 and 1, not 1.5"),
-        ("reduction", {"area_convention": "shrunk"}, "settings.reduction: area_convention must be"),
+        ("reduction", {"area_convention": "shrunk"},
+         "settings.reduction.area_convention: found \"shrunk\"; allowed: 'corrected' or 'nominal'"),
         ("picks", {"cs_window_mm": 0}, "settings.picks: cs_window_mm must be positive, not 0"),
         ("rate", {"time_to_failure": "100 t_50"}, "settings.rate: time_to_failure must be one of 'largest', "
                                                   "'50 t_50', '11.6 t_90', '12.7 t_100', not '100 t_50'"),
-        ("rate", {"rule": "largest"}, "settings.rate: unknown field(s) rule"),
+        ("rate", {"rule": "largest"}, "settings.rate.rule: unknown key 'rule'; known keys here: time_to_failure"),
     ],
 )
 def test_bad_settings_in_the_file(tmp_path: Path, section: str, value: dict[str, object], part: str) -> None:
     settings = Interpretation().to_dict()["settings"]
     settings[section] = {**settings[section], **value}
     path = _edited(tmp_path, {"settings": settings})
-    with pytest.raises(InterpretationFileError, match=re.escape(f"{path} {part}")):
+    with pytest.raises(InterpretationFileError, match=re.escape(f"{path}: 1 problem(s); nothing was read or changed:"
+                                                                f"\n  {part}")):
         load_interpretation(path)
 
 

@@ -1,0 +1,379 @@
+"""One typed model per hand-edited file: project.toml and interpretation.json (pydantic v2).
+
+The models are the one description of each file's shape: every key, its type, its allowed values
+and ranges. They are enforced on every read (:func:`check_project_table`,
+:func:`check_interpretation_text`), yield the JSON Schema files shipped in ``schemas/`` (editors
+validate as you type; :func:`json_schemas`, a test keeps them current), and turn every problem of
+a file into one sentence naming the file, the key path, the value and what is allowed, with the
+nearest valid key for a misspelt one. All problems of a file are collected before reporting.
+
+The interpretation file's model is made of the dataclasses the rest of the package uses
+(:mod:`.interpretation`, :mod:`.settings`), validated strictly (``STRICT_FILE``): a number is a
+number (never ``true``, never ``"3"``), NaN and Infinity are refused, unknown keys are errors.
+Rules across fields (a manual pick needs a position, an exclusion needs a reason) stay in the
+dataclasses' ``__post_init__`` and come back as errors of the same form.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import json
+import typing
+from collections.abc import Mapping, Sequence
+from typing import Annotated, Any, Final, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator
+
+from .interpretation import SCHEMA as INTERPRETATION_SCHEMA
+from .interpretation import SCHEMA_VERSION, DesignChoices, Settings, SignOff, StageDecision
+
+__all__ = ["Problem", "check_interpretation_data", "check_interpretation_text", "check_project_table", "json_schemas",
+           "listing"]
+
+PROJECT_SCHEMA: Final = "shearbook.project/1"
+
+Positive = Annotated[float, Field(gt=0)]
+NonNegative = Annotated[float, Field(ge=0)]
+Text = Annotated[str, Field(max_length=10_000)]
+
+
+class _Table(BaseModel):
+    model_config = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False, frozen=True)
+
+
+class ColumnEntry(_Table):
+    """Where one quantity is read: the column header, its unit, and for the vertical gauge its sense."""
+
+    column: Text = Field(min_length=1)
+    unit: Text = Field(min_length=1)
+    dilation: Literal["positive", "negative"] | None = None
+    zero: float = 0.0
+
+
+class ColumnMap(_Table):
+    """The column map of a readings file: one entry per quantity the file holds (units.QUANTITY_OF)."""
+
+    time: ColumnEntry | None = None
+    horizontal_displacement: ColumnEntry | None = None
+    vertical_displacement: ColumnEntry | None = None
+    shear_force: ColumnEntry | None = None
+    normal_force: ColumnEntry | None = None
+    shear_stress: ColumnEntry | None = None
+    normal_stress: ColumnEntry | None = None
+
+
+class ConsolidationColumnMap(_Table):
+    """The column map of a consolidation (time-settlement) file."""
+
+    time: ColumnEntry | None = None
+    vertical_displacement: ColumnEntry | None = None
+
+
+class CsvLayout(_Table):
+    """Text layout of a readings file (or the sheet of a workbook)."""
+
+    delimiter: Annotated[str, Field(min_length=1, max_length=1)] | None = None
+    decimal: Literal[".", ","] | None = None
+    header_row: Annotated[int, Field(ge=0, le=10_000)] | None = None
+    encoding: Text | None = None
+    format: Literal["text", "xlsx"] | None = None
+    sheet: Text | None = None
+    time_order: Literal["strict", "flag"] | None = None
+
+
+class SpecimenEntry(_Table):
+    """Specimen geometry and phase data (mm, g)."""
+
+    shape: Literal["square", "circular"] | None = None
+    side_mm: Positive | None = None
+    diameter_mm: Positive | None = None
+    height_mm: Positive | None = None
+    dry_mass_g: Positive | None = None
+    gs: float | None = None
+    consolidation_settlement_mm: float | None = None
+    max_particle_mm: Positive | None = None
+    water_content_pct: Annotated[float, Field(ge=0, le=1000)] | None = None
+    relative_density: float | None = None
+
+    @field_validator("gs")
+    @classmethod
+    def _gs_of_a_soil(cls, value: float | None) -> float | None:
+        if value is not None and not 2.0 <= value <= 3.5:  # soils: about 2.5-2.9; wide bounds (common practice)
+            raise ValueError(f"G_s, the specific gravity of the soil particles, lies between 2.0 and 3.5 (quartz "
+                             f"2.65), not {value!r}")
+        return value
+
+    @field_validator("relative_density")
+    @classmethod
+    def _id_is_a_fraction(cls, value: float | None) -> float | None:
+        if value is not None and not 0.0 <= value <= 1.0:
+            raise ValueError(f"relative_density is I_D as a fraction between 0 and 1 (e.g. 0.65), not {value!r}")
+        return value
+
+
+class NormalLoadEntry(_Table):
+    """The normal load: exactly one of force, stress on the nominal area, or hanger mass (with lever ratio)."""
+
+    force_n: Positive | None = None
+    stress_kpa: Positive | None = None
+    hanger_mass_kg: Positive | None = None
+    lever_ratio: Positive | None = None
+
+
+class SampleEntry(_Table):
+    """Where the specimen came from (AGS4 export); depths in m below ground."""
+
+    location_id: Text | None = None
+    sample_top_m: NonNegative | None = None
+    sample_ref: Text | None = None
+    sample_type: Text | None = None
+    sample_id: Text | None = None
+    specimen_ref: Text | None = None
+    specimen_depth_m: NonNegative | None = None
+    description: Text | None = None
+    condition: Literal["", "undisturbed", "remoulded"] | None = None
+
+
+class StageTable(_Table):
+    """A ``[[stage]]`` table, or ``[stage_defaults]`` (the keys every stage inherits unless it sets them)."""
+
+    id: Annotated[str, Field(min_length=1, max_length=200)] | None = None
+    file: Text | None = None
+    consolidation_file: Text | None = None
+    test_set: Text | None = None
+    stratum: Text | None = None
+    test_type: Literal["single-stage", "multi-stage", "reversal"] | None = None
+    description: Text | None = None
+    specimen: SpecimenEntry | None = None
+    normal_load: NormalLoadEntry | None = None
+    columns: ColumnMap | None = None
+    csv: CsvLayout | None = None
+    consolidation_columns: ConsolidationColumnMap | None = None
+    consolidation_csv: CsvLayout | None = None
+    sample: SampleEntry | None = None
+
+    @field_validator("id")
+    @classmethod
+    def _id_is_trimmed(cls, value: str | None) -> str | None:
+        if value is not None and value != value.strip():
+            raise ValueError(f"stage id {value!r} begins or ends with a space; write it as {value.strip()!r}")
+        return value
+
+
+class ProjectMeta(_Table):
+    """``[project]``: who, where, what; shown in the record and the AGS4 export."""
+
+    name: Text | None = None
+    site: Text | None = None
+    client: Text | None = None
+    laboratory: Text | None = None
+    reference: Text | None = None
+    recipient: Text | None = None
+    description: Text | None = None
+    test_method: Text | None = None
+    invented_data: bool | None = None
+
+
+class DesignTable(_Table):
+    """``[design]``: the range of normal stress the parameters are for (kPa), low then high."""
+
+    normal_stress_range_kpa: Annotated[list[NonNegative], Field(min_length=2, max_length=2)] | None = None
+
+    @field_validator("normal_stress_range_kpa")
+    @classmethod
+    def _low_then_high(cls, value: list[float] | None) -> list[float] | None:
+        if value is not None and not value[0] < value[1]:
+            raise ValueError(f"give the range low then high, two different values (e.g. [50.0, 250.0]), "
+                             f"not {list(value)}")
+        return value
+
+
+class ProjectFile(_Table):
+    """The project file ``project.toml``."""
+
+    schema_: Literal["shearbook.project/1"] = Field(alias="schema")
+    project: ProjectMeta = ProjectMeta()
+    design: DesignTable = DesignTable()
+    stage_defaults: StageTable = StageTable()
+    stage: Annotated[list[StageTable], Field(min_length=1)]
+
+
+class InterpretationFile(_Table):
+    """The interpretation file ``interpretation.json``."""
+
+    schema_: Literal["shearbook.interpretation/1"] = Field(alias="schema")
+    schema_version: Annotated[int, Field(ge=1, le=SCHEMA_VERSION)]
+    revision: Annotated[int, Field(ge=0)] = 0
+    settings: Settings = Settings()
+    stages: dict[str, StageDecision] = {}
+    raw_files: dict[str, Annotated[str, Field(pattern=r"^[0-9a-f]{64}$")]] = {}
+    signoff: SignOff = SignOff()
+    design: DesignChoices = DesignChoices()
+
+
+_PROJECT = TypeAdapter(ProjectFile)
+_INTERPRETATION = TypeAdapter(InterpretationFile)
+
+
+@dataclasses.dataclass(frozen=True)
+class Problem:
+    """One problem of a file: where (key path), what was found, and what is allowed."""
+
+    file: str
+    path: str
+    message: str
+
+    def __str__(self) -> str:
+        return f"{self.file}: {self.path}: {self.message}" if self.path else f"{self.file}: {self.message}"
+
+
+def _path(loc: Sequence[int | str]) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        elif part.replace("_", "").isalnum() and part.isascii():
+            out += f".{part}" if out else part
+        else:
+            out += f"[{json.dumps(part, ensure_ascii=False)}]"
+    return out
+
+
+def _unwrap(tp: Any) -> Any:
+    """The model inside Optional/Annotated."""
+    while True:
+        origin = typing.get_origin(tp)
+        if origin is Annotated:
+            tp = typing.get_args(tp)[0]
+        elif origin in (typing.Union, getattr(__import__("types"), "UnionType", None)):
+            args = [a for a in typing.get_args(tp) if a is not type(None)]
+            if len(args) != 1:
+                return tp
+            tp = args[0]
+        else:
+            return tp
+
+
+def _field_types(tp: Any) -> dict[str, Any]:
+    tp = _unwrap(tp)
+    if isinstance(tp, type) and issubclass(tp, BaseModel):
+        return {f.alias or name: f.annotation for name, f in tp.model_fields.items()}
+    if dataclasses.is_dataclass(tp):
+        hints = typing.get_type_hints(tp, include_extras=True)
+        return {f.name: hints[f.name] for f in dataclasses.fields(tp)}
+    if typing.is_typeddict(tp):
+        return dict(typing.get_type_hints(tp, include_extras=True))
+    return {}
+
+
+def _type_at(root: Any, loc: Sequence[int | str]) -> Any:
+    """The declared type at ``loc`` below ``root`` (None where the path leaves the model)."""
+    tp = root
+    for part in loc:
+        tp = _unwrap(tp)
+        origin = typing.get_origin(tp)
+        if origin in (dict, Mapping, typing.Mapping) or (origin is not None and origin.__name__ == "Mapping"):
+            tp = typing.get_args(tp)[1]
+        elif origin in (list, tuple) and isinstance(part, int):
+            tp = typing.get_args(tp)[0]
+        else:
+            tp = _field_types(tp).get(str(part))
+            if tp is None:
+                return None
+    return tp
+
+
+def _allowed(error: Mapping[str, Any]) -> str:
+    ctx = error.get("ctx") or {}
+    kind = error["type"]
+    if kind == "literal_error":
+        return f"allowed: {ctx.get('expected')}"
+    if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
+        sign = {"greater_than": ">", "greater_than_equal": ">=", "less_than": "<", "less_than_equal": "<="}[kind]
+        limit = next(iter(v for k, v in ctx.items() if k in ("gt", "ge", "lt", "le")))
+        return f"allowed: a number {sign} {limit}"
+    return ""
+
+
+def _problems(exc: ValidationError, root: Any, file: str, prefix: Sequence[int | str] = ()) -> list[Problem]:
+    out = []
+    for error in exc.errors(include_url=False):
+        loc = tuple(part for part in error["loc"] if not str(part).startswith("function-"))
+        where = _path((*prefix, *loc))
+        kind, value = error["type"], error.get("input")
+        if kind in ("extra_forbidden", "unexpected_keyword_argument"):
+            known = sorted(_field_types(_type_at(root, loc[:-1])))
+            near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
+            hint = f"did you mean {near[0]}?" if near else f"known keys here: {', '.join(known)}"
+            out.append(Problem(file, where, f"unknown key {str(loc[-1])!r}; {hint}"))
+            continue
+        if kind == "missing":
+            out.append(Problem(file, where, "this key is required; add it"))
+            continue
+        shown = json.dumps(value, ensure_ascii=False, default=str) if not isinstance(value, Mapping | list) else ""
+        allowed = _allowed(error)
+        if kind == "value_error":  # a rule of the file's own (a dataclass check): its sentence says it all
+            text = error["msg"].removeprefix("Value error, ")
+        elif allowed:
+            text = f"found {shown or 'a ' + type(value).__name__}; {allowed}"
+        else:
+            text = f"{error['msg']} (found {shown or 'a ' + type(value).__name__})"
+        out.append(Problem(file, where, text))
+    return out
+
+
+def listing(problems: Sequence[Problem]) -> str:
+    """The problems of one file as indented lines, one per problem (the file is named once, above them)."""
+    return "\n".join(f"  {p.path or '(file)'}: {p.message}" for p in problems)
+
+
+def check_project_table(raw: Mapping[str, Any], file: str) -> list[Problem]:
+    """Every problem of a parsed project file (TOML tables), in file order; empty when it is well formed.
+
+    A stage is named by its id where it has one (``stage "BH03-D1".specimen.gs``), else by its place
+    counted from 1 (``stage 2``), as a person counts the ``[[stage]]`` tables in the file.
+    """
+    try:
+        _PROJECT.validate_python(raw)
+    except ValidationError as exc:
+        stages = raw.get("stage") if isinstance(raw.get("stage"), list) else []
+        names = {i: (f'stage {json.dumps(t["id"], ensure_ascii=False)}' if isinstance(t, Mapping)
+                     and isinstance(t.get("id"), str) and t["id"].strip() else f"stage {i + 1}")
+                 for i, t in enumerate(stages)}
+        return [dataclasses.replace(p, path=_stage_named(p.path, names)) for p in _problems(exc, ProjectFile, file)]
+    return []
+
+
+def _stage_named(path: str, names: Mapping[int, str]) -> str:
+    import re
+
+    m = re.match(r"stage\[(\d+)\]", path)
+    return names.get(int(m.group(1)), m.group(0)) + path[m.end():] if m else path
+
+
+def check_interpretation_text(text: str, file: str) -> tuple[InterpretationFile | None, list[Problem]]:
+    """The validated interpretation file, or None and every problem of it."""
+    try:
+        return _INTERPRETATION.validate_json(text), []
+    except ValidationError as exc:
+        return None, _problems(exc, InterpretationFile, file)
+
+
+def check_interpretation_data(data: Any, file: str) -> tuple[InterpretationFile | None, list[Problem]]:
+    """As :func:`check_interpretation_text`, for data already parsed (e.g. embedded in a record)."""
+    try:
+        text = json.dumps(data, allow_nan=False)
+    except (TypeError, ValueError) as exc:
+        return None, [Problem(file, "", f"holds a value JSON cannot carry ({exc}); NaN and Infinity are refused")]
+    return check_interpretation_text(text, file)
+
+
+def json_schemas() -> dict[str, dict[str, Any]]:
+    """The JSON Schema of each file, by the file name it is shipped under in ``schemas/``."""
+    return {
+        "project.schema.json": {**_PROJECT.json_schema(by_alias=True), "$id": PROJECT_SCHEMA,
+                                "title": "Shearbook project file (project.toml)"},
+        "interpretation.schema.json": {**_INTERPRETATION.json_schema(by_alias=True), "$id": INTERPRETATION_SCHEMA,
+                                       "title": "Shearbook interpretation file (interpretation.json)"},
+    }
