@@ -26,7 +26,21 @@ def write_text_atomic(path: str | Path, text: str) -> Path:
         os.umask(umask)
         os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, p)
+        _fsync_folder(p.parent)  # the rename itself survives a power cut
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
         raise
     return p
+
+
+def _fsync_folder(folder: Path) -> None:
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:  # a platform or file system without directory handles
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

@@ -71,8 +71,9 @@ def _interpretation_of(path: Path):
 
 
 def _signoff(args: argparse.Namespace) -> int:
-    from .interpretation import INTERPRETATION_FILE, load_interpretation, save_interpretation
+    from .interpretation import INTERPRETATION_FILE, load_interpretation
     from .pipeline import raw_file_hashes, read_all
+    from .revisions import save_checked
 
     project = load_project(args.project)
     path = project.root / INTERPRETATION_FILE
@@ -83,8 +84,10 @@ def _signoff(args: argparse.Namespace) -> int:
         raise ShearbookError(f"{path}: {exc}.") from exc
     if args.state != "draft":  # a signature is given against these exact raw files
         interp = interp.with_raw_files(raw_file_hashes(project, read_all(project)))
-    save_interpretation(interp, path)
-    _result(args, f"{path}: sign-off {args.state} by {args.who}")
+    saved = save_checked(interp, path)  # against the revision read above: never over another writer's work
+    _result(args, f"{path}: sign-off {args.state} by {args.who} (revision {saved.interpretation.revision})")
+    if saved.merged:
+        _say(args, f"also kept from the file, saved meanwhile by another writer: {', '.join(saved.merged)}")
     return 0
 
 
@@ -98,6 +101,17 @@ def _diff(args: argparse.Namespace) -> int:
     report = diff_interpretations(load_project(args.project), before, after)
     sys.stdout.write(report.to_text(str(args.before), str(args.after)))
     return 0
+
+
+def _check(args: argparse.Namespace) -> int:
+    from .validate import check_project
+
+    found = check_project(args.project, args.interpretation)
+    if found.ok:
+        _result(args, f"{args.project}: " + found.to_text().rstrip())
+        return 0
+    sys.stderr.write(found.to_text())
+    return 2
 
 
 def _summary(args: argparse.Namespace) -> int:
@@ -286,6 +300,7 @@ def build_parser() -> argparse.ArgumentParser:
     common.add_argument("-q", "--quiet", action="store_true",
                         help="print only errors (and the output a command exists to print: results, summary, diff)")
     common.add_argument("--verbose", action="store_true", help="also show JupyterLab's own log (open)")
+    common.add_argument("--debug", action="store_true", help="on an error, also print the Python traceback")
     sub = _Sub(parser.add_subparsers(dest="command", required=True), common)
     p = sub.add_parser("open", help="open the workbook on a project in JupyterLab")
     p.add_argument("project", type=Path, help="project folder (holds project.toml)")
@@ -320,6 +335,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--who", required=True, help="name of the person signing")
     p.add_argument("--note", default="", help="remark kept with the step")
     p.set_defaults(func=_signoff)
+    p = sub.add_parser("check", help="check a project: every problem of the project file, the interpretation file "
+                                     "and the readings files at once (nothing is computed or written)")
+    p.add_argument("project", type=Path)
+    p.add_argument("-i", "--interpretation", type=Path)
+    p.set_defaults(func=_check)
     p = sub.add_parser("summary", help="print picks (beside the suggestions), exclusions, flags and envelopes as text")
     p.add_argument("project", type=Path)
     p.add_argument("-i", "--interpretation", type=Path)
@@ -377,12 +397,44 @@ def _import(args: argparse.Namespace) -> int:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    """Run one command; every failure is one message on standard error and exit status 2, never a traceback.
+
+    A numerical warning (numpy, scipy) is an error here, not a line on the terminal: a computation
+    that warns has met data it was not written for, and its result is not given. ``--debug`` adds
+    the traceback.
+    """
+    import warnings
+
     args = build_parser().parse_args(argv)
     try:
-        return int(args.func(args))
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            return int(args.func(args))
     except ShearbookError as exc:
-        print(f"shearbook: error: {exc}", file=sys.stderr)
-        return 2
+        _fail(args, f"shearbook: error: {exc}")
+    except KeyboardInterrupt:
+        _fail(args, "shearbook: stopped (Ctrl+C); nothing half-written was left (files are written atomically).")
+        return 130
+    except RuntimeWarning as exc:
+        _fail(args, f"shearbook: error: {args.command}: a computation met values it cannot handle ({exc}); no "
+                    "result was given. Run `shearbook check` on the project; if it finds nothing, report this "
+                    "with the output of --debug.")
+    except (OSError, MemoryError, RecursionError) as exc:
+        _fail(args, f"shearbook: error: {args.command}: {type(exc).__name__}: {exc}. Check the path, the disk and "
+                    "the file permissions; nothing half-written was left.")
+    except Exception as exc:  # the boundary: whatever escaped is a fault of Shearbook, said as one sentence
+        _fail(args, f"shearbook: error: {args.command} failed inside Shearbook ({type(exc).__name__}: {exc}). "
+                    "Run `shearbook check` on the project; if it finds nothing, this is a fault in Shearbook: "
+                    "report it with the output of --debug.")
+    return 2
+
+
+def _fail(args: argparse.Namespace, message: str) -> None:
+    if getattr(args, "debug", False):
+        import traceback
+
+        traceback.print_exc()
+    print(message, file=sys.stderr)
 
 
 if __name__ == "__main__":

@@ -377,3 +377,25 @@ def json_schemas() -> dict[str, dict[str, Any]]:
         "interpretation.schema.json": {**_INTERPRETATION.json_schema(by_alias=True), "$id": INTERPRETATION_SCHEMA,
                                        "title": "Shearbook interpretation file (interpretation.json)"},
     }
+
+
+def write_schemas(folder: str | None = None) -> list[str]:
+    """Write the JSON Schema files into ``folder`` (default: the package's ``schemas/``); return their paths.
+
+    Run ``python -m kernels_helpers.file_models`` after changing a model; a test fails while the
+    shipped files differ from what the models give.
+    """
+    from pathlib import Path
+
+    out = Path(folder) if folder else Path(__file__).with_name("schemas")
+    out.mkdir(exist_ok=True)
+    written = []
+    for name, schema in json_schemas().items():
+        path = out / name
+        path.write_text(json.dumps(schema, indent=2, sort_keys=True, ensure_ascii=False) + "\n", encoding="utf-8")
+        written.append(str(path))
+    return written
+
+
+if __name__ == "__main__":
+    print("\n".join(write_schemas()))

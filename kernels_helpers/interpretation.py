@@ -19,7 +19,6 @@ from typing import Any, Final, Literal
 
 from typing_extensions import TypedDict  # pydantic reads typing_extensions' TypedDict on Python 3.11
 
-from .atomic import write_text_atomic
 from .errors import InterpretationFileError
 from .settings import PARTIAL_FACTOR_SETS, STRICT_FILE, PickSettings, RateSettings, ReductionSettings
 
@@ -249,7 +248,9 @@ class Interpretation:
     signoff: SignOff = field(default_factory=SignOff)
     schema: str = SCHEMA
     design: DesignChoices = field(default_factory=DesignChoices)
-    revision: int = 0  # the file's revision this was read at (0: no file yet); each save adds one
+    revision: int = field(default=0, compare=False)  # the file revision this was read at (0: none); a save adds 1
+    # the file as it was read (to_dict form): the base against which a save finds what this writer changed
+    loaded: Mapping[str, Any] | None = field(default=None, compare=False, repr=False)
 
     def decision(self, stage_id: str) -> StageDecision:
         return self.stages.get(stage_id, StageDecision())
@@ -418,13 +419,17 @@ def load_interpretation(path: str | Path) -> Interpretation:
                                       "untouched; restore it from version control or a backup.") from None
     _refuse_newer(data, str(p))
     model, problems = check_interpretation_text(text, str(p))
-    return _from_model(model, problems, str(p))
+    interpretation = _from_model(model, problems, str(p))
+    return dataclasses.replace(interpretation, loaded=interpretation.to_dict())
 
 
 def save_interpretation(interpretation: Interpretation, path: str | Path) -> Path:
-    """Write the interpretation atomically: temporary file in the same folder, fsync, rename."""
-    p = Path(path)
-    if p.exists():
-        load_interpretation(p)  # never overwrite a file we cannot read (corrupt or newer schema)
-    write_text_atomic(p, interpretation.to_json())
-    return p
+    """Write the interpretation atomically, against the revision it was read at (:mod:`.revisions`).
+
+    Refuses (:class:`~kernels_helpers.revisions.ConcurrentEditError`) when another writer changed the
+    same decisions since, and never overwrites a file it cannot read. ``save_checked`` also returns
+    the interpretation as written and what was merged from disk.
+    """
+    from .revisions import save_checked
+
+    return save_checked(interpretation, path).path

@@ -11,11 +11,15 @@ import functools
 import importlib.metadata
 import platform
 import sys
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
+from typing import TypeVar
+
+import numpy as np
 
 from .derived import derive
 from .envelope import fit_line, fit_through_origin
+from .errors import InterpretationFileError
 from .interpretation import (
     INTERPRETATION_FILE,
     FitSettings,
@@ -61,6 +65,30 @@ def stage_units(project: Project, readings: Mapping[str, StageReadings]) -> list
     return units
 
 
+T = TypeVar("T")
+
+
+def _on_curve(reduced: ReducedStage, spec: StageSpec, what: str, *xs_mm: float) -> None:
+    """A manual pick lies on the stage's shearing curve (to within one reading): never snapped from far away."""
+    x = reduced.pick_rows["x_mm"].to_numpy()
+    lo, hi = float(x.min()), float(x.max())
+    step = float(np.median(np.abs(np.diff(x)))) if len(x) > 1 else 0.0
+    for value in xs_mm:
+        if not lo - step <= value <= hi + step:
+            raise InterpretationFileError(
+                f"stage {spec.id!r}: the manual {what} at {value:g} mm lies outside the curve, which runs from "
+                f"{lo:.3f} to {hi:.3f} mm; move it onto the curve, or put it back to the suggestion.")
+
+
+def _manual(spec: StageSpec, what: str, evaluate: Callable[[], T]) -> T:
+    """A manual pick's values, or an error naming the stage and the pick (e.g. a window of too few readings)."""
+    try:
+        return evaluate()
+    except ValueError as exc:
+        raise InterpretationFileError(f"stage {spec.id!r}: the manual {what}: {exc}; widen it, or put it back to "
+                                      "the suggestion.") from None
+
+
 def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecision, settings: Settings,
                   saved_sha256: str | None = None, origin_mm: float | None = None,
                   reduced: ReducedStage | None = None, saved_files: Mapping[str, str] | None = None) -> StageResult:
@@ -76,13 +104,16 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     choice = decision.critical_state
     if choice.source == "manual":
         assert choice.x_from_mm is not None and choice.x_to_mm is not None
-        cs = over_window(reduced, choice.x_from_mm, choice.x_to_mm, settings.picks)
+        _on_curve(reduced, spec, "critical-state window", choice.x_from_mm, choice.x_to_mm)
+        cs = _manual(spec, "critical-state window",
+                     lambda: over_window(reduced, choice.x_from_mm, choice.x_to_mm, settings.picks))
     else:
         cs = cs_suggested
     x_peak, no_peak = suggest_peak(reduced, cs_suggested, settings.picks)
     peak_suggested = at_point(reduced, x_peak)
     if decision.peak.source == "manual":
         assert decision.peak.x_mm is not None
+        _on_curve(reduced, spec, "peak", decision.peak.x_mm)
         peak = at_point(reduced, decision.peak.x_mm)
         no_peak = None  # the engineer picked a peak on purpose
     else:
@@ -108,9 +139,9 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         choice_r = decision.residual
         if choice_r.source == "manual":
             assert choice_r.pass_no is not None and choice_r.x_from_mm is not None and choice_r.x_to_mm is not None
-            residual = residual_over_window(c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(),
-                                            c["pass_no"].to_numpy(), choice_r.pass_no, choice_r.x_from_mm,
-                                            choice_r.x_to_mm, choice_r.note)
+            residual = _manual(spec, "residual window", lambda: residual_over_window(
+                c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(), c["pass_no"].to_numpy(),
+                choice_r.pass_no, choice_r.x_from_mm, choice_r.x_to_mm, choice_r.note))
         elif not residual.reached:
             flags.append(residual.message)
     if stale:
@@ -287,9 +318,12 @@ def interpret(project: Project | str | Path, interpretation: Interpretation | st
     analysed: list[StageResult] = []
     origin: float | None = None
     for spec, part, continued in stage_units(proj, readings):
-        result = analyse_stage(spec, part, interp.decision(spec.id), interp.settings,
-                               interp.raw_files.get(spec.relpath), origin if continued else None,
-                               saved_files=interp.raw_files)
+        try:
+            result = analyse_stage(spec, part, interp.decision(spec.id), interp.settings,
+                                   interp.raw_files.get(spec.relpath), origin if continued else None,
+                                   saved_files=interp.raw_files)
+        except InterpretationFileError as exc:  # a manual pick that does not fit the curve: name the file
+            raise InterpretationFileError(f"{where}: {exc}") from None
         if not continued:
             origin = result.reduced.seating_shift_mm
         analysed.append(result)

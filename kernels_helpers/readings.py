@@ -16,6 +16,7 @@ import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -138,16 +139,12 @@ def _xlsx_frame(path: Path, fmt: CsvFormat, data: bytes) -> tuple[pd.DataFrame, 
         raise ReadingsError(f"{path}: not a readable .xlsx workbook ({type(exc).__name__}: {exc}). "
                             "Save it again as .xlsx, or as CSV and set csv.format = \"text\".") from exc
     try:
-        if fmt.sheet and fmt.sheet not in book.sheetnames:
-            raise ReadingsError(f"{path}: no sheet {fmt.sheet!r}; the workbook has {book.sheetnames}. Set csv.sheet.")
-        sheet = book[fmt.sheet] if fmt.sheet else book.worksheets[0]
-        rows: list[list[str]] = []
-        numbers: list[int] = []
-        for r, values in enumerate(sheet.iter_rows(values_only=True)):
-            cells = ["" if v is None else (repr(v) if isinstance(v, float) else str(v)) for v in values]
-            if r >= fmt.header_row and any(c.strip() for c in cells):
-                rows.append(cells)
-                numbers.append(r + 1)
+        rows, numbers = _sheet_rows(path, fmt, book)
+    except ReadingsError:
+        raise
+    except Exception as exc:  # a damaged sheet inside a readable zip fails only while its rows are read
+        raise ReadingsError(f"{path}: the workbook is damaged; its rows cannot be read ({type(exc).__name__}: "
+                            f"{exc}). Save it again as .xlsx, or as CSV and set csv.format = \"text\".") from None
     finally:
         book.close()
     if not rows:
@@ -157,6 +154,21 @@ def _xlsx_frame(path: Path, fmt: CsvFormat, data: bytes) -> tuple[pd.DataFrame, 
     width = len(header)
     body = [(row + [""] * width)[:width] for row in rows[1:]]
     return pd.DataFrame(body, columns=header, dtype=str), numbers[0], numbers[1:]
+
+
+def _sheet_rows(path: Path, fmt: CsvFormat, book: Any) -> tuple[list[list[str]], list[int]]:
+    """The non-blank rows of the sheet from the header down, as text, with their sheet row numbers."""
+    if fmt.sheet and fmt.sheet not in book.sheetnames:
+        raise ReadingsError(f"{path}: no sheet {fmt.sheet!r}; the workbook has {book.sheetnames}. Set csv.sheet.")
+    sheet = book[fmt.sheet] if fmt.sheet else book.worksheets[0]
+    rows: list[list[str]] = []
+    numbers: list[int] = []
+    for r, values in enumerate(sheet.iter_rows(values_only=True)):
+        cells = ["" if v is None else (repr(v) if isinstance(v, float) else str(v)) for v in values]
+        if r >= fmt.header_row and any(c.strip() for c in cells):
+            rows.append(cells)
+            numbers.append(r + 1)
+    return rows, numbers
 
 
 def _numeric(path: Path, fmt: CsvFormat, frame: pd.DataFrame, column: str, lines: list[int]) -> np.ndarray:

@@ -127,7 +127,10 @@ def _execute(project_dir: Path, interpretation_file: Path | None, template: Path
     except CellExecutionError as exc:
         index = next((i for i, c in enumerate(nb.cells)
                       if any(o.get("output_type") == "error" for o in c.get("outputs", []))), None)
-        err = next((o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"), {})
+        if index is None:  # a ShearbookError shown in words (views.setup_notebook): the last cell that ran
+            index = max((i for i, c in enumerate(nb.cells) if c.get("execution_count")), default=None)
+        err = next((o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"),
+                   {"ename": exc.ename, "evalue": exc.evalue})
         where = f"cell {index + 1}" if index is not None else "a cell"
         first_line = nb.cells[index].source.splitlines()[0] if index is not None and nb.cells[index].source else ""
         raise RecordError(

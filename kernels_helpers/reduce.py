@@ -197,6 +197,13 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
         raise ReadingsError(f"{stage.file}: {exc}; check the shear force column and its unit.") from exc
     x = x_raw - shift
     spec = stage.specimen
+    beyond = np.flatnonzero(~(np.abs(x) < spec.width_mm))  # also NaN: a reading that reads as no number
+    if beyond.size:
+        i = int(beyond[0])
+        raise ReadingsError(
+            f"{stage.file}, line {readings.line(i)}: horizontal displacement {x_raw[i]:.4g} mm reaches the box "
+            f"width {spec.width_mm:g} mm ({beyond.size} reading(s)): no contact area would be left. Check the unit "
+            "of the displacement column and the box size (side_mm or diameter_mm) in the project file.")
     if settings.area_convention == "corrected":
         area = corrected_area_mm2(spec.shape, spec.width_mm, np.clip(x, 0.0, None))
     else:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 import os
@@ -58,8 +59,9 @@ def test_round_trip(tmp_path: Path, make: type[Interpretation]) -> None:
     original = make()
     path = save_interpretation(original, tmp_path / "interpretation.json")
     loaded = load_interpretation(path)
-    assert loaded == original
-    assert loaded.to_json() == original.to_json()
+    assert loaded == original  # the same decisions (the revision is bookkeeping, not a decision)
+    assert loaded.revision == 1 and original.revision == 0
+    assert loaded.to_json() == dataclasses.replace(original, revision=1).to_json()
 
 
 def test_stable_text(tmp_path: Path) -> None:
@@ -67,20 +69,27 @@ def test_stable_text(tmp_path: Path) -> None:
     save_interpretation(_full(), path)
     first = path.read_bytes()
     save_interpretation(load_interpretation(path), path)
-    assert path.read_bytes() == first  # identical text on re-save
+    # identical text on re-save, but for the revision, which counts the saves
+    assert path.read_bytes() == first.replace(b'"revision": 1,', b'"revision": 2,')
     text = first.decode("utf-8")
     assert text.endswith("}\n") and "\r" not in text
     data = json.loads(text)
     assert text == json.dumps(data, indent=2, sort_keys=True, ensure_ascii=False) + "\n"  # sorted keys, 2 spaces
     assert list(data["stages"]) == ["S1", "S2"] and list(data["raw_files"]) == sorted(data["raw_files"])
-    assert _full().sha256 == hashlib.sha256(first).hexdigest()
+    assert dataclasses.replace(_full(), revision=1).sha256 == hashlib.sha256(first).hexdigest()
+
+
+def _onto(path: Path, new: Interpretation) -> Interpretation:
+    """``new``'s decisions as an edit of the file at ``path`` (a writer saves against what it read)."""
+    read = load_interpretation(path)
+    return dataclasses.replace(new, revision=read.revision, loaded=read.loaded)
 
 
 def test_atomic_save_leaves_no_temporary_files(tmp_path: Path) -> None:
     path = tmp_path / "interpretation.json"
     save_interpretation(Interpretation(), path)
-    save_interpretation(_full(), path)
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json"]
+    save_interpretation(_onto(path, _full()), path)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json", "interpretation.json.lock"]
 
 
 def test_failed_save_keeps_the_old_file_and_cleans_up(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
@@ -93,9 +102,9 @@ def test_failed_save_keeps_the_old_file_and_cleans_up(tmp_path: Path, monkeypatc
 
     monkeypatch.setattr(os, "replace", refuse)
     with pytest.raises(OSError, match=re.escape("disk full (simulated)")):
-        save_interpretation(_full(), path)
+        save_interpretation(_onto(path, _full()), path)
     assert path.read_bytes() == before
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json", "interpretation.json.lock"]
 
 
 @pytest.mark.parametrize(
@@ -121,7 +130,7 @@ def test_corrupt_file_raises_and_is_not_overwritten(tmp_path: Path, text: str, p
     with pytest.raises(InterpretationFileError, match=re.escape(parts[0])):
         save_interpretation(Interpretation(), path)
     assert path.read_bytes() == before
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["interpretation.json", "interpretation.json.lock"]
 
 
 def _edited(tmp_path: Path, edit: dict[str, object], stage: dict[str, object] | None = None) -> Path:

@@ -39,13 +39,11 @@ def _pyproject() -> dict:
 
 
 def test_every_subpackage_is_listed_in_pyproject() -> None:
+    """Every folder of the package that holds a file (code or data) is a listed package: nothing left out."""
     listed = set(_pyproject()["tool"]["setuptools"]["packages"])
-    on_disk = {"kernels_helpers." + ".".join(p.parent.relative_to(PACKAGE).parts)
-               for p in PACKAGE.rglob("*.py") if p.parent != PACKAGE and "__pycache__" not in p.parts}
-    on_disk |= {"kernels_helpers", "kernels_helpers.workbook"}
-    on_disk |= {"kernels_helpers." + ".".join(p.parent.relative_to(PACKAGE).parts)
-                for p in (PACKAGE / "templates").rglob("*") if p.is_file() and "__pycache__" not in p.parts}
-    assert listed == on_disk
+    on_disk = {".".join(("kernels_helpers", *p.parent.relative_to(PACKAGE).parts))
+               for p in PACKAGE.rglob("*") if p.is_file() and "__pycache__" not in p.parts}
+    assert listed == on_disk | {"kernels_helpers.workbook"}
 
 
 @pytest.fixture(scope="module")
@@ -61,7 +59,9 @@ def test_the_wheel_ships_the_templates_and_no_tests(wheel: Path) -> None:
     names = set(zipfile.ZipFile(wheel).namelist())
     for shipped in ("kernels_helpers/workbook/shear_interpretation.ipynb", "kernels_helpers/workbook/make_template.py",
                     "kernels_helpers/templates/shearbook_record/index.html.j2",
-                    "kernels_helpers/templates/shearbook_record/conf.json", "kernels_helpers/py.typed"):
+                    "kernels_helpers/templates/shearbook_record/conf.json", "kernels_helpers/py.typed",
+                    "kernels_helpers/schemas/project.schema.json",
+                    "kernels_helpers/schemas/interpretation.schema.json"):
         assert shipped in names
     assert not [n for n in names if n.startswith(("tests/", "example_project/", "workbook/"))]
 

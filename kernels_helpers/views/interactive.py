@@ -24,13 +24,15 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
-from ..interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, load_interpretation, save_interpretation
+from ..errors import ShearbookError
+from ..interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, check_stage_ids, load_interpretation
 from ..passes import end_of_pass_window
 from ..picks import at_point
 from ..pipeline import analyse_stage, assemble_results, read_all, stage_units
 from ..project import load_project
 from ..readings import sha256_of
 from ..results import Results, StageResult
+from ..revisions import ConcurrentEditError, Saved, save_checked
 
 __all__ = ["Controller"]
 
@@ -57,7 +59,9 @@ class Controller:
         self.project = load_project(project_dir)
         self.path = Path(interpretation_path or self.project.root / INTERPRETATION_FILE)
         self.interpretation = load_interpretation(self.path)
+        check_stage_ids(self.interpretation, [s.id for s in self.project.stages], str(self.path))
         self.author = author
+        self.unsaved = ""  # an edit refused because the file changed on disk, shown until a reload
         self.message = ""  # the last refusal or confirmation, in words
         self.history: list[Interpretation] = []
         self.last_refresh_s = 0.0  # time of the last edit: analysis + refit + save + redraw
@@ -232,7 +236,16 @@ class Controller:
             fresh = {sid: self._analyse(sid, new) for sid in changed}
         except ValueError as exc:  # e.g. a window holding too few readings: nothing is saved
             return self._refuse(f"refused: {exc}")
-        save_interpretation(new, self.path)
+        # every edit is a change of what this screen last read or saved: that is the base of the save
+        saved = self._save(dataclasses.replace(new, revision=old.revision, loaded=old.loaded), message)
+        if saved is None:
+            return False
+        new = saved.interpretation
+        also = self._merged_stages(saved.merged) - changed
+        fresh.update({sid: self._analyse(sid, new) for sid in also})
+        changed |= also
+        if saved.merged:
+            message += f" (also taken from the file, saved meanwhile by another writer: {', '.join(saved.merged)})"
         if remember:
             self.history.append(self.interpretation)
         self.interpretation = new
@@ -242,6 +255,48 @@ class Controller:
         for listener in self._listeners:
             listener(self.results, frozenset(changed))
         self.last_refresh_s = time.perf_counter() - start
+        return True
+
+    def _save(self, new: Interpretation, message: str) -> Saved | None:
+        """Save against the revision this screen read; on a clash keep the edit unsaved and say so."""
+        try:
+            saved = save_checked(new, self.path)
+        except ConcurrentEditError as exc:
+            self.unsaved = f"{message} (not saved)"
+            self._refuse(f"not saved: {exc} Press 'reload from file' to see the file as it is now; your edit "
+                         f"is shown here until then: {self.unsaved}.")
+            return None
+        except ShearbookError as exc:  # a file that cannot be read is never overwritten
+            self.unsaved = f"{message} (not saved)"
+            self._refuse(f"not saved: {exc}")
+            return None
+        self.unsaved = ""
+        return saved
+
+    def _merged_stages(self, merged: tuple[str, ...]) -> set[str]:
+        """The stages to analyse again after a save took other writers' decisions from the file."""
+        if any(m in ("settings.reduction", "settings.picks") for m in merged):
+            return set(self._units)
+        named = {m.removeprefix("stage ") for m in merged if m.startswith("stage ")}
+        files = {m.removeprefix("raw file ") for m in merged if m.startswith("raw file ")}
+        return {sid for sid, (spec, _, _) in self._units.items() if sid in named or spec.relpath in files}
+
+    def reload(self) -> bool:
+        """Read the interpretation file again (after another writer saved) and show what it holds now."""
+        try:
+            fresh = load_interpretation(self.path)
+        except ShearbookError as exc:
+            return self._refuse(f"not reloaded: {exc}")
+        check_stage_ids(fresh, list(self._units), str(self.path))
+        self.interpretation = fresh
+        self.history.clear()  # undo steps were made on the old state
+        self._analysed = {sid: self._analyse(sid, fresh) for sid in self._units}
+        self.results = self._assemble(fresh)
+        lost, self.unsaved = self.unsaved, ""
+        self.message = (f"reloaded {self.path.name} (revision {fresh.revision})"
+                        + (f"; your edit was not saved, make it again if it still applies: {lost}" if lost else ""))
+        for listener in self._listeners:
+            listener(self.results, frozenset(self._units))
         return True
 
     def _hashes(self, new: Interpretation, changed: set[str]) -> dict[str, str]:

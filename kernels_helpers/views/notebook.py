@@ -15,6 +15,7 @@ from bokeh.io import curdoc, output_notebook, show
 from bokeh.resources import Resources
 from IPython.display import HTML, display
 
+from ..errors import ShearbookError
 from ..interpretation import load_interpretation
 from ..project import Project
 from ..results import INTERPRETATION_MIME, RESULTS_MIME, Results
@@ -27,9 +28,27 @@ RECORD_PACKAGES = ("bokeh", "jupyterlab", "ipywidgets", "jupyter_bokeh", "nbconv
 
 
 def setup_notebook() -> None:
-    """Load BokehJS into the page, inline (no CDN), trimmed to the parts the figures use."""
+    """Load BokehJS into the page, inline (no CDN), trimmed to the parts the figures use.
+
+    Also shows Shearbook's own errors (a bad project file, a readings file that does not read) as
+    their message in words, not as a Python traceback. The cell still fails, so an export stops there.
+    """
     output_notebook(resources=Resources(mode="inline", components=["bokeh", "bokeh-widgets"]), hide_banner=True)
     display(HTML(tables.STYLE))
+    from IPython import get_ipython
+
+    shell = get_ipython()
+    if shell is not None:
+        shell.set_custom_exc((ShearbookError,), _show_shearbook_error)
+
+
+def _show_shearbook_error(shell: object, etype: type, value: BaseException, tb: object,
+                          tb_offset: int | None = None) -> list[str]:
+    """IPython's handler for :class:`ShearbookError`: the message, said once, with what to do."""
+    del shell, etype, tb, tb_offset
+    display(HTML(f'<div class="sb-flag sb-error"><b>Shearbook cannot go on:</b><pre>{tables.esc(str(value))}</pre>'
+                 "Fix what it names (the raw readings are never changed), then run the cells again.</div>"))
+    return [f"ShearbookError: {value}"]
 
 
 def show_static(obj) -> None:

@@ -259,9 +259,12 @@ class LiveWorkbook:
         self.author.observe(self.on_author, "value")
         self.undo = W.Button(description="undo last change", icon="undo", layout=W.Layout(width="180px"))
         self.undo.on_click(lambda _: self.act(lambda c: c.undo()))
+        self.reload = W.Button(description="reload from file", icon="refresh", layout=W.Layout(width="180px"),
+                               tooltip="read the interpretation file again (another writer saved it)")
+        self.reload.on_click(lambda _: self.act(lambda c: c.reload()))
         self.status = W.HTML()
         self.status.add_class("sb-status")
-        self.top = W.VBox([W.HBox([self.author, self.undo]), self.status])
+        self.top = W.VBox([W.HBox([self.author, self.undo, self.reload]), self.status])
         self.panels = {s.stage_id: StagePanel(self, s) for s in controller.results.stages}
         self.stage_table = StageTable(self)
         self.table = self.stage_table.widget
