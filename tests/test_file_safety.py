@@ -293,9 +293,9 @@ def test_two_workbooks_on_one_stage_the_second_is_refused_and_can_reload(example
     assert a.exclude("BH03-D3", "too fast for drained conditions")
     assert not b.set_note("BH03-D3", "fine to use")
     assert b.message.startswith("not saved: ") and "stage BH03-D3 (by A at " in b.message
-    assert "your edit is shown here until then" in b.message
+    assert "stays on this screen until then" in b.message
     assert b.reload()
-    assert "your edit was not saved, make it again if it still applies" in b.message
+    assert "was not saved: make it again if it still applies" in b.message
     assert not b.interpretation.decision("BH03-D3").included  # what A saved is what B now shows
 
 

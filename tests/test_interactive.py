@@ -7,6 +7,7 @@ checks the interpretation file on disk and the results, and that repeating a cha
 
 from __future__ import annotations
 
+import html
 import json
 from pathlib import Path
 
@@ -205,3 +206,24 @@ def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) 
     assert "live_workbook" not in html_text and "live-envelope" not in html_text and "widget-state" not in html_text
     assert '"name":"envelope-BH03 dense"' in html_text  # the static record is still there
     assert (example_copy / "interpretation.json").read_bytes() == before  # opening the live screen writes nothing
+
+
+def test_a_clash_with_another_writer_is_shown_and_reload_brings_the_file_in(wb: LiveWorkbook) -> None:
+    from kernels_helpers.interpretation import load_interpretation
+    from kernels_helpers.revisions import save_checked
+
+    path = wb.controller.path
+    other = load_interpretation(path)  # another workbook, or a script, on the same project
+    save_checked(other.excluded(STAGE, "disturbed during trimming", "B. Checker"), path)
+    on_disk = path.read_bytes()
+    row = wb.stage_table.rows[STAGE]
+    row["note"].value = "looks fine to me"  # the same stage: refused, and the edit stays on the screen
+    assert path.read_bytes() == on_disk
+    assert "not saved: " in wb.status.value and "stage BH03-D3 (by B. Checker at " in wb.status.value
+    wb.reload.click()
+    assert "reloaded interpretation.json (revision 1)" in wb.status.value and "sb-saved" not in wb.status.value
+    assert ('your edit ("BH03-D3: note") was not saved: make it again if it still applies'
+            in html.unescape(wb.status.value))
+    assert not wb.controller.interpretation.decision(STAGE).included
+    assert wb.stage_table.rows[STAGE]["include"].value is False  # the table shows the file as it is now
+    _matches_interpret(wb)

@@ -262,12 +262,12 @@ class Controller:
         try:
             saved = save_checked(new, self.path)
         except ConcurrentEditError as exc:
-            self.unsaved = f"{message} (not saved)"
+            self.unsaved = message.removesuffix(" saved")
             self._refuse(f"not saved: {exc} Press 'reload from file' to see the file as it is now; your edit "
-                         f"is shown here until then: {self.unsaved}.")
+                         f"(\"{self.unsaved}\") stays on this screen until then.")
             return None
         except ShearbookError as exc:  # a file that cannot be read is never overwritten
-            self.unsaved = f"{message} (not saved)"
+            self.unsaved = message.removesuffix(" saved")
             self._refuse(f"not saved: {exc}")
             return None
         self.unsaved = ""
@@ -293,8 +293,8 @@ class Controller:
         self._analysed = {sid: self._analyse(sid, fresh) for sid in self._units}
         self.results = self._assemble(fresh)
         lost, self.unsaved = self.unsaved, ""
-        self.message = (f"reloaded {self.path.name} (revision {fresh.revision})"
-                        + (f"; your edit was not saved, make it again if it still applies: {lost}" if lost else ""))
+        lost_text = f"; your edit (\"{lost}\") was not saved: make it again if it still applies" if lost else ""
+        self.message = f"reloaded {self.path.name} (revision {fresh.revision}){lost_text}"
         for listener in self._listeners:
             listener(self.results, frozenset(self._units))
         return True

@@ -261,7 +261,7 @@ class LiveWorkbook:
         self.undo.on_click(lambda _: self.act(lambda c: c.undo()))
         self.reload = W.Button(description="reload from file", icon="refresh", layout=W.Layout(width="180px"),
                                tooltip="read the interpretation file again (another writer saved it)")
-        self.reload.on_click(lambda _: self.act(lambda c: c.reload()))
+        self.reload.on_click(lambda _: self.on_reload())
         self.status = W.HTML()
         self.status.add_class("sb-status")
         self.top = W.VBox([W.HBox([self.author, self.undo, self.reload]), self.status])
@@ -306,6 +306,14 @@ class LiveWorkbook:
         if not ok and redraw:
             self.panels[redraw].update(c.stage(redraw))
         return ok
+
+    def on_reload(self) -> None:
+        """Read the file again (another writer saved it); not a save, so said as information."""
+        c = self.controller
+        ok = c.reload()
+        css = "sb-info" if ok else "sb-flag"
+        self.status.value = f'<span class="{css}">{tables.esc(c.message)}</span>'
+        self.last_message, c.message = c.message, ""
 
     def on_author(self, change: dict[str, Any]) -> None:
         self.controller.author = change["new"].strip()
