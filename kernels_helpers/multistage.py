@@ -80,7 +80,7 @@ def expand_multistage(spec: StageSpec, readings: StageReadings) -> list[tuple[St
     out = []
     for k, step in enumerate(steps, start=1):
         part = t.iloc[step.start : step.stop].reset_index(drop=True)
-        settled = spec.specimen.consolidation_settlement_mm - (float(part["y_mm"].iloc[0]) - y0)
+        settled = (spec.specimen.consolidation_settlement_mm or 0.0) - (float(part["y_mm"].iloc[0]) - y0)
         sub = dataclasses.replace(
             spec,
             id=f"{spec.id}/{k}",

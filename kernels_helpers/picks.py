@@ -4,8 +4,10 @@ Rules (also stated in the contributor guide and the record):
 
 * **Peak** - the reading of maximum lightly smoothed shear stress (Savitzky-Golay, window
   ``peak_smoothing_mm``), seating readings ignored. When that maximum exceeds the critical-state
-  stress by less than ``distinct_peak_margin`` (a fraction), or lies inside the critical-state
-  window, the stage has "no distinct peak" and takes no part in the peak envelope.
+  stress by less than ``distinct_peak_margin`` (a fraction), the stage has "no distinct peak" and
+  takes no part in the peak envelope. A record that stops a short way past a clear peak, so that
+  the end window reaches back over it, keeps its peak when the curve falls after it by at least
+  ``distinct_peak_margin`` (wherever the window starts); its critical state is then "not reached".
 * **Critical state** - the mean shear stress over the last ``cs_window_mm`` of travel. It is
   "reached" when, over that window, the mean rate of dilation is within ``cs_rate_tolerance`` of
   zero and the fitted trend of the stress ratio tau/sigma changes it by less than
@@ -153,8 +155,14 @@ def suggest_peak(reduced: ReducedStage, cs: WindowValues, settings: PickSettings
     i = int(np.nanargmax(score))
     x_peak = float(rows["x_mm"].iloc[i])
     excess = float(score[i]) / (cs.tau_kpa if settings.peak_rule == "tau" else cs.ratio) - 1.0
-    if x_peak >= cs.x_from_mm:
-        return x_peak, "no distinct peak: the maximum shear stress lies in the critical-state window"
+    if x_peak >= cs.x_from_mm:  # a record that stops early: the end window reaches back over the peak
+        after = score[i + 1:]
+        fall = float(score[i]) / float(np.nanmin(after)) - 1.0 if after.size and np.isfinite(after).any() else 0.0
+        if fall < settings.distinct_peak_margin:
+            return x_peak, (f"no distinct peak: the maximum shear stress lies in the critical-state window and the "
+                            f"curve falls by {fall * 100:.1f} % after it (less than "
+                            f"{settings.distinct_peak_margin * 100:g} %)")
+        return x_peak, None
     if excess < settings.distinct_peak_margin:
         return x_peak, (
             f"no distinct peak: the maximum {'shear stress' if settings.peak_rule == 'tau' else 'stress ratio'} "

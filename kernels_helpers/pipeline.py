@@ -34,10 +34,10 @@ from .passes import pass_stresses, residual_over_window, residual_strength
 from .picks import at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
 from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage, sha256_of
-from .reduce import ReducedStage, reduce_stage
+from .reduce import ReducedStage, reduce_stage, settlement_of
 from .results import EnvelopeResult, Results, StageResult
 from .sensitivity import leave_one_out
-from .stage_checks import check_stage
+from .stage_checks import check_stage, consolidation_of
 
 __all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance",
            "raw_file_hashes", "read_all", "stage_units"]
@@ -97,8 +97,13 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     ``reduced``: this stage's reduction under ``settings.reduction`` when the caller already has it
     (the live workbook: a pick does not change the reduction); computed here otherwise.
     """
+    # in the order the data needs: the consolidation stage first, then the reduction from the height at the
+    # start of shearing it gives, then suggestions and checks
+    consolidation = consolidation_of(spec)
     if reduced is None:
-        reduced = reduce_stage(spec, readings, settings.reduction, origin_mm)
+        final = consolidation.result.final_settlement_mm if consolidation is not None else None
+        reduced = reduce_stage(spec, readings, settings.reduction, origin_mm,
+                               settlement_of(spec.specimen.consolidation_settlement_mm, final))
     cs_from, cs_to = suggest_critical_state(reduced, settings.picks)
     cs_suggested = over_window(reduced, cs_from, cs_to, settings.picks)
     choice = decision.critical_state
@@ -110,6 +115,13 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     else:
         cs = cs_suggested
     x_peak, no_peak = suggest_peak(reduced, cs_suggested, settings.picks)
+    if no_peak is None and x_peak >= cs_suggested.x_from_mm:  # the record stops a short way past the peak
+        x_end = cs_suggested.x_to_mm
+        cs_suggested = dataclasses.replace(cs_suggested, flags=(*cs_suggested.flags, (
+            f"critical state not reached: the record ends {x_end - x_peak:.2f} mm after the peak at {x_peak:.2f} mm, "
+            f"inside the last {settings.picks.cs_window_mm:g} mm taken for critical state")))
+        if choice.source != "manual":
+            cs = cs_suggested
     peak_suggested = at_point(reduced, x_peak)
     if decision.peak.source == "manual":
         assert decision.peak.x_mm is not None
@@ -128,7 +140,7 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         flags.extend(peak_flags(reduced, peak, settings.picks))
     # specimen, spike, normal-load, consolidation and drained-rate checks (stage_checks.py)
     checks = check_stage(spec, readings, reduced, peak.x_mm if no_peak is None else cs.x_from_mm,
-                         settings.rate.time_to_failure)
+                         settings.rate.time_to_failure, consolidation)
     flags.extend(checks.flags)
     passes, residual, residual_suggested = (), None, None
     if spec.test_type == "reversal":

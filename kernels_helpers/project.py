@@ -47,7 +47,7 @@ class Specimen:
     height_mm: float  # initial height, before consolidation
     dry_mass_g: float
     gs: float
-    consolidation_settlement_mm: float = 0.0  # positive = compression during consolidation
+    consolidation_settlement_mm: float | None = None  # declared; positive = compression. None: not declared
     max_particle_mm: float | None = None  # largest particle size d_max, when the laboratory gives it
     water_content_pct: float | None = None  # initial water content w in %, when given
     relative_density: float | None = None  # I_D as a fraction 0-1 (for Bolton's index), when given
@@ -218,7 +218,8 @@ def _specimen(t: _Fields) -> Specimen:
         height_mm=t.number("height_mm"),
         dry_mass_g=t.number("dry_mass_g"),
         gs=t.number("gs"),
-        consolidation_settlement_mm=t.number("consolidation_settlement_mm", positive=False, default=0.0),
+        consolidation_settlement_mm=(t.number("consolidation_settlement_mm", positive=False)
+                                     if "consolidation_settlement_mm" in t.table else None),
         max_particle_mm=t.number("max_particle_mm") if "max_particle_mm" in t.table else None,
         water_content_pct=t.number("water_content_pct", positive=False) if "water_content_pct" in t.table else None,
         relative_density=_relative_density(t),

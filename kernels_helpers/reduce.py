@@ -29,6 +29,7 @@ __all__ = [
     "height_of_solids_mm",
     "reduce_stage",
     "seating_shift_mm",
+    "settlement_of",
     "smooth_on_x",
     "stresses_kpa",
     "void_ratio",
@@ -138,6 +139,10 @@ class ReducedStage:
     normal_force_n: float
     area0_mm2: float
     area_convention: AreaConvention
+    settlement_mm: float = 0.0  # consolidation settlement the heights use (positive = compression)
+    settlement_source: str = "declared"  # "declared" (project file), "consolidation readings", or "none"
+    height_initial_mm: float = 0.0  # H_0, before consolidation
+    height_start_mm: float = 0.0  # H_0 - settlement: at the start of shearing
 
     @cached_property
     def pick_rows(self) -> pd.DataFrame:
@@ -154,7 +159,8 @@ class ReducedStage:
 
 def height_mm(reduced: ReducedStage, specimen: Specimen) -> np.ndarray:
     """Specimen height at every reading: H_0 - consolidation settlement + vertical displacement (mm)."""
-    return specimen.height_mm - specimen.consolidation_settlement_mm + reduced.curve["y_mm"].to_numpy()
+    del specimen  # the reduction holds the height at the start of shearing it used
+    return reduced.height_start_mm + reduced.curve["y_mm"].to_numpy()
 
 
 def dry_density_mg_m3(reduced: ReducedStage, specimen: Specimen) -> np.ndarray:
@@ -179,8 +185,12 @@ def stresses_kpa(reduced: ReducedStage, specimen: Specimen,
 
 
 def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionSettings,
-                 origin_mm: float | None = None) -> ReducedStage:
+                 origin_mm: float | None = None,
+                 settlement: tuple[float, str] | None = None) -> ReducedStage:
     """Reduce one stage's readings to stresses, void ratio and rate of dilation.
+
+    ``settlement``: the consolidation settlement (mm) and its source, as :func:`settlement_of`
+    gives it from the project file and the consolidation readings; None: the declared value, else 0.
 
     ``origin_mm``: for a later stage of a multi-stage test that continues from the previous
     displacement, the zero of x found on the first stage (no new seating slack is sought).
@@ -213,7 +223,8 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
     tau = force / area * 1000.0  # N/mm2 -> kPa
     sigma = normal / area * 1000.0
     hs = height_of_solids_mm(spec)
-    h_start = spec.height_mm - spec.consolidation_settlement_mm
+    settled_mm, source = settlement or settlement_of(spec.consolidation_settlement_mm, None)
+    h_start = spec.height_mm - settled_mm
     e = void_ratio(h_start + y, hs)  # H = H_0 - consolidation settlement + y
     in_shear = np.arange(len(x)) >= start
     dydx = np.full_like(x, np.nan)
@@ -275,4 +286,22 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
         normal_force_n=normal,
         area0_mm2=spec.area0_mm2,
         area_convention=settings.area_convention,
+        settlement_mm=settled_mm,
+        settlement_source=source,
+        height_initial_mm=spec.height_mm,
+        height_start_mm=h_start,
     )
+
+
+def settlement_of(declared_mm: float | None, readings_final_mm: float | None) -> tuple[float, str]:
+    """The consolidation settlement the reduction uses, and where it comes from.
+
+    The value declared in the project file when there is one (a mismatch with the readings is
+    flagged by the consolidation analysis); else the last reading of the consolidation stage (the
+    end of consolidation, ASTM D3080 and ISO 17892-10 shear the specimen from there); else none.
+    """
+    if declared_mm is not None:
+        return declared_mm, "declared"
+    if readings_final_mm is not None:
+        return readings_final_mm, "consolidation readings"
+    return 0.0, "none"

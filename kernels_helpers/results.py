@@ -193,6 +193,10 @@ class Results:
                     "sigma_nominal_kpa": s.sigma_nominal_kpa,
                     "e_initial": r.e_initial,
                     "e_start": r.e_start,
+                    "void_ratio_chain": {  # how e at the start of shearing was reached, step by step
+                        "height_initial_mm": r.height_initial_mm, "settlement_mm": r.settlement_mm,
+                        "settlement_source": r.settlement_source, "height_start_mm": r.height_start_mm,
+                        "height_of_solids_mm": r.hs_mm, "e_initial": r.e_initial, "e_start": r.e_start},
                     "seating_shift_mm": r.seating_shift_mm,
                     "n_readings": len(r.curve),
                     "included": s.included,

@@ -15,7 +15,7 @@ from .project import StageSpec
 from .readings import StageReadings, read_consolidation
 from .reduce import ReducedStage
 
-__all__ = ["StageChecks", "check_stage"]
+__all__ = ["Consolidation", "StageChecks", "check_stage", "consolidation_of"]
 
 
 @dataclass(frozen=True)
@@ -37,11 +37,31 @@ def _normal_force(spec: StageSpec, readings: StageReadings) -> np.ndarray | None
     return None
 
 
+@dataclass(frozen=True)
+class Consolidation:
+    """A stage's consolidation readings and their analysis: read first, as the reduction needs them."""
+
+    readings: StageReadings
+    result: ConsolidationResult
+
+
+def consolidation_of(spec: StageSpec) -> Consolidation | None:
+    """Read and analyse the stage's consolidation readings (None when the project gives none)."""
+    cons_readings = read_consolidation(spec)
+    if cons_readings is None:
+        return None
+    t = cons_readings.table
+    return Consolidation(cons_readings, analyse_consolidation(t["time_s"].to_numpy(), -t["y_mm"].to_numpy(),
+                                                              spec.specimen.height_mm,
+                                                              spec.specimen.consolidation_settlement_mm))
+
+
 def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, x_failure_mm: float,
-                time_to_failure: str = "largest") -> StageChecks:
+                time_to_failure: str = "largest", consolidation: Consolidation | None = None) -> StageChecks:
     """Every check of one stage; ``x_failure_mm`` is where failure was picked (for the rate check).
 
-    ``time_to_failure``: the rule of the rate check (:class:`.settings.RateSettings`).
+    ``time_to_failure``: the rule of the rate check (:class:`.settings.RateSettings`);
+    ``consolidation``: from :func:`consolidation_of` (read before the reduction).
     """
     c = reduced.curve
     in_shear = c["in_shear"].to_numpy()
@@ -51,12 +71,9 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
     flags += size_flags(spec)
     flags += phase_flags(spec, reduced.e_initial, reduced.e_start, float(np.nanmin(c["e"].to_numpy())))
     flags += normal_load_flags(spec, _normal_force(spec, readings), in_shear, readings.line)
-    cons_readings = read_consolidation(spec)
-    if cons_readings is None:
+    if consolidation is None:
         return StageChecks(tuple(flags), None, None, None)
-    t = cons_readings.table
-    result = analyse_consolidation(t["time_s"].to_numpy(), -t["y_mm"].to_numpy(), spec.specimen.height_mm,
-                                   spec.specimen.consolidation_settlement_mm)
+    cons_readings, result = consolidation.readings, consolidation.result
     relpath = spec.consolidation.relpath  # type: ignore[union-attr]
     flags += [f"consolidation stage ({relpath}): {f}" for f in result.flags]
     rows = np.flatnonzero(in_shear & (c["pass_no"].to_numpy() == 1) if "pass_no" in c else in_shear)

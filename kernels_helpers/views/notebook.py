@@ -97,6 +97,8 @@ def show_stages(results: Results) -> None:
 
 
 def show_tables(results: Results) -> None:
+    _h("Method: how the suggestions and flags were made")
+    display(HTML(tables.method_html(results)))
     _h("Picks")
     display(HTML(tables.picks_table(results)))
     residual = tables.residual_table(results)

@@ -98,6 +98,10 @@ def inputs_table(results: Results, project: Project) -> str:
     return table(("stage", "file", "bytes", "SHA-256", "column map (unit in file)"), rows)
 
 
+SETTLEMENT_SOURCE = {"declared": "project file", "consolidation readings": "end of the consolidation readings",
+                     "none": "none given (height before consolidation)"}
+
+
 def specimen_table(results: Results, project: Project) -> str:
     rows = []
     for s, spec in zip(results.stages, project.stages, strict=True):
@@ -106,13 +110,35 @@ def specimen_table(results: Results, project: Project) -> str:
         rows.append((
             esc(s.stage_id), esc(spec.test_set), esc(size), num(sp.height_mm, 2), num(sp.dry_mass_g, 1), num(sp.gs, 2),
             esc(spec.normal_load.given_as), num(r.normal_force_n, 1), num(s.sigma_nominal_kpa, 1),
-            num(r.e_initial, 3), num(sp.consolidation_settlement_mm, 3), num(r.e_start, 3), num(r.seating_shift_mm, 3),
+            num(r.e_initial, 3), num(r.settlement_mm, 3), esc(SETTLEMENT_SOURCE[r.settlement_source]),
+            num(r.height_start_mm, 3), num(r.e_start, 3), num(r.seating_shift_mm, 3),
         ))
     return table(
         ("stage", "test set", "box", "H0 (mm)", "Ms (g)", "Gs", "normal load given as", "N (N)",
-         "sigma'n nominal (kPa)", "e0", "consol. settlement (mm)", "e at start of shear", "seating slack removed (mm)"),
+         "sigma'n nominal (kPa)", "e0", "consol. settlement (mm)", "settlement from", "H at start of shear (mm)",
+         "e at start of shear", "seating slack removed (mm)"),
         rows,
     )
+
+
+def method_html(results: Results) -> str:
+    """The rules behind the suggestions and flags, with the thresholds this interpretation used."""
+    p = results.settings["picks"]
+    sources = sorted({SETTLEMENT_SOURCE[s.reduced.settlement_source] for s in results.stages})
+    items = [
+        "Void ratio: e = (H - H_s)/H_s, H_s = M_s/(G_s rho_w A_0); shearing starts from H_0 less the consolidation "
+        "settlement, taken from the project file where it is declared, else from the end of the consolidation "
+        f"readings (here: {', '.join(sources)}); a declared value that disagrees with the readings is flagged.",
+        f"Peak: the maximum of the lightly smoothed shear stress ({p['peak_rule']}); distinct when it exceeds the "
+        f"critical state by at least {p['distinct_peak_margin'] * 100:g} % (distinct_peak_margin). A record that "
+        "stops a short way past a clear peak keeps it when the curve falls after it by that margin; its critical "
+        "state is then 'not reached'.",
+        f"Critical state: the mean over the last {p['cs_window_mm']:g} mm of travel (cs_window_mm); reached when "
+        f"the mean rate of dilation is within {p['cs_rate_tolerance']:g} of zero (cs_rate_tolerance) and the "
+        f"stress ratio changes by less than {p['cs_trend_tolerance'] * 100:g} % across the window "
+        "(cs_trend_tolerance).",
+    ]
+    return "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
 
 
 def _pick_cells(s: StageResult) -> list[str]:
