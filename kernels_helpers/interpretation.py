@@ -64,18 +64,27 @@ def utc_now() -> str:
 
 @dataclass(frozen=True)
 class FitSettings:
-    """Envelope options: which c' the reported parameters use, and the confidence level."""
+    """Envelope options: which c' the reported parameters use, the confidence level, the outlier test.
+
+    ``outlier_level``: a stage is flagged as an outlier when its strength lies outside this
+    prediction interval of the envelope fitted without it (the same as its externally studentised
+    residual beyond Student's t at (1 + level)/2 with n - p - 1 degrees of freedom). Never excluded
+    automatically: the engineer decides.
+    """
 
     __pydantic_config__ = STRICT_FILE
 
     cohesion: Literal["free", "zero"] = "free"
     level: float = 0.95
+    outlier_level: float = 0.95
 
     def __post_init__(self) -> None:
         if self.cohesion not in ("free", "zero"):
             raise ValueError(f"cohesion must be 'free' or 'zero', not {self.cohesion!r}")
         if not 0.5 < self.level < 1:
             raise ValueError(f"level must be between 0.5 and 1, not {self.level!r}")
+        if not 0.5 < self.outlier_level < 1:
+            raise ValueError(f"outlier_level must be between 0.5 and 1, not {self.outlier_level!r}")
 
 
 @dataclass(frozen=True)

@@ -30,6 +30,7 @@ from .interpretation import (
     load_interpretation,
 )
 from .multistage import expand_multistage
+from .outliers import envelope_outliers
 from .passes import pass_stresses, residual_over_window, residual_strength
 from .picks import at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
 from .project import Project, StageSpec, load_project
@@ -269,6 +270,17 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
     return EnvelopeResult(group, kind, ids, sigma, tau, free, origin, reported, reason)
 
 
+def outlier_flags(stages: tuple[StageResult, ...], envelopes: Iterable[EnvelopeResult],
+                  level: float) -> tuple[StageResult, ...]:
+    """Each stage lying far from the envelope of the other stages of its group, flagged (``outliers.py``)."""
+    extra: dict[str, list[str]] = {}
+    for env in envelopes:
+        for o in envelope_outliers(env, level):
+            extra.setdefault(o.stage_id, []).append(o.flag)
+    return tuple(dataclasses.replace(s, flags=(*s.flags, *extra[s.stage_id])) if s.stage_id in extra else s
+                 for s in stages)
+
+
 def fit_envelopes(stages: Iterable[StageResult], fit: FitSettings) -> tuple[EnvelopeResult, ...]:
     """Peak and critical-state envelopes for every group of stages (and residual for reversal tests)."""
     out = []
@@ -351,6 +363,7 @@ def assemble_results(proj: Project, readings: Mapping[str, StageReadings], inter
     """
     stages = pair_flags(analysed)
     envelopes = fit_envelopes(stages, interp.settings.fit)
+    stages = outlier_flags(stages, envelopes, interp.settings.fit.outlier_level)
     return Results(
         project={"name": proj.name, **dict(proj.meta)},
         conventions={

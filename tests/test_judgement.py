@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 from synthetic import Model, readings, write_project
@@ -108,3 +109,62 @@ def test_the_record_method_states_the_rules_and_where_the_settlement_came_from(e
     text = method_html(results)
     assert "(here: end of the consolidation readings)" in text and "falls after it by that margin" in text
     assert "<td>end of the consolidation readings</td>" in specimen_table(results, results_project(example_copy))
+
+
+# --- 4. outlier stages -------------------------------------------------------------------------
+
+def _set(tmp_path: Path, scale_of_s3: float) -> Path:
+    stages = {}
+    for k, normal in enumerate((180.0, 360.0, 540.0, 720.0, 900.0), start=1):
+        m = Model(normal_n=normal, psi_max=9, seed=20 + k)
+        scale = scale_of_s3 if k == 3 else 1.0
+        stages[f"S{k}"] = (readings(m, force_scale=np.full(len(readings(m)["x"]), scale)), normal, "single-stage")
+    return write_project(tmp_path / "p", stages)
+
+
+def test_a_stage_far_from_the_envelope_of_the_others_is_flagged_never_excluded(tmp_path: Path) -> None:
+    results = interpret(_set(tmp_path, 1.35))
+    s3 = results.stage("S3")
+    flags = [f for f in s3.flags if f.startswith("outlier on the peak envelope of synthetic")]
+    assert flags, s3.flags
+    assert "externally studentised residual +" in flags[0] and "without it phi'" in flags[0]
+    assert s3.included and "S3" in results.envelope("synthetic", "peak").stage_ids  # the engineer decides
+    assert not any(f.startswith("outlier") for s in results.stages if s.stage_id != "S3" for f in s.flags)
+
+
+def test_a_clean_set_has_no_outlier(tmp_path: Path) -> None:
+    results = interpret(_set(tmp_path, 1.0))
+    assert not any(f.startswith("outlier") for s in results.stages for f in s.flags)
+
+
+@pytest.mark.parametrize("origin", [False, True])
+def test_externally_studentised_residuals_match_statsmodels(origin: bool) -> None:
+    sm = pytest.importorskip("statsmodels.api")
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    from kernels_helpers.outliers import studentised_external
+
+    rng = np.random.default_rng(3)
+    x = np.array([50.0, 100.0, 150.0, 200.0, 250.0, 300.0])
+    y = 5.0 + 0.7 * x + rng.normal(0, 4, x.size)
+    y[2] += 25.0
+    design = x[:, None] if origin else sm.add_constant(x)
+    reference = OLSInfluence(sm.OLS(y, design).fit()).resid_studentized_external
+    np.testing.assert_allclose(studentised_external(x, y, origin), reference, rtol=1e-10)
+
+
+def test_the_flag_gives_the_prediction_interval_of_the_fit_without_the_stage_as_statsmodels_does(
+        tmp_path: Path) -> None:
+    sm = pytest.importorskip("statsmodels.api")
+    from kernels_helpers.outliers import envelope_outliers
+
+    results = interpret(_set(tmp_path, 1.35))
+    env = results.envelope("synthetic", "peak")
+    (o,) = [o for o in envelope_outliers(env, 0.95) if o.stage_id == "S3"]
+    i = env.stage_ids.index("S3")
+    keep = [j for j in range(len(env.stage_ids)) if j != i]
+    x, y = np.array(env.sigma_kpa), np.array(env.tau_kpa)
+    fit = sm.OLS(y[keep], sm.add_constant(x[keep])).fit()
+    frame = fit.get_prediction(np.array([[1.0, x[i]]])).summary_frame(alpha=0.05)
+    assert (o.lower_kpa, o.predicted_kpa, o.upper_kpa) == pytest.approx(
+        (frame["obs_ci_lower"].iloc[0], frame["mean"].iloc[0], frame["obs_ci_upper"].iloc[0]), rel=1e-9)

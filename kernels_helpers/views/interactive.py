@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ShearbookError
-from ..interpretation import INTERPRETATION_FILE, FitSettings, Interpretation, check_stage_ids, load_interpretation
+from ..interpretation import INTERPRETATION_FILE, Interpretation, check_stage_ids, load_interpretation
 from ..passes import end_of_pass_window
 from ..picks import at_point
 from ..pipeline import analyse_stage, assemble_results, read_all, stage_units
@@ -186,7 +186,7 @@ class Controller:
             return self._unchanged(f"c' is already {cohesion}")
 
         def edit(i: Interpretation) -> Interpretation:
-            settings = dataclasses.replace(i.settings, fit=FitSettings(cohesion=cohesion, level=fit.level))
+            settings = dataclasses.replace(i.settings, fit=dataclasses.replace(fit, cohesion=cohesion))
             return dataclasses.replace(i, settings=settings)
 
         words = "c' = 0 (envelopes through the origin)" if cohesion == "zero" else "c' free"

@@ -137,6 +137,9 @@ def method_html(results: Results) -> str:
         f"the mean rate of dilation is within {p['cs_rate_tolerance']:g} of zero (cs_rate_tolerance) and the "
         f"stress ratio changes by less than {p['cs_trend_tolerance'] * 100:g} % across the window "
         "(cs_trend_tolerance).",
+        f"Outliers: a stage whose strength lies outside the {results.settings['fit']['outlier_level'] * 100:g} % "
+        "prediction interval of its envelope fitted without it is flagged (outlier_level), with phi' and c' with and "
+        "without it; it is never left out automatically.",
     ]
     return "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
 
