@@ -78,6 +78,10 @@ def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> lis
             f" -> {b.cs_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
             f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa" + (f"; note: {b.cs_note}" if b.cs_note else "")
         )
+    if (a.critical_state_used, a.critical_state_reason) != (b.critical_state_used, b.critical_state_reason):
+        lines.append(f"{sid}: critical state not reached, put back in the critical-state fit: "
+                     f"\"{b.critical_state_reason}\"" if b.critical_state_used
+                     else f"{sid}: critical state not reached, left out of the critical-state fit again")
     ra, rb = a.residual, b.residual
     if a.residual_source != b.residual_source or (ra and ra.tau_kpa) != (rb and rb.tau_kpa):
         lines.append(f"{sid}: residual {a.residual_source} ({_residual(ra)}) -> {b.residual_source} ({_residual(rb)})"

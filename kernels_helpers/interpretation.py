@@ -178,10 +178,17 @@ class StageDecision:
     residual: ResidualChoice = field(default_factory=ResidualChoice)
     author: str = ""  # who last changed the inclusion or the note
     time_utc: str = ""
+    # a critical state flagged "not reached" is left out of the critical-state envelope and line unless put
+    # back in, with a reason (and who and when: author, time_utc)
+    critical_state_used: bool = False
+    critical_state_reason: str = ""
 
     def __post_init__(self) -> None:
         if not self.included and not self.exclusion_reason.strip():
             raise ValueError("a stage can only be excluded with a stated reason")
+        if self.critical_state_used and not self.critical_state_reason.strip():
+            raise ValueError("a critical state that was not reached can only be put back in the fit with a stated "
+                             "reason")
 
 
 @dataclass(frozen=True)
@@ -298,6 +305,12 @@ class Interpretation:
 
     def restored(self, stage_id: str, author: str) -> Interpretation:
         return self._edit(stage_id, included=True, exclusion_reason="", author=author, time_utc=utc_now())
+
+    def with_critical_state_used(self, stage_id: str, reason: str, author: str) -> Interpretation:
+        """Put a stage's critical state back in the critical-state envelope and line although it was flagged
+        as not reached (a reason is required); ``reason`` "" takes it out again (the default rule)."""
+        return self._edit(stage_id, critical_state_used=bool(reason.strip()), critical_state_reason=reason,
+                          author=author, time_utc=utc_now())
 
     def with_note(self, stage_id: str, note: str, author: str) -> Interpretation:
         return self._edit(stage_id, note=note, author=author, time_utc=utc_now())

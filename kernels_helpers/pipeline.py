@@ -178,6 +178,8 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         reduced=reduced,
         included=decision.included,
         exclusion_reason=decision.exclusion_reason,
+        critical_state_used=decision.critical_state_used,
+        critical_state_reason=decision.critical_state_reason,
         note=decision.note,
         peak_source=decision.peak.source,
         peak_suggested=peak_suggested,
@@ -250,7 +252,8 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
         sigma = tuple(float(s.residual.sigma_kpa) for s in used)  # type: ignore[union-attr, arg-type]
         tau = tuple(float(s.residual.tau_kpa) for s in used)  # type: ignore[union-attr, arg-type]
     else:
-        used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)]
+        used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)
+                and (kind != "critical_state" or s.critical_state_left_out is None)]
         points = [s.strength(kind) for s in used]
         sigma = tuple(p.sigma_kpa for p in points)
         tau = tuple(p.tau_kpa for p in points)
@@ -264,6 +267,8 @@ def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSetting
                   "a fit with c' free needs 3 or more")
         if kind == "peak" and len(used) < len(members):
             reason += " (stages without a distinct peak and excluded stages do not count)"
+        if kind == "critical_state" and len(used) < len(members):
+            reason += " (excluded stages and critical states not reached do not count)"
         if origin is not None:
             reported = "zero"
             reason += "; the through-origin fit (c' = 0) is reported instead"

@@ -63,6 +63,17 @@ class StageResult:
     residual_source: str = "suggested"
     consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
     rate: RateCheck | None = None  # required time to failure against the actual test
+    critical_state_used: bool = False  # put back in the critical-state fit by the engineer although not reached
+    critical_state_reason: str = ""
+
+    @property
+    def critical_state_left_out(self) -> str | None:
+        """Why the critical state takes no part in the critical-state envelope and line (None: it does)."""
+        unreached = [f for f in self.cs.flags if f.startswith("critical state not reached")]
+        if not unreached or self.critical_state_used:
+            return None
+        return ("left out of the critical-state envelope and line (" + "; ".join(unreached) + "); put it back "
+                "in with a reason if the engineer judges it close enough")
 
     @property
     def sigma_nominal_kpa(self) -> float:
@@ -212,6 +223,8 @@ class Results:
                     "critical_state": {
                         "source": s.cs_source,
                         "note": s.cs_note,
+                        "left_out": s.critical_state_left_out,
+                        "used_although_not_reached": s.critical_state_reason if s.critical_state_used else None,
                         "suggested": _window(s.cs_suggested),
                         "chosen": _window(s.cs),
                     },

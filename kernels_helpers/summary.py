@@ -27,6 +27,10 @@ def summary_text(results: Results) -> str:
         if s.cs_source == "manual":
             line += f" [suggested {cs.x_from_mm:.2f}-{cs.x_to_mm:.2f} mm, tau {cs.tau_kpa:.1f} kPa]"
         out.append(line + (f" - {s.cs_note}" if s.cs_note else ""))
+        if s.critical_state_left_out:
+            out.append(f"  critical state {s.critical_state_left_out}")
+        elif s.critical_state_used:
+            out.append(f"  critical state not reached, used in the fit: {s.critical_state_reason}")
         if s.residual is not None:
             out.append(f"  residual: {s.residual.message}")
         if s.note:

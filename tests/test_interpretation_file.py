@@ -170,7 +170,10 @@ NO_WINDOW = "a manual critical-state window needs x_from_mm and x_to_mm"
                                "x_mm"),
         ({"peak": {"source": "manual", "x_mmm": 2.0}}, "stages.S1.peak.x_mmm: unknown key 'x_mmm'; did you mean x_mm?"),
         ({"colour": "red"}, "stages.S1.colour: unknown key 'colour'; known keys here: author, critical_state, "
-                            "exclusion_reason, included, note, peak, residual, time_utc"),
+                            "critical_state_reason, critical_state_used, exclusion_reason, included, note, peak, "
+                            "residual, time_utc"),
+        ({"critical_state_used": True}, "stages.S1: a critical state that was not reached can only be put back in "
+                                        "the fit with a stated reason"),
         ({"critical_state": {"source": "manual", "x_from_mm": 8.0, "x_to_mm": 6.0}},
          "stages.S1.critical_state: a critical-state window runs from the smaller to the larger displacement: "
          "x_from_mm 8.0 is more than x_to_mm 6.0; swap them"),

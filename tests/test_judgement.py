@@ -14,6 +14,7 @@ import pytest
 from synthetic import Model, readings, write_project
 
 from kernels_helpers import interpret
+from kernels_helpers.interpretation import StageDecision
 from kernels_helpers.reduce import height_of_solids_mm
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "example_project"
@@ -168,3 +169,68 @@ def test_the_flag_gives_the_prediction_interval_of_the_fit_without_the_stage_as_
     frame = fit.get_prediction(np.array([[1.0, x[i]]])).summary_frame(alpha=0.05)
     assert (o.lower_kpa, o.predicted_kpa, o.upper_kpa) == pytest.approx(
         (frame["obs_ci_lower"].iloc[0], frame["mean"].iloc[0], frame["obs_ci_upper"].iloc[0]), rel=1e-9)
+
+
+# --- 3. critical state not reached ------------------------------------------------------------
+
+def _with_one_unreached(tmp_path: Path) -> Path:
+    stages = {}
+    for k, normal in enumerate((180.0, 360.0, 540.0, 720.0), start=1):
+        travel = 4.0 if k == 2 else 10.0  # S2 stops while still dilating
+        m = Model(normal_n=normal, psi_max=9, u_peak=2.0, travel=travel, seed=40 + k)
+        stages[f"S{k}"] = (readings(m), normal, "single-stage")
+    return write_project(tmp_path / "p", stages)
+
+
+def test_a_critical_state_not_reached_is_left_out_of_the_fit_with_the_reason_beside_it(tmp_path: Path) -> None:
+    from kernels_helpers.summary import summary_text
+    from kernels_helpers.views.tables import picks_table
+
+    results = interpret(_with_one_unreached(tmp_path))
+    s2 = results.stage("S2")
+    assert s2.critical_state_left_out is not None and "still dilating" in s2.critical_state_left_out
+    assert results.envelope("synthetic", "critical_state").stage_ids == ("S1", "S3", "S4")
+    assert "S2" in results.envelope("synthetic", "peak").stage_ids  # its peak is good
+    assert all("S2" not in line.stage_ids for line in results.critical_state_lines)
+    assert "  critical state left out of the critical-state envelope and line (critical state not reached: still " \
+           "dilating" in summary_text(results)
+    assert "not reached: left out of the critical-state fit" in picks_table(results)
+    stage = next(s for s in results.to_dict()["stages"] if s["id"] == "S2")
+    assert stage["critical_state"]["left_out"].startswith("left out of the critical-state envelope and line")
+
+
+def test_the_engineer_puts_it_back_with_a_reason_shown_in_the_diff(tmp_path: Path) -> None:
+    from kernels_helpers.diff import diff_interpretations
+    from kernels_helpers.interpretation import Interpretation
+
+    root = _with_one_unreached(tmp_path)
+    before = Interpretation()
+    after = before.with_critical_state_used("S2", "the ratio is level within 1 % over the last 1.5 mm", "A. Engineer")
+    assert after.decision("S2").author == "A. Engineer" and after.decision("S2").time_utc
+    results = interpret(root, after)
+    assert results.stage("S2").critical_state_left_out is None
+    assert "S2" in results.envelope("synthetic", "critical_state").stage_ids
+    text = diff_interpretations(results_project(root), before, after).to_text()
+    assert 'S2: critical state not reached, put back in the critical-state fit: "the ratio is level within 1 %' in text
+    with pytest.raises(ValueError, match="can only be put back in the fit with a stated reason"):
+        StageDecision(critical_state_used=True)
+
+
+def test_the_workbook_puts_a_critical_state_back_and_saves_who_and_why(tmp_path: Path) -> None:
+    from kernels_helpers.interpretation import load_interpretation
+    from kernels_helpers.views.interactive import Controller
+
+    live = Controller(_with_one_unreached(tmp_path), author="A. Engineer")
+    assert live.stage("S2").critical_state_left_out is not None
+    assert live.use_critical_state("S2", "level enough for this purpose")
+    saved = load_interpretation(live.path).decision("S2")
+    assert (saved.critical_state_used, saved.critical_state_reason, saved.author) == (
+        True, "level enough for this purpose", "A. Engineer")
+    assert "S2" in live.results.envelope("synthetic", "critical_state").stage_ids
+
+
+def test_a_set_where_every_critical_state_is_reached_loses_no_stage(tmp_path: Path) -> None:
+    stages = {f"S{k}": (readings(Model(normal_n=n, seed=60 + k)), n, "single-stage")
+              for k, n in enumerate((180.0, 360.0, 720.0), start=1)}
+    results = interpret(write_project(tmp_path / "p", stages))
+    assert results.envelope("synthetic", "critical_state").stage_ids == ("S1", "S2", "S3")

@@ -174,6 +174,14 @@ class Controller:
             return self._unchanged(f"{stage_id} is already included")
         return self._edit(lambda i: i.restored(stage_id, self.author), stage_id, f"{stage_id} included again")
 
+    def use_critical_state(self, stage_id: str, reason: str) -> bool:
+        """Put a critical state flagged "not reached" back in the fit (a reason is required); "" takes it out."""
+        if self.interpretation.decision(stage_id).critical_state_reason == reason:
+            return self._unchanged(f"{stage_id}: no change")
+        words = f"critical state used in the fit: {reason}" if reason.strip() else "critical state left out again"
+        return self._edit(lambda i: i.with_critical_state_used(stage_id, reason, self.author), stage_id,
+                          f"{stage_id}: {words}")
+
     def set_note(self, stage_id: str, note: str) -> bool:
         if self.interpretation.decision(stage_id).note == note:
             return self._unchanged(f"{stage_id}: note unchanged")

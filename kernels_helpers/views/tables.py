@@ -137,6 +137,8 @@ def method_html(results: Results) -> str:
         f"the mean rate of dilation is within {p['cs_rate_tolerance']:g} of zero (cs_rate_tolerance) and the "
         f"stress ratio changes by less than {p['cs_trend_tolerance'] * 100:g} % across the window "
         "(cs_trend_tolerance).",
+        "Critical state not reached: such a stage is left out of the critical-state envelope and line unless the "
+        "engineer put it back in with a stated reason (shown beside the stage).",
         f"Outliers: a stage whose strength lies outside the {results.settings['fit']['outlier_level'] * 100:g} % "
         "prediction interval of its envelope fitted without it is flagged (outlier_level), with phi' and c' with and "
         "without it; it is never left out automatically.",
@@ -156,7 +158,9 @@ def _pick_cells(s: StageResult) -> list[str]:
     c, cs = s.cs, s.cs_suggested
     cs_src = esc(s.cs_source) + (
         f" (suggested {num(cs.x_from_mm, 2)}-{num(cs.x_to_mm, 2)} mm, {num(cs.tau_kpa, 1)} kPa)"
-        if s.cs_source == "manual" else ""
+        if s.cs_source == "manual" else "") + (
+        "; not reached: left out of the critical-state fit" if s.critical_state_left_out else "") + (
+        f"; not reached, used in the fit: {esc(s.critical_state_reason)}" if s.critical_state_used else ""
     )
     return [
         peak_src, *peak,

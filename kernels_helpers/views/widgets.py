@@ -232,7 +232,11 @@ class StageTable:
                 no_peak = s.no_distinct_peak and s.peak_source == "suggested"
                 peak = "no distinct peak" if no_peak else f"{s.peak.tau_kpa:.1f}"
                 r["peak"].value = f"{tables.esc(peak)} at {s.peak.x_mm:.2f} mm ({s.peak_source})"
-                r["cs"].value = f"{s.cs.tau_kpa:.1f} over {s.cs.x_from_mm:.2f}-{s.cs.x_to_mm:.2f} mm ({s.cs_source})"
+                r["cs"].value = (f"{s.cs.tau_kpa:.1f} over {s.cs.x_from_mm:.2f}-{s.cs.x_to_mm:.2f} mm ({s.cs_source})"
+                                 + ('<br><span class="sb-flag">not reached: left out of the critical-state fit'
+                                    "</span>" if s.critical_state_left_out else "")
+                                 + (f"<br>not reached, used: {tables.esc(s.critical_state_reason)}"
+                                    if s.critical_state_used else ""))
                 pick = self.wb.controller.residual_pick(s.stage_id)
                 r["residual"].value = "&ndash;" if pick is None else tables.esc(residual_words(s, pick))
                 items = "".join(f"<li>{tables.esc(f)}</li>" for f in s.flags)
