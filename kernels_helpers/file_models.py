@@ -80,6 +80,7 @@ class CsvLayout(_Table):
     format: Literal["text", "xlsx"] | None = None
     sheet: Text | None = None
     time_order: Literal["strict", "flag"] | None = None
+    untidy_rows: Literal["flag", "refuse"] | None = None
 
 
 class SpecimenEntry(_Table):

@@ -91,6 +91,8 @@ class CsvFormat:
     format: Literal["text", "xlsx"] = "text"  # "xlsx" for a workbook (openpyxl); default by the file's suffix
     sheet: str = ""  # xlsx only: the sheet to read ("" = the first)
     time_order: Literal["strict", "flag"] = "strict"  # "flag": non-increasing times raise a flag, not an error
+    # "flag": blank or non-numeric rows and repeated times are left out with a flag; "refuse": they are errors
+    untidy_rows: Literal["flag", "refuse"] = "flag"
 
 
 @dataclass(frozen=True)
@@ -344,6 +346,7 @@ def _csv(t: _Fields, default_format: str = "text") -> CsvFormat:
         format=fmt,  # type: ignore[arg-type]
         sheet=t.text("sheet", ""),
         time_order=order,  # type: ignore[arg-type]
+        untidy_rows=t.text("untidy_rows", "flag"),  # type: ignore[arg-type]  # checked by the file model
     )
 
 

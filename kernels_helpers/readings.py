@@ -39,6 +39,7 @@ CANONICAL_COLUMNS = {
 MIN_SHEAR_ROWS = 10
 MIN_CONSOLIDATION_ROWS = 8
 _BLANK_LINE = re.compile(rb"\n[ \t]*\r?\n|\n[ \t]+\Z")
+_JUNK = re.compile(rb"[\x00-\x08\x0e-\x19\x1b-\x1f]")  # control bytes no text file holds (tab, CR, LF, FF, ^Z pass)
 
 
 @dataclass(frozen=True)
@@ -199,20 +200,73 @@ def _check_columns(path: Path, columns: Mapping[str, ColumnSpec], header: list[s
         )
 
 
+def _binary_junk(path: Path, data: bytes) -> None:
+    """A text readings file holds no NUL or other control bytes (a damaged copy, or not a text file at all)."""
+    m = _JUNK.search(data)
+    if m:
+        line = data.count(b"\n", 0, m.start()) + 1
+        raise ReadingsError(f"{path}, line {line}: byte {m.group()!r} is not text: the file is damaged or not a "
+                            "delimited text file. Ask the laboratory for a clean copy; Shearbook never edits raw "
+                            "readings.")
+
+
+def _unique_header(path: Path, header: list[str], header_line: int) -> None:
+    """Two columns of one name would leave the column map ambiguous (pandas renames the second in silence)."""
+    seen: dict[str, int] = {}
+    for i, name in enumerate(header):
+        key = re.sub(r"\.\d+$", "", name) if name not in seen and re.sub(r"\.\d+$", "", name) in seen else name
+        if key in seen:
+            raise ReadingsError(f"{path}, line {header_line}: columns {seen[key] + 1} and {i + 1} have the same name "
+                                f"{key!r}; the column map cannot tell them apart. Ask the laboratory which is which "
+                                "and map a renamed copy of the file.")
+        seen[key] = i
+
+
+def _tidy(path: Path, fmt: CsvFormat, frame: pd.DataFrame, columns: Mapping[str, ColumnSpec], lines: list[int]
+          ) -> tuple[dict[str, np.ndarray], list[int], tuple[str, ...]]:
+    """Numbers of every mapped column; rows with a blank or non-numeric cell left out with a note ("flag",
+    the default) or refused with the line and column ("refuse", csv.untidy_rows)."""
+    def lenient(column: str) -> np.ndarray:
+        raw = frame[column].astype(str).str.strip()
+        if fmt.decimal != ".":
+            raw = raw.str.replace(fmt.decimal, ".", regex=False)
+        return pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+
+    values = {q: lenient(c.column) for q, c in columns.items()}
+    bad = np.zeros(len(frame), dtype=bool)
+    for v in values.values():
+        bad |= ~np.isfinite(v)
+    if not bad.any():
+        return values, lines, ()
+    if fmt.untidy_rows == "refuse" or bad.all():
+        for c in columns.values():  # raises with the first line and column at fault
+            _numeric(path, fmt, frame, c.column, lines)
+    rows = np.flatnonzero(bad)
+    at = [lines[i] if lines else i + 1 for i in rows[:3]]
+    note = (f"untidy readings file: {rows.size} row(s) with a blank or non-numeric value in a mapped column left out "
+            f"of the analysis, first at line(s) {', '.join(map(str, at))} of {path.name}; the raw file is unchanged "
+            "(csv.untidy_rows = \"refuse\" stops on them instead)")
+    keep = ~bad
+    return {q: v[keep] for q, v in values.items()}, [n for n, k in zip(lines, keep, strict=True) if k], (note,)
+
+
 def _values(path: Path, fmt: CsvFormat, data: bytes, columns: Mapping[str, ColumnSpec]
-            ) -> tuple[dict[str, np.ndarray], int, np.ndarray | None]:
-    """Raw numbers of every mapped column, the first data line and the line of each row."""
+            ) -> tuple[dict[str, np.ndarray], int, np.ndarray | None, tuple[str, ...]]:
+    """Raw numbers of every mapped column, the first data line, the line of each row, and notes on left-out rows."""
     if fmt.format == "xlsx":
         frame, header_line, lines = _xlsx_frame(path, fmt, data)
         _check_columns(path, columns, list(frame.columns), header_line)
-        values = {q: _numeric(path, fmt, frame, c.column, lines) for q, c in columns.items()}
-        return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64)
+        _unique_header(path, list(frame.columns), header_line)
+        values, lines, notes = _tidy(path, fmt, frame, columns, lines)
+        return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64), notes
+    _binary_junk(path, data)
     fast = _header_line_fast(data, fmt.header_row)
     if fast is not None:  # fast path: C parser, numeric columns, consecutive lines
         try:
             header = list(pd.read_csv(io.BytesIO(data), sep=fmt.delimiter, skiprows=fmt.header_row, nrows=0,
                                       skipinitialspace=True, encoding=fmt.encoding).columns)
             _check_columns(path, columns, header, fast[0])
+            _unique_header(path, header, fast[0])
             wanted = list(dict.fromkeys(c.column for c in columns.values()))
             frame = _read_csv(path, fmt, data, wanted, as_text=False)
         except UnicodeDecodeError:
@@ -225,15 +279,19 @@ def _values(path: Path, fmt: CsvFormat, data: bytes, columns: Mapping[str, Colum
             if all(v.dtype.kind in "fiu" for v in values.values()):
                 floats = {q: v.astype(float, copy=False) for q, v in values.items()}
                 if all(np.isfinite(v).all() for v in floats.values()):
-                    return floats, fast[0] + 1, None
+                    return floats, fast[0] + 1, None, ()
     text = _decode(path, fmt, data)  # slow path: locate the line at fault
     header_line, lines = _line_numbers(text, fmt.header_row)
     if not text.strip():
         raise ReadingsError(f"{path}: the file is empty. Ask the laboratory for the readings, or remove this stage.")
     frame = _read_csv(path, fmt, text, None, as_text=True)
     _check_columns(path, columns, list(frame.columns), header_line)
-    values = {q: _numeric(path, fmt, frame, c.column, lines) for q, c in columns.items()}
-    return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64)
+    _unique_header(path, list(frame.columns), header_line)
+    blank = lines[-1] - lines[0] + 1 - len(lines) if lines else 0  # pandas skips blank lines: count them here
+    values, lines, notes = _tidy(path, fmt, frame, columns, lines)
+    if blank > 0:
+        notes += (f"untidy readings file: {blank} blank line(s) among the readings of {path.name} skipped",)
+    return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64), notes
 
 
 def _time_order(path: Path, fmt: CsvFormat, column: str, time_s: np.ndarray, line) -> tuple[str, ...]:
@@ -267,7 +325,7 @@ def read_table(path: Path, relpath: str, label: str, fmt: CsvFormat, columns: Ma
     data = path.read_bytes()
     if not data.strip():
         raise ReadingsError(f"{path}: the file is empty. Ask the laboratory for the readings, or remove this stage.")
-    raw, first, lines = _values(path, fmt, data, columns)
+    raw, first, lines, untidy = _values(path, fmt, data, columns)
     n = len(next(iter(raw.values())))
     if n == 0:
         raise ReadingsError(f"{path}: the header (line {first - 1}) has no data rows below it. Check csv.header_row "
@@ -285,8 +343,27 @@ def read_table(path: Path, relpath: str, label: str, fmt: CsvFormat, columns: Ma
         out[CANONICAL_COLUMNS[quantity]] = values
     readings = StageReadings(label, pd.DataFrame(out, copy=False), hashlib.sha256(data).hexdigest(), len(data), relpath,
                              first, lines)
-    notes = _time_order(path, fmt, columns["time"].column, out["time_s"], readings.line)
+    readings, repeats = _repeated_times(path, fmt, readings)
+    notes = (*untidy, *repeats, *_time_order(path, fmt, columns["time"].column, readings.table["time_s"].to_numpy(),
+                                             readings.line))
     return readings if not notes else StageReadings(**{**readings.__dict__, "notes": notes})
+
+
+def _repeated_times(path: Path, fmt: CsvFormat, readings: StageReadings) -> tuple[StageReadings, tuple[str, ...]]:
+    """Readings whose time repeats the previous one (a logger that splits or restarts its file) are left out with
+    a note, unless csv.untidy_rows = "refuse" (then csv.time_order decides, as for times that go back)."""
+    t = readings.table["time_s"].to_numpy()
+    repeat = np.flatnonzero(np.diff(t) == 0) + 1
+    if fmt.untidy_rows == "refuse" or not repeat.size:
+        return readings, ()
+    keep = np.ones(len(t), dtype=bool)
+    keep[repeat] = False
+    at = ", ".join(str(readings.line(int(i))) for i in repeat[:3])
+    lines = readings.lines if readings.lines is not None else np.arange(len(t)) + readings.first_data_line
+    kept = StageReadings(**{**readings.__dict__, "table": readings.table[keep].reset_index(drop=True),
+                            "lines": np.asarray(lines)[keep]})
+    return kept, (f"untidy readings file: {repeat.size} reading(s) repeating the previous time left out of the "
+                  f"analysis, first at line(s) {at} of {path.name}; the raw file is unchanged",)
 
 
 def read_stage(stage: StageSpec) -> StageReadings:

@@ -53,11 +53,6 @@ READINGS_CASES = [  # file, message after "<path>", same message from import (No
      "'t (s)', 'x (mm)', 'Shear force (N)'. Correct the column map",
      ": no column for vertical_displacement among the headers 't (s)', 'x (mm)', 'Shear force (N)'. Say it with "
      "--column vertical_displacement=\"HEADER\""),
-    ("non_numeric.csv", ", line 11, column 'Shear force (N)': 'broken' is not a number (1 such value(s) in this "
-     "column). Fix the file's copy or the column map; Shearbook never edits raw readings.", None),
-    ("nan_rows.csv", ", line 9, column 't (s)': 'NaN' is not a number (1 such value(s) in this column).", None),
-    ("duplicate_time.csv", ", line 13, column 't (s)': time repeats the previous reading (100 s then 100 s; 1 "
-     "reading(s) out of order). Ask the laboratory for a corrected file, or set csv.time_order = \"flag\"", None),
     ("decreasing_time.csv", ", line 16, column 't (s)': time goes back from the previous reading (130 s then 50 s; 1 "
      "reading(s) out of order).", None),
 ]
@@ -76,6 +71,55 @@ def test_bad_readings_file(tmp_path: Path, name: str, message: str, imported: st
     assert not (tmp_path / "imported").exists()
     assert hashlib.sha256((BAD / name).read_bytes()).hexdigest() == before  # nothing written to a raw file
     assert hashlib.sha256((lab / "S1.csv").read_bytes()).hexdigest() == before
+
+
+UNTIDY_CASES = [  # file, what csv.untidy_rows = "refuse" says, the flag of the default ("flag")
+    ("non_numeric.csv", ", line 11, column 'Shear force (N)': 'broken' is not a number (1 such value(s) in this "
+     "column). Fix the file's copy or the column map; Shearbook never edits raw readings.",
+     "untidy readings file: 1 row(s) with a blank or non-numeric value in a mapped column left out of the analysis, "
+     "first at line(s) 11 of S1.csv; the raw file is unchanged"),
+    ("nan_rows.csv", ", line 9, column 't (s)': 'NaN' is not a number (1 such value(s) in this column).",
+     "untidy readings file: 1 row(s) with a blank or non-numeric value in a mapped column left out of the analysis, "
+     "first at line(s) 9 of S1.csv"),
+    ("duplicate_time.csv", ", line 13, column 't (s)': time repeats the previous reading (100 s then 100 s; 1 "
+     "reading(s) out of order). Ask the laboratory for a corrected file, or set csv.time_order = \"flag\"",
+     "untidy readings file: 1 reading(s) repeating the previous time left out of the analysis, first at line(s) 13 "
+     "of S1.csv; the raw file is unchanged"),
+]
+
+
+@pytest.mark.parametrize(("name", "refused", "flag"), UNTIDY_CASES, ids=[c[0] for c in UNTIDY_CASES])
+def test_untidy_logger_rows_are_left_out_with_a_flag_or_refused_by_setting(tmp_path: Path, name: str, refused: str,
+                                                                          flag: str) -> None:
+    root = _project(tmp_path, name)
+    stage = load_project(root).stage("S1")
+    readings = read_stage(stage)
+    assert any(note.startswith(flag) for note in readings.notes), readings.notes
+    data_rows = [ln for ln in (BAD / name).read_text(encoding="utf-8").splitlines()[1:] if ln.strip()]
+    assert len(readings.table) == len(data_rows) - 1  # the one untidy row is left out, every other row kept
+    assert (readings.table["time_s"].diff().dropna() > 0).all()
+    toml = root / "project.toml"
+    refuse = toml.read_text(encoding="utf-8").replace("[stage.columns]", '[stage.csv]\nuntidy_rows = "refuse"\n'
+                                                                         "[stage.columns]")
+    toml.write_text(refuse, encoding="utf-8")
+    path = (root / "readings" / "S1.csv").resolve()
+    with pytest.raises(ShearbookError, match=re.escape(f"{path}{refused}")):
+        read_stage(load_project(root).stage("S1"))
+
+
+@pytest.mark.parametrize(("content", "message"), [
+    (b"t (s),x (mm),y (mm),Shear force (N)\n0,0,0,0\n1,0.1,0\x00,5\n", ", line 3: byte b'\\x00' is not text"),
+    (b"t (s),x (mm),y (mm),Shear force (N),x (mm)\n" + b"".join(b"%d,%.2f,0,%d,1\n" % (i, 0.1 * i, 10 * i)
+                                                              for i in range(40)),
+     ", line 1: columns 2 and 5 have the same name 'x (mm)'; the column map cannot tell them apart."),
+])
+def test_junk_bytes_and_a_repeated_column_name_are_errors_naming_the_line(tmp_path: Path, content: bytes,
+                                                                          message: str) -> None:
+    root = _project(tmp_path)
+    (root / "readings" / "S1.csv").write_bytes(content)
+    path = (root / "readings" / "S1.csv").resolve()
+    with pytest.raises(ShearbookError, match=re.escape(f"{path}{message}")):
+        read_stage(load_project(root).stage("S1"))
 
 
 PROBLEM = "1 problem(s); fix them and try again:\n  "

@@ -97,7 +97,10 @@ def test_check_names_a_damaged_readings_file_and_a_misspelt_stage_id(example_cop
     (example_copy / "interpretation.json").write_text(json.dumps(data), encoding="utf-8")
     readings = example_copy / "readings" / "BH03-D3.csv"
     lines = readings.read_bytes().split(b"\n")
-    lines[40] = lines[40].replace(b".", b"..", 1)  # a typo in one reading
+    lines[40] = lines[40].replace(b".", b"..", 1)  # a typo in one reading: refused, as this laboratory asks
+    toml = example_copy / "project.toml"
+    toml.write_text(toml.read_text(encoding="utf-8").replace("header_row = 3", 'header_row = 3\nuntidy_rows = "refuse"',
+                                                              1), encoding="utf-8")
     readings.write_bytes(b"\n".join(lines))
     assert main(["check", str(example_copy)]) == 2
     err = capsys.readouterr().err.splitlines()

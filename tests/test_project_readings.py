@@ -232,7 +232,8 @@ def test_non_numeric_value_names_the_real_line(
         body.append(row)
         if i in blank_after:
             body.append("")
-    toml = TOML.replace("[stage.columns]", f"[stage.csv]\nheader_row = {preamble}\n[stage.columns]")
+    toml = TOML.replace("[stage.columns]", f'[stage.csv]\nheader_row = {preamble}\nuntidy_rows = "refuse"\n'
+                                           "[stage.columns]")
     _write(tmp_path, toml=toml, lines=body)
     path = tmp_path.resolve() / "readings" / "S1.csv"
     # the 1-based line a person sees in an editor, counted from the file itself
