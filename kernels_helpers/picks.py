@@ -110,7 +110,10 @@ def over_window(reduced: ReducedStage, x_from_mm: float, x_to_mm: float, setting
     mean_tau = float(np.mean(tau))
     # The trend is judged on tau/sigma: on the corrected area both stresses rise as the contact
     # area shrinks even when the soil's strength is steady.
-    slope = float(np.polyfit(xs, ratio, 1)[0]) if np.ptp(xs) > 0 else 0.0
+    # least-squares slope in closed form: no rank warning when a stuck channel repeats one displacement
+    dx = xs - xs.mean()
+    sxx = float(dx @ dx)
+    slope = float(dx @ (ratio - ratio.mean())) / sxx if sxx > 0 else 0.0
     trend = slope * (hi - lo) / float(np.mean(ratio))
     rate = float(np.mean(sel["dydx"].to_numpy()))
     flags: list[str] = []

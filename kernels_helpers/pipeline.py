@@ -198,6 +198,7 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         residual_source=decision.residual.source,
         consolidation=checks.consolidation,
         rate=checks.rate,
+        unreliable=checks.unreliable,
     )
 
 

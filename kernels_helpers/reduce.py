@@ -75,8 +75,12 @@ def seating_shift_mm(x_mm: np.ndarray, force_n: np.ndarray, fraction: float) -> 
     start = int(np.argmax(force_n >= fraction * fmax))
     upper = int(np.argmax(force_n >= 5 * fraction * fmax))
     x0 = float(x_mm[0])
-    if upper - start >= 2:
-        slope, intercept = np.polyfit(x_mm[start : upper + 1], force_n[start : upper + 1], 1)
+    xs, fs = x_mm[start : upper + 1], force_n[start : upper + 1]
+    dx = xs - xs.mean()
+    sxx = float(dx @ dx)
+    if upper - start >= 2 and sxx > 0:  # least squares in closed form: a stuck displacement gives no line, no warning
+        slope = float(dx @ (fs - fs.mean())) / sxx
+        intercept = float(fs.mean()) - slope * float(xs.mean())
         shift = -intercept / slope if slope > 0 else float(x_mm[start])
     else:
         shift = float(x_mm[start])

@@ -63,6 +63,7 @@ class StageResult:
     residual_source: str = "suggested"
     consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
     rate: RateCheck | None = None  # required time to failure against the actual test
+    unreliable: tuple[str, ...] = ()  # results that depend on a faulty transducer channel (checks.transducer_flags)
     critical_state_used: bool = False  # put back in the critical-state fit by the engineer although not reached
     critical_state_reason: str = ""
 
@@ -229,6 +230,7 @@ class Results:
                         "chosen": _window(s.cs),
                     },
                     "flags": list(s.flags),
+                    "unreliable": list(s.unreliable),
                     "passes": [{**dataclasses.asdict(p), "ratio": p.ratio} for p in s.passes],
                     "residual": None if s.residual is None else {
                         **dataclasses.asdict(s.residual), "source": s.residual_source,

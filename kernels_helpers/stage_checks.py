@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .checks import normal_load_flags, phase_flags, size_flags, spike_flags
+from .checks import normal_load_flags, phase_flags, size_flags, spike_flags, transducer_flags
 from .consolidation import ConsolidationResult, RateCheck, analyse_consolidation, rate_check
 from .project import StageSpec
 from .readings import StageReadings, read_consolidation
@@ -26,6 +26,7 @@ class StageChecks:
     consolidation: ConsolidationResult | None
     consolidation_sha256: str | None
     rate: RateCheck | None
+    unreliable: tuple[str, ...] = ()  # results that depend on a faulty channel (transducer_flags)
 
 
 def _normal_force(spec: StageSpec, readings: StageReadings) -> np.ndarray | None:
@@ -71,8 +72,15 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
     flags += size_flags(spec)
     flags += phase_flags(spec, reduced.e_initial, reduced.e_start, float(np.nanmin(c["e"].to_numpy())))
     flags += normal_load_flags(spec, _normal_force(spec, readings), in_shear, readings.line)
+    first = int(np.argmax(in_shear)) if in_shear.any() else 0
+    shear = c.iloc[first:]
+    faults, unreliable = transducer_flags(
+        {"horizontal displacement": shear["x_mm"].to_numpy(), "vertical displacement": shear["y_mm"].to_numpy(),
+         "shear force": shear["tau_kpa"].to_numpy() * shear["area_mm2"].to_numpy()},
+        lambda row: readings.line(first + row), float(np.ptp(shear["x_mm"].to_numpy())) if len(shear) else 0.0)
+    flags += faults
     if consolidation is None:
-        return StageChecks(tuple(flags), None, None, None)
+        return StageChecks(tuple(flags), None, None, None, tuple(unreliable))
     cons_readings, result = consolidation.readings, consolidation.result
     relpath = spec.consolidation.relpath  # type: ignore[union-attr]
     flags += [f"consolidation stage ({relpath}): {f}" for f in result.flags]
@@ -87,4 +95,4 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
         if rate is None and time_to_failure != "largest":
             flags.append(f"no drained-rate check: the rule t_f = {time_to_failure} chosen in the settings needs a "
                          f"time the consolidation stage ({relpath}) did not give")
-    return StageChecks(tuple(flags), result, cons_readings.sha256, rate)
+    return StageChecks(tuple(flags), result, cons_readings.sha256, rate, tuple(unreliable))

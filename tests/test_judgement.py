@@ -234,3 +234,47 @@ def test_a_set_where_every_critical_state_is_reached_loses_no_stage(tmp_path: Pa
               for k, n in enumerate((180.0, 360.0, 720.0), start=1)}
     results = interpret(write_project(tmp_path / "p", stages))
     assert results.envelope("synthetic", "critical_state").stage_ids == ("S1", "S2", "S3")
+
+
+# --- 5. transducer faults ----------------------------------------------------------------------
+
+def _faulty(tmp_path: Path, change) -> object:
+    m = Model(normal_n=360, seed=70)
+    cols = readings(m)
+    change(cols)
+    write_project(tmp_path / "p", {"S1": (cols, m.normal_n, "single-stage")})
+    return interpret(tmp_path / "p").stage("S1")
+
+
+def test_a_stuck_vertical_gauge_is_flagged_and_what_depends_on_it_marked_unreliable(tmp_path: Path) -> None:
+    s = _faulty(tmp_path, lambda c: c.__setitem__("y", np.full_like(c["y"], 0.125)))
+    (flag,) = [f for f in s.flags if f.startswith("transducer fault: ")]
+    assert flag.startswith("transducer fault: the vertical displacement channel is stuck: 1 value(s) over ")
+    assert "unreliable: void ratio, rate of dilation" in flag
+    assert "void ratio" in s.unreliable and "stress-dilatancy aids (Taylor, Bolton)" in s.unreliable
+
+
+def test_a_vertical_gauge_that_jumps_and_stays_is_flagged_with_its_lines(tmp_path: Path) -> None:
+    def jump(c: dict) -> None:
+        half = len(c["y"]) // 2
+        c["y"][half:] += 0.4  # a gauge knocked during the test: the reading steps and stays
+    s = _faulty(tmp_path, jump)
+    assert any(f.startswith("transducer fault: the vertical displacement channel jumps by +0.4")
+               and "and stays there (no spike, no stick-slip)" in f for f in s.flags), s.flags
+
+
+def test_a_horizontal_channel_stuck_part_way_is_flagged_or_refused_in_words(tmp_path: Path) -> None:
+    from kernels_helpers.errors import ShearbookError
+
+    def stuck(c: dict) -> None:
+        n = len(c["x"])
+        c["x"][n // 3:] = c["x"][n // 3]  # the displacement transducer stops reading a third of the way
+    try:
+        s = _faulty(tmp_path, stuck)
+    except ShearbookError:
+        return  # refused in words is acceptable: no numbers from a stuck displacement
+    assert any(f.startswith("transducer fault:") for f in s.flags), s.flags
+
+
+def test_clean_channels_raise_no_transducer_flag() -> None:
+    assert not any(f.startswith("transducer fault") for s in interpret(EXAMPLE).stages for f in s.flags)

@@ -139,6 +139,10 @@ def method_html(results: Results) -> str:
         "(cs_trend_tolerance).",
         "Critical state not reached: such a stage is left out of the critical-state envelope and line unless the "
         "engineer put it back in with a stated reason (shown beside the stage).",
+        "Transducers: a stuck, jumping or motionless channel is flagged with its lines; what depends on it "
+        "(e.g. the void ratio and the rate of dilation for the vertical gauge) is marked unreliable.",
+        "Untidy readings: blank or non-numeric rows and repeated times are left out with a flag naming the first "
+        "lines (csv.untidy_rows = \"refuse\" refuses them).",
         f"Outliers: a stage whose strength lies outside the {results.settings['fit']['outlier_level'] * 100:g} % "
         "prediction interval of its envelope fitted without it is flagged (outlier_level), with phi' and c' with and "
         "without it; it is never left out automatically.",
