@@ -26,6 +26,7 @@ import numpy as np
 from scipy.ndimage import median_filter
 
 from .project import StageSpec
+from .settings import PickSettings
 
 __all__ = ["hampel_spikes", "normal_load_flags", "phase_flags", "size_flags", "spike_flags"]
 
@@ -146,18 +147,18 @@ DEPENDS_ON = {
                                 "drained-rate check"),
     "shear force": ("shear stress", "every pick and envelope of the stage"),
 }
-STUCK_MAX_VALUES = 2  # a channel taking one value, or one quantisation step, through the shearing is stuck
-STILL_VERTICAL_MM = 0.002  # a vertical gauge moving less than this over the shearing does not move
-JUMP_ROBUST_SD = 25.0  # a step this many robust s.d. of the steps, kept afterwards, is a jump
-JUMP_RANGE_FRACTION = 0.05  # ... and larger than this fraction of the channel's range
 
 
-def transducer_flags(channels: dict[str, np.ndarray], line_of, travel_mm: float) -> tuple[list[str], list[str]]:
+def transducer_flags(channels: dict[str, np.ndarray], line_of, travel_mm: float,
+                     settings: PickSettings | None = None) -> tuple[list[str], list[str]]:
     """Flags for channels that are stuck, that jump by a step which stays, or (vertical) do not move,
-    over the shearing readings; and what the faults make unreliable (common practice, thresholds above).
+    over the shearing readings; and what the faults make unreliable (common practice; thresholds in
+    :class:`.settings.PickSettings`: ``stuck_max_values``, ``still_vertical_mm``, ``jump_robust_sd``,
+    ``jump_range_fraction``).
 
     ``channels``: quantity name -> readings from the start of shear; ``line_of``: row -> file line.
     """
+    p = settings or PickSettings()
     flags: list[str] = []
     unreliable: list[str] = []
     for name, v in channels.items():
@@ -166,16 +167,16 @@ def transducer_flags(channels: dict[str, np.ndarray], line_of, travel_mm: float)
             continue
         fault = None
         span = f"lines {line_of(0)}-{line_of(v.size - 1)}"
-        if np.unique(v).size <= STUCK_MAX_VALUES:
+        if np.unique(v).size <= p.stuck_max_values:
             fault = f"the {name} channel is stuck: {np.unique(v).size} value(s) over {v.size} readings ({span})"
-        elif name == "vertical displacement" and np.ptp(v) < STILL_VERTICAL_MM and travel_mm > 1.0:
+        elif name == "vertical displacement" and np.ptp(v) < p.still_vertical_mm and travel_mm > 1.0:
             fault = (f"the vertical gauge does not move: {np.ptp(v) * 1000:.1f} um over {travel_mm:.1f} mm of "
                      f"shearing ({span})")
         elif name == "horizontal displacement" and (run := _final_run(v)) >= max(20, v.size // 5):
             fault = (f"the horizontal displacement stops advancing: the last {run} readings (lines "
                      f"{line_of(v.size - run)}-{line_of(v.size - 1)}) all read {v[-1]:.4g} mm while the test goes on")
         if fault is None and name != "shear force":  # a force drop is what stick-slip looks like
-            fault = _jump(name, v, line_of)
+            fault = _jump(name, v, line_of, p)
         if fault:
             flags.append(f"transducer fault: {fault}; unreliable: {', '.join(DEPENDS_ON[name])}")
             unreliable += [u for u in DEPENDS_ON[name] if u not in unreliable]
@@ -188,11 +189,11 @@ def _final_run(v: np.ndarray) -> int:
     return int(v.size - (differs[-1] + 1)) if differs.size else int(v.size)
 
 
-def _jump(name: str, v: np.ndarray, line_of) -> str | None:
+def _jump(name: str, v: np.ndarray, line_of, p: PickSettings) -> str | None:
     d = np.diff(v)
     scale = 1.4826 * float(np.median(np.abs(d - np.median(d)))) + 1e-12
-    big = np.flatnonzero((np.abs(d - np.median(d)) > JUMP_ROBUST_SD * scale)
-                         & (np.abs(d) > JUMP_RANGE_FRACTION * max(float(np.ptp(v)), 1e-12)))
+    big = np.flatnonzero((np.abs(d - np.median(d)) > p.jump_robust_sd * scale)
+                         & (np.abs(d) > p.jump_range_fraction * max(float(np.ptp(v)), 1e-12)))
     for i in big:
         before, after = v[max(0, i - 4): i + 1], v[i + 1: i + 6]
         if after.size and abs(float(np.mean(after) - np.mean(before))) > 0.8 * abs(float(d[i])):

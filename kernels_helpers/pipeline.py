@@ -141,7 +141,7 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         flags.extend(peak_flags(reduced, peak, settings.picks))
     # specimen, spike, normal-load, consolidation and drained-rate checks (stage_checks.py)
     checks = check_stage(spec, readings, reduced, peak.x_mm if no_peak is None else cs.x_from_mm,
-                         settings.rate.time_to_failure, consolidation)
+                         settings.rate.time_to_failure, consolidation, settings.picks)
     flags.extend(checks.flags)
     passes, residual, residual_suggested = (), None, None
     if spec.test_type == "reversal":

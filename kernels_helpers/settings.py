@@ -75,10 +75,16 @@ class PickSettings:
     peak_dilation_offset_mm: float = 0.5  # flag when the peak is further than this from the maximum dilation rate
     stick_slip_fraction: float = 0.02  # flag when the readings scatter about the smoothed peak by more than this
     residual_tolerance: float = 0.03  # successive forward passes agree within this fraction
+    # transducer faults over the shearing (checks.transducer_flags): a channel of at most this many values is stuck
+    stuck_max_values: int = 2
+    still_vertical_mm: float = 0.002  # a vertical gauge moving less than this over > 1 mm of travel does not move
+    jump_robust_sd: float = 25.0  # a displacement step above this many robust s.d. of the steps ...
+    jump_range_fraction: float = 0.05  # ... and this fraction of the channel's range, kept afterwards, is a jump
 
     def __post_init__(self) -> None:
         for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin",
-                     "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance"):
+                     "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance", "stuck_max_values",
+                     "still_vertical_mm", "jump_robust_sd", "jump_range_fraction"):
             if not getattr(self, name) > 0:
                 raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
         if self.peak_rule not in ("tau", "ratio"):

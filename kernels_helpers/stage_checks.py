@@ -14,6 +14,7 @@ from .consolidation import ConsolidationResult, RateCheck, analyse_consolidation
 from .project import StageSpec
 from .readings import StageReadings, read_consolidation
 from .reduce import ReducedStage
+from .settings import PickSettings
 
 __all__ = ["Consolidation", "StageChecks", "check_stage", "consolidation_of"]
 
@@ -58,7 +59,8 @@ def consolidation_of(spec: StageSpec) -> Consolidation | None:
 
 
 def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, x_failure_mm: float,
-                time_to_failure: str = "largest", consolidation: Consolidation | None = None) -> StageChecks:
+                time_to_failure: str = "largest", consolidation: Consolidation | None = None,
+                picks: PickSettings | None = None) -> StageChecks:
     """Every check of one stage; ``x_failure_mm`` is where failure was picked (for the rate check).
 
     ``time_to_failure``: the rule of the rate check (:class:`.settings.RateSettings`);
@@ -77,7 +79,8 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
     faults, unreliable = transducer_flags(
         {"horizontal displacement": shear["x_mm"].to_numpy(), "vertical displacement": shear["y_mm"].to_numpy(),
          "shear force": shear["tau_kpa"].to_numpy() * shear["area_mm2"].to_numpy()},
-        lambda row: readings.line(first + row), float(np.ptp(shear["x_mm"].to_numpy())) if len(shear) else 0.0)
+        lambda row: readings.line(first + row), float(np.ptp(shear["x_mm"].to_numpy())) if len(shear) else 0.0,
+        picks)
     flags += faults
     if consolidation is None:
         return StageChecks(tuple(flags), None, None, None, tuple(unreliable))
