@@ -79,6 +79,16 @@ def test_a_raw_file_that_no_longer_reads_is_named_and_the_rerun_error_given(reco
     assert f"  re-run failed: {v.rerun_error}" in text
 
 
+def test_an_untidy_row_added_to_a_raw_file_is_named_and_its_flag_shows_as_moved(recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    raw = root / "readings" / "BH03-D1.csv"
+    raw.write_text(raw.read_text(encoding="utf-8") + "# edited\n", encoding="utf-8")
+    v = verify_record(root / "records" / "r1.html", root)
+    assert not v.ok and v.rerun_error is None
+    assert v.changed_files[0].startswith("readings/BH03-D1.csv (SHA-256 was ")
+    assert any(m.startswith("stages[0].flags") for m in v.mismatches), v.mismatches[:5]
+
+
 def test_across_versions_numbers_compare_within_the_stated_tolerance(recorded: Path, tmp_path: Path) -> None:
     root = _copy(recorded, tmp_path)
     rec = root / "records" / "r1.html"
