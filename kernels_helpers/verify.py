@@ -133,11 +133,17 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
     exact = versions_then == (now["provenance"]["versions"], now["provenance"]["python"])
     a = {k: v for k, v in _leaves(recorded) if not k.startswith(SKIP)}
     b = {k: v for k, v in _leaves(now) if not k.startswith(SKIP)}
+    # a newer Shearbook may give results the record's version did not have: across versions those are not
+    # compared (and said so); a value the record holds and the re-run lacks is always a mismatch
+    added = [] if exact else sorted(set(b) - set(a))
     mismatches = [f"{k}: {a.get(k)!r} -> {b.get(k)!r}" for k in sorted(set(a) | set(b))
-                  if k not in a or k not in b or not _same(a[k], b[k], exact)]
-    notes = () if exact else (
+                  if k not in added and (k not in a or k not in b or not _same(a[k], b[k], exact))]
+    notes: tuple[str, ...] = () if exact else (
         f"software versions differ: recorded {versions_then[0]}, now {now['provenance']['versions']}",
     )
+    if added:
+        notes += (f"{len(added)} value(s) this version gives and the record's did not, not compared: "
+                  + ", ".join(added[:5]) + (" ..." if len(added) > 5 else ""),)
     return Verification(rec_path, root, exact, changed, tuple(mismatches), len(a), notes)
 
 

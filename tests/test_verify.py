@@ -106,6 +106,25 @@ def test_across_versions_numbers_compare_within_the_stated_tolerance(recorded: P
     assert not v.ok and any(m.startswith("envelopes[0].free.phi_deg: ") for m in v.mismatches)
 
 
+def test_a_record_of_an_older_version_without_a_newer_result_is_verified_and_says_what_it_did_not_compare(
+        recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+
+    def older(data: dict) -> None:
+        data["provenance"]["versions"]["numpy"] = "0.0-older"
+        for s in data["stages"]:
+            del s["void_ratio_chain"]  # a result this version adds
+
+    _edit_results(rec, older)
+    v = verify_record(rec, root)
+    assert v.ok and not v.exact, v.to_text()
+    assert any(n.startswith("42 value(s) this version gives and the record's did not, not compared: "
+                            "stages[0].void_ratio_chain.e_initial") for n in v.notes), v.notes
+    _edit_results(rec, lambda d: d["stages"][0].__setitem__("gone_from_this_version", 1.0))
+    assert not verify_record(rec, root).ok  # what the record holds must still be given by the re-run
+
+
 def test_batch_verifies_every_record_and_writes_a_summary(recorded: Path, tmp_path: Path) -> None:
     root = _copy(recorded, tmp_path)
     good = root / "records" / "r1.html"
