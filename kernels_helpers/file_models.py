@@ -32,6 +32,7 @@ __all__ = ["Problem", "check_interpretation_data", "check_interpretation_text", 
            "listing"]
 
 PROJECT_SCHEMA: Final = "shearbook.project/1"
+SHA256_PATTERN: Final = r"^[0-9a-f]{64}$"
 
 Positive = Annotated[float, Field(gt=0)]
 NonNegative = Annotated[float, Field(ge=0)]
@@ -208,7 +209,7 @@ class InterpretationFile(_Table):
     revision: Annotated[int, Field(ge=0)] = 0
     settings: Settings = Settings()
     stages: dict[str, StageDecision] = {}
-    raw_files: dict[str, Annotated[str, Field(pattern=r"^[0-9a-f]{64}$")]] = {}
+    raw_files: dict[str, Annotated[str, Field(pattern=SHA256_PATTERN)]] = {}
     signoff: SignOff = SignOff()
     design: DesignChoices = DesignChoices()
 
@@ -290,6 +291,8 @@ def _allowed(error: Mapping[str, Any]) -> str:
     kind = error["type"]
     if kind == "literal_error":
         return f"allowed: {ctx.get('expected')}"
+    if kind == "string_pattern_mismatch" and ctx.get("pattern") == SHA256_PATTERN:
+        return "allowed: a SHA-256, 64 hexadecimal digits 0-9 and a-f (Shearbook writes it: do not edit it by hand)"
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         sign = {"greater_than": ">", "greater_than_equal": ">=", "less_than": "<", "less_than_equal": "<="}[kind]
         limit = next(iter(v for k, v in ctx.items() if k in ("gt", "ge", "lt", "le")))

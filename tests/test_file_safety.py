@@ -137,6 +137,19 @@ def test_a_newer_schema_version_is_refused_and_the_file_kept(example_copy: Path)
     assert path.read_bytes() == before
 
 
+def test_a_hand_edited_hash_or_revision_is_refused_in_words(example_copy: Path) -> None:
+    path = example_copy / "interpretation.json"
+    data = json.loads(path.read_text(encoding="utf-8"))
+    data["revision"], data["raw_files"]["readings/BH03-D1.csv"] = -3, "xyz"
+    path.write_text(json.dumps(data), encoding="utf-8")
+    with pytest.raises(InterpretationFileError) as info:
+        load_interpretation(path)
+    assert str(info.value).splitlines()[1:] == [
+        "  revision: found -3; allowed: a number >= 0",
+        '  raw_files["readings/BH03-D1.csv"]: found "xyz"; allowed: a SHA-256, 64 hexadecimal digits 0-9 and a-f '
+        "(Shearbook writes it: do not edit it by hand)"]
+
+
 @pytest.mark.parametrize(("text", "message"), [
     ("[" * 100_000 + "]" * 100_000, "nested too deeply to be an interpretation file"),
     ('{"schema": "shearbook.interpretation/1", "schema_version": 1}'.encode("utf-16").decode("latin-1"), "not UTF-8"),
