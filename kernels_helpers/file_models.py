@@ -19,6 +19,7 @@ from __future__ import annotations
 import dataclasses
 import difflib
 import json
+import types
 import typing
 from collections.abc import Mapping, Sequence
 from typing import Annotated, Any, Final, Literal
@@ -248,7 +249,7 @@ def _unwrap(tp: Any) -> Any:
         origin = typing.get_origin(tp)
         if origin is Annotated:
             tp = typing.get_args(tp)[0]
-        elif origin in (typing.Union, getattr(__import__("types"), "UnionType", None)):
+        elif origin in (typing.Union, types.UnionType):
             args = [a for a in typing.get_args(tp) if a is not type(None)]
             if len(args) != 1:
                 return tp
@@ -275,7 +276,7 @@ def _type_at(root: Any, loc: Sequence[int | str]) -> Any:
     for part in loc:
         tp = _unwrap(tp)
         origin = typing.get_origin(tp)
-        if origin in (dict, Mapping, typing.Mapping) or (origin is not None and origin.__name__ == "Mapping"):
+        if origin in (dict, Mapping):
             tp = typing.get_args(tp)[1]
         elif origin in (list, tuple) and isinstance(part, int):
             tp = typing.get_args(tp)[0]

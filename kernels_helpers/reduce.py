@@ -146,7 +146,11 @@ class ReducedStage:
     settlement_mm: float = 0.0  # consolidation settlement the heights use (positive = compression)
     settlement_source: str = "declared"  # "declared" (project file), "consolidation readings", or "none"
     height_initial_mm: float = 0.0  # H_0, before consolidation
-    height_start_mm: float = 0.0  # H_0 - settlement: at the start of shearing
+
+    @property
+    def height_start_mm(self) -> float:
+        """H_0 - consolidation settlement: the height at the start of shearing (mm)."""
+        return self.height_initial_mm - self.settlement_mm
 
     @cached_property
     def pick_rows(self) -> pd.DataFrame:
@@ -293,7 +297,6 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
         settlement_mm=settled_mm,
         settlement_source=source,
         height_initial_mm=spec.height_mm,
-        height_start_mm=h_start,
     )
 
 
