@@ -26,6 +26,7 @@ from typing import TYPE_CHECKING, Any, Literal
 
 from .atomic import write_text_atomic
 from .errors import RecordError
+from .escaping import json_for_script, script_safe, unsafe_in_script
 from .interpretation import INTERPRETATION_FILE, load_interpretation
 from .mime import INTERPRETATION_MIME, RESULTS_MIME
 from .project import load_project
@@ -192,6 +193,36 @@ def export_html(nb: nbformat.NotebookNode, view: View) -> str:
     return body
 
 
+_BOKEH_JSON = re.compile(r"^(\s*const (?:docs_json|render_items) = )(.*);$", re.M)  # Bokeh's notebook embedding
+
+
+def _script_safe_bokeh(js: str) -> str:
+    """Bokeh's embedding script with its JSON literals made script-safe (``</script>`` in a title cannot end it)."""
+    return _BOKEH_JSON.sub(lambda m: m.group(1) + script_safe(m.group(2)) + ";", js)
+
+
+def make_scripts_safe(nb: nbformat.NotebookNode) -> nbformat.NotebookNode:
+    """Every script the record will hold, checked: no user text in it can end the block or open a comment.
+
+    nbconvert writes an ``application/javascript`` output inside a ``<script>`` block as it is, and
+    Bokeh writes a figure's document (titles, legend labels, stage ids in the data) into that script as
+    JSON literals that keep ``<`` and ``/`` as they are. Their JSON is rewritten with ``\u003c`` etc.
+    (the same values); any script that still holds ``</script`` or ``<!--`` stops the export.
+    """
+    for index, cell in enumerate(nb.cells):
+        for out in cell.get("outputs", []):
+            data = out.get("data", {})
+            if "application/javascript" in data:
+                data["application/javascript"] = _script_safe_bokeh(data["application/javascript"])
+                js = data["application/javascript"]
+                unsafe = [u for u in unsafe_in_script(js) if u.lower().startswith("</script")]
+                unsafe += [u for m in _BOKEH_JSON.finditer(js) for u in unsafe_in_script(m.group(2))]
+                if unsafe:
+                    raise RecordError(f"cell {index + 1}: a script of the record would hold {', '.join(unsafe)} "
+                                      "outside a JSON string; no record was written. Report this as a bug.")
+    return nb
+
+
 def _published(nb: nbformat.NotebookNode, mime: str, template: Path) -> str:
     """The JSON the workbook published under ``mime`` (views.show_provenance), as canonical text."""
     for cell in nb.cells:
@@ -203,7 +234,7 @@ def _published(nb: nbformat.NotebookNode, mime: str, template: Path) -> str:
 
 
 def _embed(html_text: str, blocks: dict[str, str]) -> str:
-    safe = {name: text.replace("<", "\\u003c") for name, text in blocks.items()}  # no "</script>" can close the tag
+    safe = {name: script_safe(text) for name, text in blocks.items()}  # no "</script>" or "<!--" can change the block
     tags = "".join(f'<script type="application/json" id="{name}">{text}</script>\n' for name, text in safe.items())
     end = html_text.rindex("</body>")  # the last one: BokehJS holds the string "</body>" too
     return html_text[:end] + tags + html_text[end:]
@@ -241,14 +272,14 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
         stop_kernel(km)
     results_json = _published(nb, RESULTS_MIME, template) + "\n"
     interpretation_json = _published(nb, INTERPRETATION_MIME, template) + "\n"
-    html_text = export_html(nb, view)
+    html_text = export_html(make_scripts_safe(nb), view)
     refs = network_references(html_text)
     if refs:
         raise RecordError(
             f"the exported record would fetch from the network: {', '.join(refs[:5])}. Nothing was written."
         )
     html_text = _embed(html_text, {"shearbook-results": results_json, "shearbook-interpretation": interpretation_json,
-                                   "shearbook-record": json.dumps({"view": view, "schema": "shearbook.record/1"})})
+                                   "shearbook-record": json_for_script({"view": view, "schema": "shearbook.record/1"})})
     path = Path(out).resolve() if out else default_record_path(root, view)
     _write_atomic(path, html_text)
     return Record(path, len(html_text.encode("utf-8")), hashlib.sha256(results_json.encode()).hexdigest(),

@@ -75,3 +75,70 @@ def test_escaped_note_does_not_run_in_the_browser(browser, example_copy: Path, a
     assert dialogs == []
     assert note in page.inner_text("body")  # shown as typed
     page.close()
+
+
+PAYLOAD = "\"'><i data-evil=\"1\">x</i><img src=x onerror=alert(1)></script><script>alert(2)</script><!--\u2028é"
+
+
+def hostile_project(folder: Path) -> Path:
+    """The example project with markup in every user text field: names, a stage id, a test set, notes."""
+    import shutil
+
+    from kernels_helpers import save_interpretation
+    from kernels_helpers.interpretation import Interpretation, StageDecision
+
+    project = folder / "hostile"
+    shutil.copytree(Path(__file__).resolve().parent.parent / "example_project", project)
+    (project / "interpretation.json").unlink()
+    quoted = PAYLOAD.replace("\\", "\\\\").replace('"', '\\"').replace("\u2028", "\\u2028")
+    toml = (project / "project.toml").read_text(encoding="utf-8")
+    for old in ('name = "Port Wendle example - stratum B sand"', 'site = "Alder Quay extension, Port Wendle (invented)"',
+                'client = "Wendle Harbour Board (invented)"'):
+        toml = toml.replace(old, old[:-1] + " " + quoted + '"')
+    toml = toml.replace('id = "BH03-D1"', f'id = "D1 {quoted}"')
+    toml = toml.replace('test_set = "BH03 dense"', f'test_set = "dense {quoted}"')
+    toml = toml.replace('description = "Dense sand', f'description = "{quoted} Dense sand', 1)
+    (project / "project.toml").write_text(toml, encoding="utf-8")
+    interp = Interpretation().with_decision("BH03-D2", StageDecision(note=PAYLOAD))
+    interp = interp.with_decision("BH03-L1", StageDecision(included=False, exclusion_reason=PAYLOAD))
+    interp = interp.with_signoff("checked", "A. Checker " + PAYLOAD, PAYLOAD)
+    save_interpretation(interp, project / "interpretation.json")
+    return project
+
+
+def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, tmp_path: Path, artifacts: Path) -> None:
+    """OWASP XSS prevention rules 1, 2 and 3.1 (common practice): text in HTML, attributes and script JSON."""
+    record = write_record(hostile_project(tmp_path), artifacts / "record-hostile.html").path
+    text = record.read_text(encoding="utf-8")
+    assert "<i data-evil" not in text and "<img src=x" not in text
+    page = browser.new_page()
+    dialogs: list[str] = []
+    errors: list[str] = []
+    requests: list[str] = []
+    page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+    page.on("pageerror", lambda e: errors.append(str(e)))
+
+    def block(route) -> None:
+        if route.request.url.startswith(("file:", "data:", "blob:")):
+            route.continue_()
+        else:
+            requests.append(route.request.url)
+            route.abort()
+
+    page.route("**/*", block)
+    page.goto(record.as_uri())
+    page.wait_for_function("() => window.Bokeh && Bokeh.index.roots.length > 0", timeout=20000)
+    page.wait_for_timeout(1500)
+    page.screenshot(path=str(artifacts / "record-hostile.png"))
+    assert dialogs == [] and errors == [] and requests == []
+    assert page.evaluate("document.querySelectorAll('[data-evil], img, [onerror]').length") == 0
+    body = page.inner_text("body")
+    assert body.count("data-evil") >= 8  # shown literally: names, id, set, description, note, reason, sign-off
+    # every Bokeh document of the file was embedded and drawn: none was cut short by a "</script>" in its data
+    docs = text.count("const docs_json = ")
+    assert docs > 10 and page.evaluate("Bokeh.documents.length") == docs
+    assert page.evaluate("[...document.querySelectorAll('script[type=\"application/json\"]')]"
+                         ".map(s => JSON.parse(s.textContent)).length") == 3
+    results = page.evaluate("JSON.parse(document.getElementById('shearbook-results').textContent)")
+    assert results["stages"][0]["id"] == "D1 " + PAYLOAD  # the same text after the JSON round trip
+    page.close()
