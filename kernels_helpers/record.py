@@ -39,6 +39,7 @@ if TYPE_CHECKING:  # imported where used: the kernel starts before these are imp
 __all__ = ["execute_workbook", "network_references", "write_record"]
 
 View = Literal["report", "audit"]
+RECORD_SCHEMA = "shearbook.record/2"  # 2: the visible sections are marked (views.sections) and verified
 LIVE_TAG = "interactive"  # cells of the live screen: left out of the record (and of its execution)
 KERNEL = "python3"
 KERNEL_DIR_PREFIX = "shearbook-kernel-"  # a private folder per kernel for its IPC sockets, removed when it stops
@@ -279,7 +280,7 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
             f"the exported record would fetch from the network: {', '.join(refs[:5])}. Nothing was written."
         )
     html_text = _embed(html_text, {"shearbook-results": results_json, "shearbook-interpretation": interpretation_json,
-                                   "shearbook-record": json_for_script({"view": view, "schema": "shearbook.record/1"})})
+                                   "shearbook-record": json_for_script({"view": view, "schema": RECORD_SCHEMA})})
     path = Path(out).resolve() if out else default_record_path(root, view)
     _write_atomic(path, html_text)
     return Record(path, len(html_text.encode("utf-8")), hashlib.sha256(results_json.encode()).hexdigest(),

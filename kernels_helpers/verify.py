@@ -6,7 +6,13 @@ both, re-runs :func:`interpret` on the project folder with that interpretation, 
 * every raw file's SHA-256 (a changed or missing file is named);
 * every number of the results (stages, picks, envelopes, sensitivity, design values). With the same
   software versions the numbers must be bit-identical; across versions they are compared with the
-  tolerance :data:`REL_TOL` (relative) and :data:`ABS_TOL` (absolute, in the result's own unit).
+  tolerance :data:`REL_TOL` (relative) and :data:`ABS_TOL` (absolute, in the result's own unit);
+* what a reader sees: every table cell, text block, heading and plotted point of the record's
+  sections, rebuilt from the re-run by the functions the workbook used (:mod:`.views.visible`);
+  an edit of a visible number or flag is named by section, table, row and column.
+
+This module re-renders the record's sections, so it imports the views (Bokeh): it is not part of
+the pure core.
 """
 
 from __future__ import annotations
@@ -45,13 +51,29 @@ def _block(text: str, name: str, path: Path) -> Any:
         raise RecordError(f"{path}: the {name} block is damaged ({exc}); the record cannot be verified.") from exc
 
 
-def read_record(path: str | Path) -> tuple[dict[str, Any], dict[str, Any]]:
-    """The results JSON and the interpretation JSON embedded in a record."""
+def _text(path: str | Path) -> tuple[Path, str]:
     p = Path(path)
     if not p.is_file():
         raise RecordError(f"{p}: record not found.")
-    text = p.read_text(encoding="utf-8")
+    try:
+        return p, p.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise RecordError(f"{p}: not a text file ({exc}); verify only records written by `shearbook record`.") from None
+
+
+def read_record(path: str | Path) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The results JSON and the interpretation JSON embedded in a record."""
+    p, text = _text(path)
     return _block(text, "shearbook-results", p), _block(text, "shearbook-interpretation", p)
+
+
+def record_schema(text: str) -> str:
+    """The record's own schema: "shearbook.record/2" and later mark the visible sections."""
+    m = re.search(r'<script type="application/json" id="shearbook-record">(.*?)</script>', text, re.S)
+    try:
+        return str(json.loads(m.group(1)).get("schema", "")) if m else ""
+    except (json.JSONDecodeError, AttributeError):
+        return ""
 
 
 def _leaves(value: Any, prefix: str = "") -> Iterator[tuple[str, Any]]:
@@ -83,10 +105,12 @@ class Verification:
     compared: int
     notes: tuple[str, ...] = field(default=())
     rerun_error: str | None = None  # the re-run raised: nothing could be compared
+    shown: tuple[str, ...] = ()  # differences between what the record shows and the re-run's sections
+    shown_compared: int = 0  # visible cells, text blocks and plotted points compared
 
     @property
     def ok(self) -> bool:
-        return not self.changed_files and not self.mismatches and self.rerun_error is None
+        return not self.changed_files and not self.mismatches and not self.shown and self.rerun_error is None
 
     @property
     def mode(self) -> str:
@@ -101,6 +125,7 @@ class Verification:
             head = f"{self.compared} values compared, " + (
                 "bit-identical (same versions)" if self.exact
                 else f"within rel {REL_TOL:g} / abs {ABS_TOL:g} (versions differ)")
+            head += f"; {self.shown_compared} shown cells, texts and plotted points compared"
         lines = [f"{self.record}: {'MATCH' if self.ok else 'MISMATCH'} - {head}"]
         lines += [f"  raw file changed: {f}" for f in self.changed_files]
         if self.rerun_error is not None:
@@ -108,6 +133,9 @@ class Verification:
         lines += [f"  moved: {m}" for m in self.mismatches[:50]]
         if len(self.mismatches) > 50:
             lines.append(f"  ... and {len(self.mismatches) - 50} more")
+        lines += [f"  shown: {m}" for m in self.shown[:50]]
+        if len(self.shown) > 50:
+            lines.append(f"  ... and {len(self.shown) - 50} more shown differences")
         lines += [f"  note: {n}" for n in self.notes]
         return "\n".join(lines) + "\n"
 
@@ -115,7 +143,9 @@ class Verification:
 def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
     """Re-execute the interpretation of ``record`` on ``project_dir`` and compare every number."""
     rec_path, root = Path(record).resolve(), Path(project_dir).resolve()
-    recorded, interp_json = read_record(rec_path)
+    rec_path, text = _text(rec_path)
+    recorded = _block(text, "shearbook-results", rec_path)
+    interp_json = _block(text, "shearbook-interpretation", rec_path)
     project = load_project(root)
     then_files = recorded.get("provenance", {}).get("raw_files", {})
     now_files = {name: {"sha256": sha256_of(root / name)} for name in then_files if (root / name).is_file()}
@@ -126,9 +156,11 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
         if now_files.get(name, {}).get("sha256") != info["sha256"]
     )
     try:
-        now = json.loads(interpret(project, from_dict(interp_json, f"{rec_path} (embedded interpretation)")).to_json())
+        interpretation = from_dict(interp_json, f"{rec_path} (embedded interpretation)")
+        results = interpret(project, interpretation)
     except ShearbookError as exc:
         return Verification(rec_path, root, False, changed, (), 0, rerun_error=str(exc))
+    now = json.loads(results.to_json())
     versions_then = (recorded["provenance"].get("versions"), recorded["provenance"].get("python"))
     exact = versions_then == (now["provenance"]["versions"], now["provenance"]["python"])
     a = {k: v for k, v in _leaves(recorded) if not k.startswith(SKIP)}
@@ -144,7 +176,24 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
     if added:
         notes += (f"{len(added)} value(s) this version gives and the record's did not, not compared: "
                   + ", ".join(added[:5]) + (" ..." if len(added) > 5 else ""),)
-    return Verification(rec_path, root, exact, changed, tuple(mismatches), len(a), notes)
+    shown, shown_compared, shown_notes = _visible(text, results, project, interpretation, exact)
+    return Verification(rec_path, root, exact, changed, tuple(mismatches), len(a), notes + shown_notes,
+                        shown=tuple(shown), shown_compared=shown_compared)
+
+
+def _visible(text: str, results: Any, project: Any, interpretation: Any,
+             exact: bool) -> tuple[list[str], int, tuple[str, ...]]:
+    """What the record shows against the re-run's sections; records before schema 2 mark no sections."""
+    if record_schema(text) in ("", "shearbook.record/1"):
+        return [], 0, ("this record marks no visible sections (record schema 1, an older Shearbook): only its "
+                       "embedded data was compared, not the tables and plots a reader sees",)
+    from .views.sections import Context
+    from .views.visible import compare_visible
+
+    lines, compared = compare_visible(text, Context(results, project, interpretation), exact)
+    notes = () if exact or not lines else (
+        "versions differ: a shown difference may be the newer version's wording or rounding; compare by eye",)
+    return lines, compared, notes
 
 
 def project_of(record: Path) -> Path:
@@ -258,12 +307,13 @@ def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Pa
     path.parent.mkdir(parents=True, exist_ok=True)
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
-        w.writerow(["record", "project", "status", "changed_raw_files", "values_moved", "values_compared", "mode",
-                    "error"])
+        w.writerow(["record", "project", "status", "changed_raw_files", "values_moved", "values_compared",
+                    "shown_differences", "shown_compared", "mode", "error"])
         for rec, v, err in out:
             if v is None:
-                w.writerow([rec, "", "error", "", "", "", "", err])
+                w.writerow([rec, "", "error", "", "", "", "", "", "", err])
             else:
                 w.writerow([rec, v.project, "match" if v.ok else "mismatch", "; ".join(v.changed_files),
-                            len(v.mismatches), v.compared, v.mode, v.rerun_error or ""])
+                            len(v.mismatches), v.compared, len(v.shown), v.shown_compared, v.mode,
+                            v.rerun_error or ""])
     return out

@@ -75,8 +75,10 @@ def test_other_tables_render_and_show_the_general_caution(results) -> None:
 
 def test_show_design_displays_both_cautions(results, monkeypatch: pytest.MonkeyPatch) -> None:
     shown: list[str] = []
-    monkeypatch.setattr(design_views, "display", lambda obj: shown.append(obj.data))
-    design_views.show_design(results)
+    from kernels_helpers.views import notebook, sections
+
+    monkeypatch.setattr(sections, "display", lambda obj: shown.append(obj.data))
+    notebook.show_design(results)
     assert any(esc(DESIGN_CAUTION) in h for h in shown)
     assert any(esc(CAUTION) in h for h in shown)
 

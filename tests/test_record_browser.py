@@ -92,8 +92,8 @@ def hostile_project(folder: Path) -> Path:
     (project / "interpretation.json").unlink()
     quoted = PAYLOAD.replace("\\", "\\\\").replace('"', '\\"').replace("\u2028", "\\u2028")
     toml = (project / "project.toml").read_text(encoding="utf-8")
-    for old in ('name = "Port Wendle example - stratum B sand"', 'site = "Alder Quay extension, Port Wendle (invented)"',
-                'client = "Wendle Harbour Board (invented)"'):
+    for old in ('name = "Port Wendle example - stratum B sand"',
+                'site = "Alder Quay extension, Port Wendle (invented)"', 'client = "Wendle Harbour Board (invented)"'):
         toml = toml.replace(old, old[:-1] + " " + quoted + '"')
     toml = toml.replace('id = "BH03-D1"', f'id = "D1 {quoted}"')
     toml = toml.replace('test_set = "BH03 dense"', f'test_set = "dense {quoted}"')
@@ -108,8 +108,13 @@ def hostile_project(folder: Path) -> Path:
 
 def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, tmp_path: Path, artifacts: Path) -> None:
     """OWASP XSS prevention rules 1, 2 and 3.1 (common practice): text in HTML, attributes and script JSON."""
-    record = write_record(hostile_project(tmp_path), artifacts / "record-hostile.html").path
+    from kernels_helpers.verify import verify_record
+
+    project = hostile_project(tmp_path)
+    record = write_record(project, artifacts / "record-hostile.html").path
     text = record.read_text(encoding="utf-8")
+    v = verify_record(record, project)  # the escaped text reads back as the same text
+    assert v.ok and v.shown_compared > 1000, v.to_text()
     assert "<i data-evil" not in text and "<img src=x" not in text
     page = browser.new_page()
     dialogs: list[str] = []

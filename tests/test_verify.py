@@ -242,3 +242,102 @@ def test_a_scheduler_that_does_not_answer_is_a_clear_error(recorded: Path, tmp_p
                                           r"the address \(tcp://HOST:PORT\) and that the scheduler is running\."):
         verify_folder(recorded / "records", tmp_path / "s.csv",
                       runner=Runner(scheduler="tcp://127.0.0.1:9", connect_timeout_s=1))
+
+
+# --- the visible record: what a reviewer reads is checked, not only the embedded data -----------------------------
+
+def _edit_text(record: Path, old: str, new: str, count: int = 1) -> None:
+    text = record.read_text(encoding="utf-8")
+    assert text.count(old) >= count, f"{old!r} not in the record"
+    record.write_text(text.replace(old, new, count), encoding="utf-8")
+
+
+def test_a_phi_edited_in_a_visible_table_is_named_by_section_table_row_and_column(recorded: Path,
+                                                                                   tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+    results = json.loads(re.search(r'id="shearbook-results">(.*?)</script>', rec.read_text(encoding="utf-8"),
+                                   re.S).group(1))
+    env = results["envelopes"][0]
+    shown = f"{env['free']['phi_deg']:.1f}"
+    text = rec.read_text(encoding="utf-8")
+    part = text.index('data-sb-section="envelopes"')
+    cell = text.index(f"<td>{shown} [", part)  # "phi' (deg) [95 % CI]" of the first envelope row
+    rec.write_text(text[:cell] + f"<td>{float(shown) + 3:.1f} [" + text[cell + len(shown) + 5:], encoding="utf-8")
+    v = verify_record(rec, root)
+    assert not v.ok and v.mismatches == () and v.changed_files == ()  # the embedded data was left alone
+    assert len(v.shown) == 1, v.shown
+    assert v.shown[0].startswith(f"section 'envelopes', part {len(set(e['group'] for e in results['envelopes'])) + 1}"
+                                 f", table 1, row {env['group']!r}, column \"phi' (deg) [95 % CI]\": the record shows "
+                                 f"'{float(shown) + 3:.1f} ["), v.shown
+    assert "  shown: section 'envelopes'" in v.to_text() and "MISMATCH" in v.to_text()
+
+
+def test_a_flag_replaced_by_no_flags_is_a_mismatch(recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+    text = rec.read_text(encoding="utf-8")
+    start = text.index("<h3>Flags</h3>")
+    end = text.index("</table>", start) + len("</table>")
+    rec.write_text(text[:start] + "<h3>Flags</h3><p>No flags raised.</p>" + text[end:], encoding="utf-8")
+    v = verify_record(rec, root)
+    assert not v.ok, v.to_text()
+    assert any(s.startswith("section 'picks', part 1") and "No flags raised." in s for s in v.shown), v.shown
+
+
+def test_a_removed_section_and_a_removed_figure_are_named(recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+    _edit_text(rec, 'data-sb-section="design"', 'data-sb-gone="design"')
+    _edit_text(rec, '"sb-part:stages:1"', '"sb-part:gone:1"')
+    v = verify_record(rec, root)
+    assert "section 'design': not in the record (removed?)" in v.shown
+    assert "section 'stages', figure 2: not in the record (removed?)" in v.shown
+
+
+def test_a_changed_plotted_point_is_named_by_figure_source_column_and_point(recorded: Path, tmp_path: Path) -> None:
+    import base64
+    import gzip
+
+    import numpy as np
+
+    from kernels_helpers.escaping import script_safe
+
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+    text = rec.read_text(encoding="utf-8")
+    m = next(m for m in re.finditer(r"const docs_json = (\{.*?\});\n", text) if '"sb-part:stages:1"' in m.group(1))
+    docs = json.loads(m.group(1))
+
+    def float_arrays(value):
+        if isinstance(value, dict):
+            if value.get("type") == "ndarray" and value.get("dtype") in ("float32", "float64"):
+                yield value
+            for v in value.values():
+                yield from float_arrays(v)
+        elif isinstance(value, list):
+            for v in value:
+                yield from float_arrays(v)
+
+    target = next(a for a in float_arrays(docs) if len(a["array"]["data"]) > 100)
+    raw = base64.b64decode(target["array"]["data"])
+    zipped = raw[:2] == b"\x1f\x8b"
+    dtype = "<f8" if target["dtype"] == "float64" else "<f4"
+    values = np.frombuffer(gzip.decompress(raw) if zipped else raw, dtype=dtype).copy()
+    values[5] += 1.0  # one plotted point moved by 1 (mm or kPa)
+    target["array"]["data"] = base64.b64encode(gzip.compress(values.tobytes()) if zipped else values.tobytes()).decode()
+    doc_text = json.dumps(docs)
+    rec.write_text(text[: m.start(1)] + script_safe(doc_text) + text[m.end(1):], encoding="utf-8")
+    v = verify_record(rec, root)
+    assert not v.ok and v.mismatches == ()
+    assert len(v.shown) == 1 and v.shown[0].startswith("section 'stages', figure 2, source ") and ", point 6: the " \
+        "record plots " in v.shown[0], v.shown
+
+
+def test_a_record_without_marked_sections_says_only_its_data_was_compared(recorded: Path, tmp_path: Path) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+    _edit_text(rec, '"schema": "shearbook.record/2"', '"schema": "shearbook.record/1"')
+    v = verify_record(rec, root)
+    assert v.ok and v.shown_compared == 0
+    assert any("only its embedded data was compared" in n for n in v.notes)

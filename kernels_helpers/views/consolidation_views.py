@@ -8,14 +8,13 @@ import numpy as np
 from bokeh.layouts import gridplot
 from bokeh.models import Span
 from bokeh.plotting import figure
-from IPython.display import HTML, display
 
 from ..consolidation import MM2_S_TO_M2_YR
 from ..results import Results, StageResult
 from . import tables
 from .figures import CRIT, INK, PEAK, SUGGESTED, TOOLS
 
-__all__ = ["consolidation_figure", "rate_table", "show_consolidation"]
+__all__ = ["consolidation_figure", "rate_table"]
 
 
 def _panel(title: str, x_label: str, name: str, x_axis_type: str = "linear") -> figure:
@@ -87,20 +86,3 @@ def rate_table(results: Results) -> str:
                      verdict])
     return tables.table(("stage", "c_v log time (m2/yr)", "c_v root time (m2/yr)", "governing rule",
                          "required t_f (min)", "time to failure (min)", "rate / maximum (mm/min)", "check"), rows)
-
-
-def show_consolidation(results: Results) -> None:
-    """Both constructions of every consolidation stage, then the rate table."""
-    from .notebook import show_static
-
-    stages = [s for s in results.stages if s.consolidation is not None]
-    if not stages:
-        display(HTML("<p>No consolidation readings in this project (optional consolidation_file per stage).</p>"))
-        return
-    for s in stages:
-        show_static(consolidation_figure(s))
-    rule = results.settings.get("rate", {}).get("time_to_failure", "largest")
-    said = ("the largest of 50 t_50, 11.6 t_90 and 12.7 t_100 that the constructions give (the cautious choice)"
-            if rule == "largest" else f"t_f = {tables.esc(rule)}, as chosen in the interpretation file's settings")
-    display(HTML(f"<p>Required time to failure: {said}; settings.rate.time_to_failure in the interpretation "
-                 "file chooses the rule the governing standard states.</p>" + rate_table(results)))

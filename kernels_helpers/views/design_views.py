@@ -9,15 +9,11 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from IPython.display import HTML, display
-
 from ..compare import overlaps_pooled
 from ..design import PARTIAL_FACTOR_SETS
 from ..dilatancy import DAVIS_JEWELL_ASSUMPTIONS
 from ..results import Results
-from .notebook import show_static
-from .strength_figures import critical_state_figure, taylor_figure
-from .tables import caution_html, esc, num, table
+from .tables import esc, num, table
 
 __all__ = [
     "critical_state_table",
@@ -26,11 +22,6 @@ __all__ = [
     "dilatancy_table",
     "power_law_angle_table",
     "set_comparison_table",
-    "show_critical_state_line",
-    "show_design",
-    "show_dilatancy",
-    "show_envelope_statistics",
-    "show_set_comparison",
     "statistics_table",
 ]
 
@@ -216,44 +207,3 @@ def design_html(results: Results) -> str:
                "force governs the factors and the design approach; edit them in the interpretation file's "
                "<code>design</code> choices.</p>")
     return "".join(out)
-
-
-def _h(text: str) -> None:
-    display(HTML(f"<h3>{esc(text)}</h3>"))
-
-
-def show_envelope_statistics(results: Results, angles_at_kpa: Sequence[float] | None = None) -> None:
-    """The statistics tables of every fitted envelope (its bands and power law are drawn on its envelope plot).
-
-    ``angles_at_kpa``: normal stresses (kPa) at which to give the power-law secant and tangent angles;
-    None gives the ends and middle of the design range.
-    """
-    display(HTML(statistics_table(results) + power_law_angle_table(results, angles_at_kpa)))
-
-
-def show_set_comparison(results: Results) -> None:
-    display(HTML(set_comparison_table(results)))
-
-
-def show_critical_state_line(results: Results) -> None:
-    lines = results.critical_state_lines
-    pooled = [line for line in lines if line.group.startswith("stratum ")]
-    for line in pooled or lines:  # dense and loose together where a stratum pools them
-        show_static(critical_state_figure(results, line))
-    display(HTML(critical_state_table(results)))
-
-
-def show_dilatancy(results: Results) -> None:
-    """Taylor's ratio along the curves of each test set, and the angle table (interpretation aids)."""
-    sets: dict[str, list[str]] = {}
-    for s in results.stages:
-        sets.setdefault(s.test_set or "all stages", []).append(s.stage_id)
-    for ids in sets.values():
-        show_static(taylor_figure(results, ids))
-    display(HTML(dilatancy_table(results)))
-
-
-def show_design(results: Results) -> None:
-    """Characteristic and design values with the method, the caution and the general caution."""
-    display(HTML(design_html(results)))
-    display(HTML(caution_html()))

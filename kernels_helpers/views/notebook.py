@@ -8,10 +8,11 @@ from __future__ import annotations
 
 import importlib.metadata
 import json
+from collections.abc import Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 
-from bokeh.io import curdoc, output_notebook, show
+from bokeh.io import output_notebook
 from bokeh.resources import Resources
 from IPython.display import HTML, display
 
@@ -20,9 +21,11 @@ from ..interpretation import load_interpretation
 from ..project import Project
 from ..results import INTERPRETATION_MIME, RESULTS_MIME, Results
 from . import tables
-from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
+from .sections import show_section, show_static
 
-__all__ = ["setup_notebook", "show_envelopes", "show_header", "show_provenance", "show_stages", "show_tables"]
+__all__ = ["setup_notebook", "show_changes_since_record", "show_consolidation", "show_critical_state_line",
+           "show_design", "show_dilatancy", "show_envelope_statistics", "show_envelopes", "show_header",
+           "show_provenance", "show_set_comparison", "show_stages", "show_static", "show_tables"]
 
 RECORD_PACKAGES = ("bokeh", "jupyterlab", "ipywidgets", "jupyter_bokeh", "nbconvert", "nbclient", "tsdownsample")
 
@@ -51,72 +54,55 @@ def _show_shearbook_error(shell: object, etype: type, value: BaseException, tb: 
     return [f"ShearbookError: {value}"]
 
 
-def show_static(obj) -> None:
-    """Show a Bokeh layout as a static output cell.
-
-    ``bokeh.io.show`` adds every object it shows to the session document and walks all of that
-    document's models again on each call, so a record of thirty figures paid for the first figure
-    thirty times. A record's figures never talk back to the kernel, so the document is emptied first:
-    each call costs only its own figure.
-    """
-    curdoc().clear()
-    show(obj)
-
-
-def _h(text: str, level: int = 3) -> None:
-    display(HTML(f"<h{level}>{tables.esc(text)}</h{level}>"))
-
-
 def show_header(results: Results, project: Project) -> None:
-    display(HTML(tables.header_html(results)))
-    display(HTML(tables.caution_html()))
-    _h("Inputs (raw readings, never modified)")
-    display(HTML(tables.inputs_table(results, project)))
-    _h("Specimens")
-    display(HTML(tables.specimen_table(results, project)))
-    r = results.settings["reduction"]
-    pk = results.settings["picks"]
-    display(HTML(
-        "<p>Reduction: stresses on the <b>{area}</b> area; rate of dilation by Savitzky-Golay (quadratic) over "
-        "{w} mm; peak located on shear stress smoothed over {ps} mm; start of shear where the force first reaches "
-        "{sf:g} % of its maximum (seating slack before it removed and recorded). Critical state: mean over the last "
-        "{cw} mm, reached when |mean dy/dx| &le; {rt} and tau/sigma changes by &le; {tt:g} % across the window. "
-        "Curves drawn with at most {n} points per series (LTTB decimation, display only; every reading is used "
-        "in the computation).</p>".format(
-            area=tables.esc(r["area_convention"]), w=r["smoothing_window_mm"], ps=r["peak_smoothing_mm"],
-            sf=r["seating_fraction"] * 100, cw=pk["cs_window_mm"], rt=pk["cs_rate_tolerance"],
-            tt=pk["cs_trend_tolerance"] * 100, n=DISPLAY_POINTS,
-        )
-    ))
+    show_section("header", results, project)
 
 
 def show_stages(results: Results) -> None:
-    """One row of plots per stage, suggested and chosen picks marked."""
-    for s in results.stages:
-        show_static(stage_figure(s))
+    """One row of plots per stage, suggested and chosen picks marked; each under a heading of its own."""
+    show_section("stages", results)
 
 
 def show_tables(results: Results) -> None:
-    _h("Method: how the suggestions and flags were made")
-    display(HTML(tables.method_html(results)))
-    _h("Picks")
-    display(HTML(tables.picks_table(results)))
-    residual = tables.residual_table(results)
-    if residual:
-        _h("Residual strength (reversal tests)")
-        display(HTML(residual))
-    _h("Flags")
-    display(HTML(tables.flags_table(results)))
+    """The method, the picks (and residual strengths) and the flags."""
+    show_section("picks", results)
+
+
+def show_consolidation(results: Results) -> None:
+    """Both constructions of every consolidation stage, then the rate table."""
+    show_section("consolidation", results)
 
 
 def show_envelopes(results: Results) -> None:
-    """Envelope plot of every group and the table of c' and phi'."""
-    for group in dict.fromkeys(e.group for e in results.envelopes):
-        show_static(envelope_figure(results, group))
-    display(HTML(tables.envelope_table(results)))
-    _h("Sensitivity: each stage left out in turn")
-    display(HTML(tables.sensitivity_table(results)))
-    display(HTML(tables.caution_html()))
+    """Envelope plot of every group, the table of c' and phi', and the sensitivity."""
+    show_section("envelopes", results)
+
+
+def show_envelope_statistics(results: Results, angles_at_kpa: Sequence[float] | None = None) -> None:
+    """The statistics tables of every fitted envelope (its bands and power law are drawn on its envelope plot).
+
+    ``angles_at_kpa``: normal stresses (kPa) at which to give the power-law secant and tangent angles;
+    None gives the ends and middle of the design range.
+    """
+    show_section("statistics", results, angles_at_kpa=angles_at_kpa)
+
+
+def show_set_comparison(results: Results) -> None:
+    show_section("sets", results)
+
+
+def show_critical_state_line(results: Results) -> None:
+    show_section("critical_state_line", results)
+
+
+def show_dilatancy(results: Results) -> None:
+    """Taylor's ratio along the curves of each test set, and the angle table (interpretation aids)."""
+    show_section("dilatancy", results)
+
+
+def show_design(results: Results) -> None:
+    """Characteristic and design values with the method, the caution and the general caution."""
+    show_section("design", results)
 
 
 def show_changes_since_record(project: Project, interpretation_path: str | Path) -> None:
@@ -145,10 +131,8 @@ def show_provenance(results: Results, interpretation_path: str) -> None:
         except importlib.metadata.PackageNotFoundError:
             extra[name] = "not installed"
     interpretation = load_interpretation(interpretation_path)
-    _h("Sign-off")
-    display(HTML(tables.signoff_table(interpretation.signoff)))
-    _h("Provenance")
-    display(HTML(tables.provenance_table(results, made, interpretation_path, extra)))
+    show_section("signoff", results, interpretation=interpretation)
+    display(HTML("<h3>Provenance</h3>" + tables.provenance_table(results, made, interpretation_path, extra)))
     # machine-readable copies for the record (not shown; the record embeds them as JSON blocks)
     display({RESULTS_MIME: json.loads(results.to_json()), INTERPRETATION_MIME: json.loads(interpretation.to_json()),
              "text/plain": ""}, raw=True)

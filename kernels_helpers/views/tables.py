@@ -278,3 +278,11 @@ def provenance_table(results: Results, made_utc: str, interpretation_path: str, 
 
 def caution_html() -> str:
     return f'<div class="sb-caution"><b>Caution.</b> {esc(CAUTION)}</div>'
+
+
+def stage_heading(s: StageResult) -> str:
+    """The heading above a stage's plots: stage, test set and normal stress (a new page in print)."""
+    where = f", {esc(s.test_set)}" if s.test_set else ""
+    left = " (excluded)" if not s.included else ""
+    return (f'<h3 class="sb-stage">Stage {esc(s.stage_id)}{where}, sigma\'n {num(s.sigma_nominal_kpa, 0)} kPa'
+            f"{left}</h3>")

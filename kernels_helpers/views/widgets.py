@@ -17,6 +17,7 @@ import ipywidgets as W
 from bokeh.layouts import column, row
 from jupyter_bokeh.widgets import BokehModel
 
+from ..escaping import dom_key
 from ..interpretation import utc_now
 from ..results import Results, StageResult
 from . import tables
@@ -57,9 +58,9 @@ class StagePanel:
         self.wb, self.sid = wb, s.stage_id
         pick = wb.controller.residual_pick(self.sid)  # None unless a reversal test
         self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, pick, self.on_residual_drag)
-        self.peak_x = _float_text("peak at x (mm)", s.peak.x_mm, f"sb-peak-x-{self.sid}")
-        self.cs_from = _float_text("window from (mm)", s.cs.x_from_mm, f"sb-cs-from-{self.sid}")
-        self.cs_to = _float_text("window to (mm)", s.cs.x_to_mm, f"sb-cs-to-{self.sid}")
+        self.peak_x = _float_text("peak at x (mm)", s.peak.x_mm, f"sb-peak-x-{dom_key(self.sid)}")
+        self.cs_from = _float_text("window from (mm)", s.cs.x_from_mm, f"sb-cs-from-{dom_key(self.sid)}")
+        self.cs_to = _float_text("window to (mm)", s.cs.x_to_mm, f"sb-cs-to-{dom_key(self.sid)}")
         self.peak_reset = W.Button(description="peak: back to suggestion", layout=W.Layout(width="260px"))
         self.cs_reset = W.Button(description="window: back to suggestion", layout=W.Layout(width="260px"))
         self.info = W.HTML()
@@ -75,9 +76,9 @@ class StagePanel:
             self.residual_pass = W.Dropdown(options=[(f"pass {n}", n) for n in forward], value=pick[0],
                                             description="forward pass", style={"description_width": "125px"},
                                             layout=W.Layout(width="265px"))
-            self.residual_pass.add_class(f"sb-res-pass-{self.sid}")
-            self.res_from = _float_text("residual from (mm)", pick[1], f"sb-res-from-{self.sid}")
-            self.res_to = _float_text("residual to (mm)", pick[2], f"sb-res-to-{self.sid}")
+            self.residual_pass.add_class(f"sb-res-pass-{dom_key(self.sid)}")
+            self.res_from = _float_text("residual from (mm)", pick[1], f"sb-res-from-{dom_key(self.sid)}")
+            self.res_to = _float_text("residual to (mm)", pick[2], f"sb-res-to-{dom_key(self.sid)}")
             self.res_reset = W.Button(description="residual: back to suggestion", layout=W.Layout(width="260px"))
             for w in (self.residual_pass, self.res_from, self.res_to):
                 w.observe(self.on_residual_typed, "value")
@@ -184,14 +185,14 @@ class StageTable:
                  "reason": W.Text(placeholder="required to exclude", continuous_update=False),
                  "note": W.Text(placeholder="note", continuous_update=False)}
             for key in ("include", "reason", "note"):
-                r[key].add_class(f"sb-{key}-{sid}")
+                r[key].add_class(f"sb-{key}-{dom_key(sid)}")
             r["include"].observe(lambda ch, sid=sid: self.on_include(sid, ch["new"]), "value")
             r["reason"].observe(lambda ch, sid=sid: self.on_reason(sid, ch["new"]), "value")
             r["note"].observe(lambda ch, sid=sid: self.on_note(sid, ch["new"]), "value")
             self.rows[sid] = r
             for key in ("reason", "note"):
                 r[key].layout = W.Layout(width="210px")
-            r["residual"].add_class(f"sb-residual-{sid}")
+            r["residual"].add_class(f"sb-residual-{dom_key(sid)}")
             cells += [W.HTML(f"<b>{tables.esc(sid)}</b>"), r["sigma"], r["peak"], r["cs"],
                       *([r["residual"]] if self.reversal else []), r["flags"], r["include"],
                       W.VBox([r["reason"], r["note"]])]

@@ -1,0 +1,184 @@
+"""The sections of the record: what a reader sees, built by one function each, shown and verified alike.
+
+Each section is a function of the results, the project and the interpretation (and, for one
+section, a notebook argument) that returns its *parts* in order: HTML text or a Bokeh layout.
+The workbook shows them with :func:`show_section`, which marks every part (an HTML part in a
+``<div data-sb-section=... data-sb-part=...>``, a figure by a tag on its root), and
+:mod:`.visible` rebuilds the same parts from a re-run to compare them with what a record shows.
+A section that is not in :data:`SECTIONS` (the changes since the last record, the provenance with
+its time of making) is shown but not compared: it depends on more than the results.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from bokeh.io import curdoc, show
+from bokeh.model import Model
+from IPython.display import HTML, display
+
+from ..interpretation import Interpretation
+from ..project import Project
+from ..results import Results
+from . import design_views as dv
+from . import tables
+from .consolidation_views import consolidation_figure, rate_table
+from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
+from .strength_figures import critical_state_figure, taylor_figure
+
+__all__ = ["PART_TAG", "SECTIONS", "Context", "build_section", "show_section", "show_static"]
+
+PART_TAG = "sb-part:"  # the tag on a figure's root: "sb-part:<section>:<index>"
+Part = str | Model
+
+
+@dataclass(frozen=True)
+class Context:
+    """What a section is made from: the results, the project and the interpretation (with its sign-off)."""
+
+    results: Results
+    project: Project | None = None
+    interpretation: Interpretation | None = None
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+def show_static(obj: Model) -> None:
+    """Show a Bokeh layout as a static output cell.
+
+    ``bokeh.io.show`` adds every object it shows to the session document and walks all of that
+    document's models again on each call, so a record of thirty figures paid for the first figure
+    thirty times. A record's figures never talk back to the kernel, so the document is emptied first:
+    each call costs only its own figure.
+    """
+    curdoc().clear()
+    show(obj)
+
+
+def _h(text: str) -> str:
+    return f"<h3>{tables.esc(text)}</h3>"
+
+
+def _header(ctx: Context) -> list[Part]:
+    results, project = ctx.results, ctx.project
+    assert project is not None
+    r, pk = results.settings["reduction"], results.settings["picks"]
+    method = (
+        "<p>Reduction: stresses on the <b>{area}</b> area; rate of dilation by Savitzky-Golay (quadratic) over "
+        "{w} mm; peak located on shear stress smoothed over {ps} mm; start of shear where the force first reaches "
+        "{sf:g} % of its maximum (seating slack before it removed and recorded). Critical state: mean over the last "
+        "{cw} mm, reached when |mean dy/dx| &le; {rt} and tau/sigma changes by &le; {tt:g} % across the window. "
+        "Curves drawn with at most {n} points per series (LTTB decimation, display only; every reading is used "
+        "in the computation).</p>".format(
+            area=tables.esc(r["area_convention"]), w=r["smoothing_window_mm"], ps=r["peak_smoothing_mm"],
+            sf=r["seating_fraction"] * 100, cw=pk["cs_window_mm"], rt=pk["cs_rate_tolerance"],
+            tt=pk["cs_trend_tolerance"] * 100, n=DISPLAY_POINTS))
+    return [tables.header_html(results) + tables.caution_html(),
+            _h("Inputs (raw readings, never modified)") + tables.inputs_table(results, project),
+            _h("Specimens") + tables.specimen_table(results, project) + method]
+
+
+def _stages(ctx: Context) -> list[Part]:
+    out: list[Part] = []
+    for s in ctx.results.stages:
+        out.append(tables.stage_heading(s))
+        out.append(stage_figure(s))
+    return out
+
+
+def _picks(ctx: Context) -> list[Part]:
+    results = ctx.results
+    out = _h("Method: how the suggestions and flags were made") + tables.method_html(results)
+    out += _h("Picks") + tables.picks_table(results)
+    residual = tables.residual_table(results)
+    if residual:
+        out += _h("Residual strength (reversal tests)") + residual
+    return [out + _h("Flags") + tables.flags_table(results)]
+
+
+def _consolidation(ctx: Context) -> list[Part]:
+    results = ctx.results
+    stages = [s for s in results.stages if s.consolidation is not None]
+    if not stages:
+        return ["<p>No consolidation readings in this project (optional consolidation_file per stage).</p>"]
+    rule = results.settings.get("rate", {}).get("time_to_failure", "largest")
+    said = ("the largest of 50 t_50, 11.6 t_90 and 12.7 t_100 that the constructions give (the cautious choice)"
+            if rule == "largest" else f"t_f = {tables.esc(rule)}, as chosen in the interpretation file's settings")
+    return [*(consolidation_figure(s) for s in stages),
+            f"<p>Required time to failure: {said}; settings.rate.time_to_failure in the interpretation "
+            "file chooses the rule the governing standard states.</p>" + rate_table(results)]
+
+
+def _envelopes(ctx: Context) -> list[Part]:
+    results = ctx.results
+    figures: list[Part] = [envelope_figure(results, g) for g in dict.fromkeys(e.group for e in results.envelopes)]
+    return [*figures, tables.envelope_table(results) + _h("Sensitivity: each stage left out in turn")
+            + tables.sensitivity_table(results) + tables.caution_html()]
+
+
+def _statistics(ctx: Context) -> list[Part]:
+    at = ctx.extra.get("angles_at_kpa")
+    return [dv.statistics_table(ctx.results) + dv.power_law_angle_table(ctx.results, at)]
+
+
+def _sets(ctx: Context) -> list[Part]:
+    return [dv.set_comparison_table(ctx.results)]
+
+
+def _critical_state_line(ctx: Context) -> list[Part]:
+    lines = ctx.results.critical_state_lines
+    pooled = [line for line in lines if line.group.startswith("stratum ")]
+    return [*(critical_state_figure(ctx.results, line) for line in pooled or lines),  # dense and loose together
+            dv.critical_state_table(ctx.results)]
+
+
+def _dilatancy(ctx: Context) -> list[Part]:
+    sets: dict[str, list[str]] = {}
+    for s in ctx.results.stages:
+        sets.setdefault(s.test_set or "all stages", []).append(s.stage_id)
+    return [*(taylor_figure(ctx.results, ids) for ids in sets.values()), dv.dilatancy_table(ctx.results)]
+
+
+def _design(ctx: Context) -> list[Part]:
+    return [dv.design_html(ctx.results) + tables.caution_html()]
+
+
+def _signoff(ctx: Context) -> list[Part]:
+    assert ctx.interpretation is not None
+    return [_h("Sign-off") + tables.signoff_table(ctx.interpretation.signoff)]
+
+
+SECTIONS: dict[str, Callable[[Context], list[Part]]] = {
+    "header": _header, "stages": _stages, "picks": _picks, "consolidation": _consolidation,
+    "envelopes": _envelopes, "statistics": _statistics, "sets": _sets, "critical_state_line": _critical_state_line,
+    "dilatancy": _dilatancy, "design": _design, "signoff": _signoff,
+}
+
+
+def build_section(name: str, ctx: Context) -> list[Part]:
+    """The parts of section ``name``, each figure tagged with its place."""
+    parts = SECTIONS[name](ctx)
+    for i, part in enumerate(parts):
+        if isinstance(part, Model):
+            part.tags = [*part.tags, f"{PART_TAG}{name}:{i}"]
+    return parts
+
+
+def part_html(name: str, index: int, html: str, args: dict[str, Any] | None = None) -> str:
+    """An HTML part inside its marker, with the section's arguments (as JSON) when it has any."""
+    extra = f' data-sb-args="{tables.esc(json.dumps(args, sort_keys=True))}"' if args else ""
+    return f'<div class="sb-part" data-sb-section="{name}" data-sb-part="{index}"{extra}>{html}</div>'
+
+
+def show_section(name: str, results: Results, project: Project | None = None,
+                 interpretation: Interpretation | None = None, **args: Any) -> None:
+    """Display every part of section ``name`` (HTML parts marked, figures tagged) for the record."""
+    args = {k: list(v) if isinstance(v, Sequence) and not isinstance(v, str) else v for k, v in args.items()}
+    ctx = Context(results, project, interpretation, args)
+    for i, part in enumerate(build_section(name, ctx)):
+        if isinstance(part, str):
+            display(HTML(part_html(name, i, part, args)))
+        else:
+            show_static(part)
