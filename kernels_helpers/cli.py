@@ -71,24 +71,53 @@ def _interpretation_of(path: Path):
 
 
 def _signoff(args: argparse.Namespace) -> int:
-    from .interpretation import INTERPRETATION_FILE, load_interpretation
+    from .interpretation import INTERPRETATION_FILE, load_interpretation, utc_now
     from .pipeline import raw_file_hashes, read_all
     from .revisions import save_checked
 
     project = load_project(args.project)
     path = project.root / INTERPRETATION_FILE
     interp = load_interpretation(path)
-    try:
-        interp = interp.with_signoff(args.state, args.who, args.note)
-    except ValueError as exc:
-        raise ShearbookError(f"{path}: {exc}.") from exc
     if args.state != "draft":  # a signature is given against these exact raw files
         interp = interp.with_raw_files(raw_file_hashes(project, read_all(project)))
+    when, signature = utc_now(), None
+    if args.principal and not args.sign:
+        raise ShearbookError("--principal names the signer of --sign KEY; give both, or neither for an unsigned step.")
+    if args.sign:
+        signature = _signature(args, project, interp, when)
+    try:
+        interp = interp.with_signoff(args.state, args.who, args.note, time_utc=when, signature=signature)
+    except ValueError as exc:
+        raise ShearbookError(f"{path}: {exc}.") from exc
     saved = save_checked(interp, path)  # against the revision read above: never over another writer's work
-    _result(args, f"{path}: sign-off {args.state} by {args.who} (revision {saved.interpretation.revision})")
+    signed = f", signed as {args.principal}" if signature else ""
+    _result(args, f"{path}: sign-off {args.state} by {args.who}{signed} (revision {saved.interpretation.revision})")
     if saved.merged:
         _say(args, f"also kept from the file, saved meanwhile by another writer: {', '.join(saved.merged)}")
+        if signature and set(saved.merged) - {"signoff"}:
+            _say(args, "the signature covers the interpretation as it was before that merge, so it will read "
+                       "'signed content differs': look at the merged changes and sign again.")
     return 0
+
+
+def _signature(args: argparse.Namespace, project, interp, when: str):
+    """Sign the step about to be added: the digests of the raw files, this interpretation and its results."""
+    import json
+
+    from .pipeline import interpret
+    from .signatures import StepSignature, digests_of, sign_message, signed_message
+
+    if args.state == "draft":
+        raise ShearbookError("a step back to draft is not signed; sign the checked and approved steps.")
+    if not args.principal or not args.principal.strip():
+        raise ShearbookError("--sign needs --principal: who you are in the reviewers' allowed-signers file "
+                             "(usually your e-mail address).")
+    _say(args, "Running the interpretation to sign its results ...")
+    results = json.loads(interpret(project, interp).to_json())
+    digests = digests_of(results["provenance"]["raw_files"], json.loads(interp.to_json()), results)
+    step = {"state": args.state, "who": args.who, "time_utc": when}
+    sshsig = sign_message(signed_message(step, args.principal, digests), args.sign.expanduser())
+    return StepSignature(principal=args.principal, digests=digests, sshsig=sshsig)
 
 
 def _diff(args: argparse.Namespace) -> int:
@@ -131,10 +160,11 @@ def _verify(args: argparse.Namespace) -> int:
         raise ShearbookError("--scheduler and --workers verify a folder of records; name a folder, not one record.")
     from .verify import project_of
 
-    v = verify_record(args.record, args.project or project_of(args.record))
-    if not (args.quiet and v.ok):  # with -q only a mismatch is printed: it is the failure the run exists to find
+    v = verify_record(args.record, args.project or project_of(args.record), args.allowed_signers,
+                      args.require_signed)
+    if not (args.quiet and v.ok and v.signatures_ok):  # with -q only a failure is printed: what the run exists to find
         sys.stdout.write(v.to_text())
-    return 0 if v.ok else 1
+    return 0 if v.ok and v.signatures_ok else 1
 
 
 def _progress_bar(args: argparse.Namespace) -> Callable[[int, int, Path], None] | None:
@@ -164,10 +194,11 @@ def _verify_folder(args: argparse.Namespace) -> int:
     runner = Runner(jobs=args.jobs, scheduler=args.scheduler, workers=args.workers)
     summary = args.summary or args.record / "verify-summary.csv"
     _say(args, f"Verifying the records under {args.record} on {runner.describe()} ...")
-    outcome = verify_folder(args.record, summary, args.project, progress=_progress_bar(args), runner=runner)
-    bad = [r for r, v, err in outcome if v is None or not v.ok]
+    outcome = verify_folder(args.record, summary, args.project, progress=_progress_bar(args), runner=runner,
+                            allowed_signers=args.allowed_signers, require_signed=args.require_signed)
+    bad = [r for r, v, err in outcome if v is None or not (v.ok and v.signatures_ok)]
     for rec, v, err in outcome:
-        if v is None or not (args.quiet and v.ok):
+        if v is None or not (args.quiet and v.ok and v.signatures_ok):
             print(v.to_text().rstrip() if v else f"{rec}: ERROR - {err}")
     _result(args, f"{len(outcome) - len(bad)} of {len(outcome)} records match; summary table: {summary}")
     return 1 if bad else 0
@@ -327,6 +358,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--workers", type=int, metavar="N",
                    help="verify a folder on a local dask.distributed cluster of N worker processes")
     p.add_argument("--summary", type=Path, help="CSV summary table for a folder (default: FOLDER/verify-summary.csv)")
+    p.add_argument("--allowed-signers", type=Path, metavar="FILE",
+                   help="check sign-off signatures against this file (OpenSSH allowed_signers format)")
+    p.add_argument("--require-signed", action="store_true",
+                   help="fail when a checked or approved step is unsigned")
     p.set_defaults(func=_verify)
     p = sub.add_parser("signoff",
                        help="record a sign-off step (draft -> checked -> approved) in the interpretation file")
@@ -334,6 +369,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--state", choices=("draft", "checked", "approved"), required=True)
     p.add_argument("--who", required=True, help="name of the person signing")
     p.add_argument("--note", default="", help="remark kept with the step")
+    p.add_argument("--sign", type=Path, metavar="KEY",
+                   help="sign the step with your OpenSSH key (ssh-keygen -Y sign; Ed25519), e.g. ~/.ssh/id_ed25519, "
+                        "or the .pub of a key held by ssh-agent")
+    p.add_argument("--principal", help="with --sign: who you are in the allowed-signers file (usually your e-mail)")
     p.set_defaults(func=_signoff)
     p = sub.add_parser("check", help="check a project: every problem of the project file, the interpretation file "
                                      "and the readings files at once (nothing is computed or written)")

@@ -15,12 +15,18 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, Final, Literal
+from typing import (
+    Any,
+    Final,
+    Literal,
+    NotRequired,  # pydantic reads typing_extensions' TypedDict on Python 3.11
+)
 
-from typing_extensions import TypedDict  # pydantic reads typing_extensions' TypedDict on Python 3.11
+from typing_extensions import TypedDict
 
 from .errors import InterpretationFileError
 from .settings import PARTIAL_FACTOR_SETS, STRICT_FILE, PickSettings, RateSettings, ReductionSettings
+from .signatures import Digests, StepSignature
 
 __all__ = [
     "INTERPRETATION_FILE",
@@ -46,15 +52,18 @@ SignOffState = Literal["draft", "checked", "approved"]
 
 
 class SignOffStep(TypedDict):
-    """One step of the sign-off history (append-only)."""
+    """One step of the sign-off history (append-only); ``signature`` when it was signed (signatures.py)."""
 
     state: SignOffState
     who: str
     time_utc: str
     note: str
+    signature: NotRequired[StepSignature]
 
 
-SignOffStep.__pydantic_config__ = STRICT_FILE  # type: ignore[attr-defined]  # a TypedDict body takes no assignment
+# a TypedDict body takes no assignment: the strict file config (unknown keys are errors) is set on each afterwards
+for _typed in (SignOffStep, StepSignature, Digests):
+    _typed.__pydantic_config__ = STRICT_FILE  # type: ignore[attr-defined]
 
 
 def utc_now() -> str:
@@ -319,8 +328,12 @@ class Interpretation:
         """Record the SHA-256 of every raw file the decisions were made against."""
         return dataclasses.replace(self, raw_files=dict(hashes))
 
-    def with_signoff(self, state: Literal["draft", "checked", "approved"], who: str, note: str = "") -> Interpretation:
-        """Move the sign-off state: draft -> checked -> approved, or back to draft. Who and when are kept."""
+    def with_signoff(self, state: Literal["draft", "checked", "approved"], who: str, note: str = "",
+                     time_utc: str | None = None, signature: StepSignature | None = None) -> Interpretation:
+        """Move the sign-off state: draft -> checked -> approved, or back to draft. Who and when are kept.
+
+        ``time_utc`` and ``signature``: a signed step is signed over its time, so the caller gives both.
+        """
         order = ("draft", "checked", "approved")
         if state not in order:
             raise ValueError(f"sign-off state must be one of {', '.join(order)}, not {state!r}")
@@ -331,7 +344,9 @@ class Interpretation:
             )
         if not who.strip():
             raise ValueError("a sign-off needs the name of the person")
-        event = SignOffStep(state=state, who=who, time_utc=utc_now(), note=note)
+        event = SignOffStep(state=state, who=who, time_utc=time_utc or utc_now(), note=note)
+        if signature is not None:
+            event["signature"] = signature
         return dataclasses.replace(self, signoff=SignOff(state, (*self.signoff.history, event)))
 
     def with_design(self, author: str, **changes: Any) -> Interpretation:

@@ -31,6 +31,7 @@ from .interpretation import from_dict
 from .pipeline import interpret
 from .project import load_project
 from .readings import sha256_of
+from .signatures import AllowedSigner, Check, check_step, digests_of, read_allowed_signers
 
 __all__ = ["ABS_TOL", "REL_TOL", "Runner", "Verification", "read_record", "verify_folder", "verify_record"]
 
@@ -107,6 +108,16 @@ class Verification:
     rerun_error: str | None = None  # the re-run raised: nothing could be compared
     shown: tuple[str, ...] = ()  # differences between what the record shows and the re-run's sections
     shown_compared: int = 0  # visible cells, text blocks and plotted points compared
+    signatures: tuple[tuple[str, Check], ...] = ()  # each sign-off step ("checked by X at T") and its check
+    trust_checked: bool = False  # an allowed-signers file was given
+    require_signed: bool = False
+
+    @property
+    def signatures_ok(self) -> bool:
+        """No invalid signature; with allowed signers no unknown key; with require_signed no unsigned step."""
+        bad = {"invalid"} | ({"unknown key"} if self.trust_checked else set()) | (
+            {"unsigned"} if self.require_signed else set())
+        return not any(c.status in bad for _, c in self.signatures)
 
     @property
     def ok(self) -> bool:
@@ -127,6 +138,11 @@ class Verification:
                 else f"within rel {REL_TOL:g} / abs {ABS_TOL:g} (versions differ)")
             head += f"; {self.shown_compared} shown cells, texts and plotted points compared"
         lines = [f"{self.record}: {'MATCH' if self.ok else 'MISMATCH'} - {head}"]
+        if self.signatures:
+            verdict = "signatures ok" if self.signatures_ok else "SIGNATURES FAIL"
+            lines.append(f"  sign-off ({verdict}" + ("" if self.trust_checked else
+                                                     "; signers not checked: give --allowed-signers") + "):")
+            lines += [f"    {step}: {check.text}" for step, check in self.signatures]
         lines += [f"  raw file changed: {f}" for f in self.changed_files]
         if self.rerun_error is not None:
             lines.append(f"  re-run failed: {self.rerun_error}")
@@ -140,12 +156,29 @@ class Verification:
         return "\n".join(lines) + "\n"
 
 
-def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
-    """Re-execute the interpretation of ``record`` on ``project_dir`` and compare every number."""
+def signature_checks(recorded: dict[str, Any], interp_json: dict[str, Any],
+                     allowed: list[AllowedSigner] | None) -> tuple[tuple[str, Check], ...]:
+    """Every sign-off step of the record's interpretation, checked against the record's own data."""
+    now = digests_of(recorded.get("provenance", {}).get("raw_files", {}), interp_json, recorded)
+    steps = interp_json.get("signoff", {}).get("history", [])
+    return tuple((f"{s.get('state')} by {s.get('who')} at {s.get('time_utc')}", check_step(s, now, allowed))
+                 for s in steps if s.get("state") != "draft")
+
+
+def verify_record(record: str | Path, project_dir: str | Path, allowed_signers: str | Path | None = None,
+                  require_signed: bool = False) -> Verification:
+    """Re-execute the interpretation of ``record`` on ``project_dir`` and compare every number.
+
+    The sign-off steps' signatures are checked against the record's own data, and their signers
+    against ``allowed_signers`` (OpenSSH's allowed_signers format) when given.
+    """
+    allowed = read_allowed_signers(Path(allowed_signers)) if allowed_signers else None
     rec_path, root = Path(record).resolve(), Path(project_dir).resolve()
     rec_path, text = _text(rec_path)
     recorded = _block(text, "shearbook-results", rec_path)
     interp_json = _block(text, "shearbook-interpretation", rec_path)
+    signed = {"signatures": signature_checks(recorded, interp_json, allowed), "trust_checked": allowed is not None,
+              "require_signed": require_signed}
     project = load_project(root)
     then_files = recorded.get("provenance", {}).get("raw_files", {})
     now_files = {name: {"sha256": sha256_of(root / name)} for name in then_files if (root / name).is_file()}
@@ -159,7 +192,7 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
         interpretation = from_dict(interp_json, f"{rec_path} (embedded interpretation)")
         results = interpret(project, interpretation)
     except ShearbookError as exc:
-        return Verification(rec_path, root, False, changed, (), 0, rerun_error=str(exc))
+        return Verification(rec_path, root, False, changed, (), 0, rerun_error=str(exc), **signed)
     now = json.loads(results.to_json())
     versions_then = (recorded["provenance"].get("versions"), recorded["provenance"].get("python"))
     exact = versions_then == (now["provenance"]["versions"], now["provenance"]["python"])
@@ -178,7 +211,7 @@ def verify_record(record: str | Path, project_dir: str | Path) -> Verification:
                   + ", ".join(added[:5]) + (" ..." if len(added) > 5 else ""),)
     shown, shown_compared, shown_notes = _visible(text, results, project, interpretation, exact)
     return Verification(rec_path, root, exact, changed, tuple(mismatches), len(a), notes + shown_notes,
-                        shown=tuple(shown), shown_compared=shown_compared)
+                        shown=tuple(shown), shown_compared=shown_compared, **signed)
 
 
 def _visible(text: str, results: Any, project: Any, interpretation: Any,
@@ -206,11 +239,14 @@ def project_of(record: Path) -> Path:
     )
 
 
-def _verify_one(args: tuple[Path, Path | None]) -> tuple[Path, Verification | None, str]:
+Task = tuple[Path, Path | None, Path | None, bool]  # record, project (None: found above it), allowed signers, require
+
+
+def _verify_one(args: Task) -> tuple[Path, Verification | None, str]:
     """One record of a batch; runs in a worker process (local pool or dask worker): never raises."""
-    record, project = args
+    record, project, allowed, require = args
     try:
-        return record, verify_record(record, project or project_of(record)), ""
+        return record, verify_record(record, project or project_of(record), allowed, require), ""
     except Exception as exc:  # a batch reports every record; one broken record must not stop the others
         return record, None, f"{type(exc).__name__}: {exc}"
 
@@ -240,7 +276,7 @@ class Runner:
             return f"a local dask cluster of {self.workers} worker(s)"
         return f"{self.jobs or os.cpu_count() or 1} local process(es)"
 
-    def run(self, tasks: list[tuple[Path, Path | None]]) -> Iterator[Outcome]:
+    def run(self, tasks: list[Task]) -> Iterator[Outcome]:
         """Each task's outcome, in the order they finish."""
         if self.scheduler or self.workers:
             yield from _on_dask(tasks, self.scheduler, self.workers, self.connect_timeout_s)
@@ -252,7 +288,7 @@ class Runner:
                 yield fut.result()
 
 
-def _on_dask(tasks: list[tuple[Path, Path | None]], scheduler: str | None, workers: int | None,
+def _on_dask(tasks: list[Task], scheduler: str | None, workers: int | None,
              timeout_s: float) -> Iterator[Outcome]:
     try:
         from distributed import Client, LocalCluster, as_completed
@@ -283,7 +319,8 @@ def _on_dask(tasks: list[tuple[Path, Path | None]], scheduler: str | None, worke
 
 
 def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Path | None = None,
-                  jobs: int | None = None, progress: Any = None, runner: Runner | None = None) -> list[Outcome]:
+                  jobs: int | None = None, progress: Any = None, runner: Runner | None = None,
+                  allowed_signers: str | Path | None = None, require_signed: bool = False) -> list[Outcome]:
     """Verify every ``*.html`` record under ``folder`` in parallel; write a CSV summary table.
 
     ``runner`` says where (local processes by default, or a dask cluster); ``jobs`` is the number of
@@ -298,7 +335,11 @@ def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Pa
     proj = Path(project).resolve() if project else None
     runner = runner or Runner(jobs=jobs)
     out: list[Outcome] = []
-    for done, outcome in enumerate(runner.run([(r.resolve(), proj) for r in records]), start=1):
+    allowed = Path(allowed_signers).resolve() if allowed_signers else None
+    if allowed is not None:
+        read_allowed_signers(allowed)  # a bad file is said once, before any record is run
+    tasks: list[Task] = [(r.resolve(), proj, allowed, require_signed) for r in records]
+    for done, outcome in enumerate(runner.run(tasks), start=1):
         out.append(outcome)
         if progress:
             progress(done, len(records), outcome[0])
@@ -308,12 +349,12 @@ def verify_folder(folder: str | Path, summary_csv: str | Path, project: str | Pa
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.writer(fh)
         w.writerow(["record", "project", "status", "changed_raw_files", "values_moved", "values_compared",
-                    "shown_differences", "shown_compared", "mode", "error"])
+                    "shown_differences", "shown_compared", "mode", "signatures", "error"])
         for rec, v, err in out:
             if v is None:
-                w.writerow([rec, "", "error", "", "", "", "", "", "", err])
+                w.writerow([rec, "", "error", "", "", "", "", "", "", "", err])
             else:
                 w.writerow([rec, v.project, "match" if v.ok else "mismatch", "; ".join(v.changed_files),
                             len(v.mismatches), v.compared, len(v.shown), v.shown_compared, v.mode,
-                            v.rerun_error or ""])
+                            "; ".join(f"{s}: {c.status}" for s, c in v.signatures), v.rerun_error or ""])
     return out

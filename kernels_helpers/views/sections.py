@@ -23,6 +23,7 @@ from IPython.display import HTML, display
 from ..interpretation import Interpretation
 from ..project import Project
 from ..results import Results
+from ..signatures import Check, check_step, digests_of
 from . import design_views as dv
 from . import tables
 from .consolidation_views import consolidation_figure, rate_table
@@ -145,9 +146,17 @@ def _design(ctx: Context) -> list[Part]:
     return [dv.design_html(ctx.results) + tables.caution_html()]
 
 
+def signature_checks(ctx: Context) -> list[Check]:
+    """Each sign-off step's signature checked against these results and this interpretation (signers not judged)."""
+    assert ctx.interpretation is not None
+    results = json.loads(ctx.results.to_json())
+    now = digests_of(results["provenance"]["raw_files"], json.loads(ctx.interpretation.to_json()), results)
+    return [check_step(step, now, None) for step in ctx.interpretation.signoff.history]
+
+
 def _signoff(ctx: Context) -> list[Part]:
     assert ctx.interpretation is not None
-    return [_h("Sign-off") + tables.signoff_table(ctx.interpretation.signoff)]
+    return [_h("Sign-off") + tables.signoff_table(ctx.interpretation.signoff, signature_checks(ctx))]
 
 
 SECTIONS: dict[str, Callable[[Context], list[Part]]] = {

@@ -14,6 +14,7 @@ from typing import Any
 from ..interpretation import SignOff
 from ..project import Project
 from ..results import EnvelopeResult, Results, StageResult
+from ..signatures import Check
 
 __all__ = [
     "CAUTION",
@@ -257,14 +258,28 @@ def flags_table(results: Results) -> str:
     return table(("stage", "flag"), rows)
 
 
-def signoff_table(signoff: SignOff) -> str:
-    """The sign-off state and every step of it: who, when, with what remark."""
-    state = {"draft": "DRAFT - not checked", "checked": "checked, not yet approved",
-             "approved": "approved"}[signoff.state]
-    rows = [(esc(h.get("state", "")), esc(h.get("who", "")), esc(h.get("time_utc", "")), esc(h.get("note", "")))
-            for h in signoff.history]
-    head = f'<p>Sign-off state: <b>{esc(state)}</b></p>'
-    return head + (table(("step", "who", "when (UTC)", "remark"), rows) if rows else "<p>No sign-off recorded.</p>")
+SIGNOFF_STATES = {"draft": "DRAFT - not checked", "checked": "checked, not yet approved", "approved": "approved"}
+
+
+def _signature_cell(check: Check | None) -> str:
+    if check is None or check.status == "unsigned":
+        return "unsigned (a name only)"
+    css = ' class="sb-flag"' if check.status in ("invalid", "unknown key") else ""
+    return f"<span{css}><b>{esc(check.status)}</b>: {esc(check.detail)}</span>"
+
+
+def signoff_table(signoff: SignOff, checks: Sequence[Check | None] = ()) -> str:
+    """The sign-off state and every step of it: who, when, with what remark, and its signature's check."""
+    checks = list(checks) + [None] * (len(signoff.history) - len(checks))
+    rows = [(esc(h.get("state", "")), esc(h.get("who", "")), esc(h.get("time_utc", "")), esc(h.get("note", "")),
+             _signature_cell(c) if h.get("state") != "draft" else "&ndash;")
+            for h, c in zip(signoff.history, checks, strict=True)]
+    head = f'<p>Sign-off state: <b>{esc(SIGNOFF_STATES[signoff.state])}</b></p>'
+    return head + (table(("step", "who", "when (UTC)", "remark", "signature"), rows) if rows
+                   else "<p>No sign-off recorded.</p>") + (
+        "<p>A signature is checked here against this record's own raw-file hashes, interpretation and results; "
+        "whether its key belongs to an allowed signer is checked by <code>shearbook verify RECORD "
+        "--allowed-signers FILE</code>.</p>" if any(c is not None and c.status != "unsigned" for c in checks) else "")
 
 
 def provenance_table(results: Results, made_utc: str, interpretation_path: str, extra_versions: dict[str, str]) -> str:
