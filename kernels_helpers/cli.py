@@ -205,11 +205,17 @@ def _verify_folder(args: argparse.Namespace) -> int:
 
 
 def _record(args: argparse.Namespace) -> int:
-    from .record import write_record  # nbconvert is imported only by the jobs that need it
+    from .record import find_chromium, write_pdf, write_record  # nbconvert is imported only by the jobs that need it
 
+    if args.pdf and find_chromium() is None:  # said before the workbook runs, and said again after it
+        _say(args, "note: --pdf needs Chromium or Chrome, and none was found; the HTML record is written anyway.")
     _say(args, f"Running the workbook on {args.project} and exporting the record ...")
     record = write_record(args.project, args.output, args.interpretation, view=args.view)
     _result(args, str(record.path))
+    if args.pdf:
+        pdf = record.path.with_suffix(".pdf") if args.pdf is True else args.pdf
+        _say(args, f"Printing it to PDF ({args.paper}) with headless Chromium ...")
+        _result(args, str(write_pdf(record.path, pdf, args.paper)))
     _flags(args, record.results)
     return 0
 
@@ -346,6 +352,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="interpretation file (default: PROJECT/interpretation.json)")
     p.add_argument("--view", choices=("report", "audit"), default="report",
                    help="report hides the code; audit shows it")
+    p.add_argument("--pdf", nargs="?", const=True, type=Path, metavar="FILE",
+                   help="also print the record to PDF with a Chromium or Chrome found on this machine "
+                        "(default FILE: the record's name with .pdf)")
+    p.add_argument("--paper", choices=("a4", "letter"), default="a4", help="paper size of the PDF (default a4)")
     p.set_defaults(func=_record)
     p = sub.add_parser("verify", help="re-run a record (or every record under a folder) and compare every number")
     p.add_argument("record", type=Path, help="a record .html file, or a folder of records (batch, in parallel)")

@@ -8,6 +8,7 @@ own rule (OWASP XSS prevention cheat sheet, rules 1, 2 and 3.1, common practice)
 * JSON inside a ``<script>`` block: ``<``, ``>``, ``&`` and the line separators U+2028/U+2029 as
   ``\\uXXXX`` escapes, so that neither ``</script>`` nor ``<!--`` can end or change the block and the
   text is still the same JSON value (:func:`json_for_script`);
+* a CSS string (the page footer of the print stylesheet): hex escapes (:func:`css_string`);
 * CSS class names and element ids: a key made of ``[A-Za-z0-9_-]`` only (:func:`dom_key`).
 """
 
@@ -19,7 +20,7 @@ import json
 import re
 from typing import Any
 
-__all__ = ["dom_key", "html_text", "json_for_script", "script_safe", "unsafe_in_script"]
+__all__ = ["css_string", "dom_key", "html_text", "json_for_script", "script_safe", "unsafe_in_script"]
 
 _SCRIPT_ESCAPES = {"<": "\\u003c", ">": "\\u003e", "&": "\\u0026", "\u2028": "\\u2028", "\u2029": "\\u2029"}
 _SCRIPT_RE = re.compile("[<>&\u2028\u2029]")
@@ -49,6 +50,15 @@ def unsafe_in_script(text: str) -> list[str]:
     """What in a script block's text could end it or open a comment in it (empty: nothing)."""
     found = re.findall(r"</script|<!--|<script", text, re.I)
     return sorted(set(found)) + (["U+2028/U+2029"] if re.search("[\u2028\u2029]", text) else [])
+
+
+def css_string(value: Any) -> str:
+    """``value`` as a double-quoted CSS string: every character but letters, digits and spaces as a 6-digit escape.
+
+    (OWASP rule 4, common practice.) ``</style>``, quotes and backslashes cannot leave the string.
+    """
+    kept = (c if c.isascii() and (c.isalnum() or c == " ") else f"\\{ord(c):06x}" for c in str(value))
+    return '"' + "".join(kept) + '"'
 
 
 def dom_key(name: str) -> str:

@@ -28,7 +28,7 @@ from .atomic import write_text_atomic
 from .errors import RecordError
 from .escaping import json_for_script, script_safe, unsafe_in_script
 from .interpretation import INTERPRETATION_FILE, load_interpretation
-from .mime import INTERPRETATION_MIME, RESULTS_MIME
+from .mime import INTERPRETATION_MIME, RESULTS_MIME, canonical_text
 from .project import load_project
 from .resources import record_templates_dir, workbook_template
 
@@ -36,7 +36,7 @@ if TYPE_CHECKING:  # imported where used: the kernel starts before these are imp
     import nbformat
     from jupyter_client.manager import AsyncKernelManager
 
-__all__ = ["execute_workbook", "network_references", "write_record"]
+__all__ = ["execute_workbook", "find_chromium", "network_references", "write_pdf", "write_record"]
 
 View = Literal["report", "audit"]
 RECORD_SCHEMA = "shearbook.record/2"  # 2: the visible sections are marked (views.sections) and verified
@@ -225,11 +225,11 @@ def make_scripts_safe(nb: nbformat.NotebookNode) -> nbformat.NotebookNode:
 
 
 def _published(nb: nbformat.NotebookNode, mime: str, template: Path) -> str:
-    """The JSON the workbook published under ``mime`` (views.show_provenance), as canonical text."""
+    """The JSON the workbook published under ``mime`` (views.show_provenance), as mime.canonical_text."""
     for cell in nb.cells:
         for out in cell.get("outputs", []):
             if mime in out.get("data", {}):
-                return json.dumps(out["data"][mime], indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False)
+                return canonical_text(out["data"][mime])
     raise RecordError(f"{template.name}: the workbook published no {mime} output (views.show_provenance); "
                       "no record was written.")
 
@@ -271,8 +271,8 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
         nb = execute_workbook(root, interp_path, template, km=km)
     finally:
         stop_kernel(km)
-    results_json = _published(nb, RESULTS_MIME, template) + "\n"
-    interpretation_json = _published(nb, INTERPRETATION_MIME, template) + "\n"
+    results_json = _published(nb, RESULTS_MIME, template)
+    interpretation_json = _published(nb, INTERPRETATION_MIME, template)
     html_text = export_html(make_scripts_safe(nb), view)
     refs = network_references(html_text)
     if refs:
@@ -285,3 +285,69 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
     _write_atomic(path, html_text)
     return Record(path, len(html_text.encode("utf-8")), hashlib.sha256(results_json.encode()).hexdigest(),
                   json.loads(results_json))
+
+
+# --- the record on paper -----------------------------------------------------------------------------------
+
+Paper = Literal["a4", "letter"]
+CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable", "chrome")
+CHROMIUM_PATHS = ("/Applications/Google Chrome.app/Contents/MacOS/Google Chrome",
+                  "/Applications/Chromium.app/Contents/MacOS/Chromium")
+
+
+def find_chromium() -> str | None:
+    """A Chromium or Chrome on this machine: $SHEARBOOK_CHROMIUM, then the usual names on PATH and places."""
+    import os
+
+    named = os.environ.get("SHEARBOOK_CHROMIUM")
+    if named:
+        return named if Path(named).is_file() else None
+    found = next((shutil.which(n) for n in CHROMIUM_NAMES if shutil.which(n)), None)
+    return found or next((p for p in CHROMIUM_PATHS if Path(p).is_file()), None)
+
+
+def write_pdf(record_html: str | Path, pdf: str | Path, paper: Paper = "a4", timeout_s: int = 240) -> Path:
+    """Print a record to PDF with headless Chromium (every network request refused); written atomically.
+
+    The page size is set for the print only (a copy of the record with ``@page {size: ...}``); the
+    record's own print stylesheet gives the footer (project, record digest, page x of y), a new page
+    for each stage and the figures scaled to the page.
+    """
+    import os
+    import subprocess
+
+    src, out = Path(record_html).resolve(), Path(pdf).resolve()
+    exe = find_chromium()
+    if exe is None:
+        raise RecordError("--pdf needs Chromium or Google Chrome, and none was found (looked for "
+                          f"{', '.join(CHROMIUM_NAMES)} on PATH and $SHEARBOOK_CHROMIUM). Install one (Debian: "
+                          "apt-get install chromium) or set SHEARBOOK_CHROMIUM to its path; the HTML record "
+                          f"{src} was written and can also be printed from any browser.")
+    size = {"a4": "A4", "letter": "letter"}[paper]
+    with tempfile.TemporaryDirectory(prefix="shearbook-pdf-") as tmp:
+        page = Path(tmp) / "record.html"
+        text = src.read_text(encoding="utf-8")
+        head = text.index("</head>")
+        sizes = f"<style>@page {{size: {size};}} @page wide {{size: {size} landscape;}}</style>"
+        page.write_text(text[:head] + sizes + text[head:], encoding="utf-8")
+        target = Path(tmp) / "record.pdf"
+        cmd = [exe, "--headless", "--disable-gpu", "--no-first-run", "--disable-background-networking",
+               "--disable-component-update", "--disable-sync", "--host-resolver-rules=MAP * ~NOTFOUND",
+               f"--user-data-dir={Path(tmp) / 'profile'}", "--no-pdf-header-footer", "--virtual-time-budget=20000",
+               "--run-all-compositor-stages-before-draw", f"--print-to-pdf={target}", page.as_uri()]
+        if hasattr(os, "geteuid") and os.geteuid() == 0:
+            cmd.insert(1, "--no-sandbox")  # Chromium refuses to run as root with its sandbox (containers, CI)
+        try:
+            done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout_s, check=False)
+        except subprocess.TimeoutExpired:
+            raise RecordError(f"{exe} did not finish printing {src} within {timeout_s} s; "
+                              "no PDF was written.") from None
+        if not target.is_file() or target.read_bytes()[:5] != b"%PDF-":
+            said = (done.stderr or "").strip().splitlines()
+            raise RecordError(f"{exe} printed no PDF of {src} (exit {done.returncode}"
+                              + (f": {said[-1]}" if said else "") + "). The HTML record was written.")
+        out.parent.mkdir(parents=True, exist_ok=True)
+        staged = out.with_name(f".{out.name}.tmp")
+        shutil.copyfile(target, staged)
+        os.replace(staged, out)
+    return out

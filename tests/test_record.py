@@ -157,3 +157,29 @@ def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_co
     with pytest.raises(RecordError):
         write_record(example_copy, tmp_path / "never.html", template=broken)
     assert _kernels_of_this_process() == []
+
+
+def test_the_record_opens_with_its_summary_and_no_notebook_instructions(record: tuple[Path, str]) -> None:
+    _, text = record
+    results = _embedded(text, "shearbook-results")
+    body = text[text.index("<body"):]
+    first = body.index('data-sb-section="summary"')
+    assert first < body.index('data-sb-section="header"') < body.index('data-sb-section="stages"')
+    assert "Run all cells" not in text and "Type your name first" not in text  # words for the notebook only
+    summary = body[first: body.index('data-sb-section="header"')]
+    import hashlib
+
+    digest = hashlib.sha256(re.search(r'id="shearbook-results">(.*?)</script>', text, re.S).group(1)
+                            .replace("\\u003c", "<").replace("\\u003e", ">").replace("\\u0026", "&")
+                            .encode()).hexdigest()
+    assert digest in summary  # the digest shown is the SHA-256 of the embedded results
+    for env in results["envelopes"]:
+        fit = env["origin"] if env["reported"] == "zero" else env["free"]
+        if fit is None:
+            continue
+        lo, hi = fit["phi_interval_deg"]
+        assert f"{fit['phi_deg']:.1f} [{lo:.1f}, {hi:.1f}]" in summary
+    d = results["design"]
+    assert f"phi'_k = {d['phi_k_deg']:.1f} deg" in summary and f"phi'_d = {d['design'][0]['phi_d_deg']:.1f}" in summary
+    assert "Open flags on included stages: " in summary and "Sign-off:</b> DRAFT - not checked" in summary
+    assert "National Annex" in summary  # the caution is on the first page

@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import io
+import json
+import re
+import shutil
 from pathlib import Path
 
 import pytest
@@ -147,3 +150,57 @@ def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, tmp_pa
     results = page.evaluate("JSON.parse(document.getElementById('shearbook-results').textContent)")
     assert results["stages"][0]["id"] == "D1 " + PAYLOAD  # the same text after the JSON round trip
     page.close()
+
+
+def _pdf_pages(pdf: Path) -> list[str]:
+    import subprocess
+
+    info = subprocess.run(["pdfinfo", str(pdf)], capture_output=True, text=True, check=True).stdout
+    n = int(re.search(r"^Pages:\s+(\d+)", info, re.M).group(1))
+    return [subprocess.run(["pdftotext", "-layout", "-f", str(i), "-l", str(i), str(pdf), "-"], capture_output=True,
+                           text=True, check=True).stdout for i in range(1, n + 1)]
+
+
+@pytest.mark.skipif(shutil.which("pdftotext") is None, reason="poppler-utils (pdftotext) not installed")
+@pytest.mark.parametrize("paper, size", [("a4", "595.92 x 842.88|594.96 x 841.92"), ("letter", "612 x 792")])
+def test_record_pdf_has_the_numbers_digest_and_every_stage_on_paper(example_copy: Path, artifacts: Path,
+                                                                   paper: str, size: str) -> None:
+    """Printed with Debian chromium; read back with pdftotext (poppler-utils)."""
+    import subprocess
+
+    from kernels_helpers.cli import main
+
+    out = artifacts / f"record-{paper}.html"
+    assert main(["record", str(example_copy), "-o", str(out), "--pdf", "--paper", paper, "-q"]) == 0
+    pdf = out.with_suffix(".pdf")
+    pages = _pdf_pages(pdf)
+    text = "\n".join(pages)
+    rec = out.read_text(encoding="utf-8")
+    results = json.loads(re.search(r'id="shearbook-results">(.*?)</script>', rec, re.S).group(1))
+    digest = re.search(r"Record digest</b>.*?sb-mono\">([0-9a-f]{64})<", rec, re.S).group(1)
+    n = len(pages)
+    assert n > 10
+    for i, page in enumerate(pages, start=1):  # the footer of every page: project, digest, page x of y
+        assert f"page {i} of {n}" in page and f"record {digest[:16]}" in page, f"page {i}: {page[-300:]}"
+    assert "Calculation record: Port Wendle example" in pages[0]  # the summary opens the record
+    env = next(e for e in results["envelopes"] if e["free"])
+    assert f"{env['free']['phi_deg']:.1f} [" in pages[0]
+    for s in results["stages"]:  # each stage starts a page, with its heading at the top
+        starts = [p for p in pages if p.lstrip().startswith(f"Stage {s['id']},")]
+        assert len(starts) == 1, f"stage {s['id']} does not start a page of its own"
+        assert s["id"] in text
+    info = subprocess.run(["pdfinfo", str(pdf)], capture_output=True, text=True, check=True).stdout
+    assert re.search(rf"Page size:\s+({size}) pts", info), info
+
+
+def test_record_pdf_without_chromium_says_how_to_get_one(example_copy: Path, tmp_path: Path,
+                                                         monkeypatch: pytest.MonkeyPatch) -> None:
+    from kernels_helpers.errors import RecordError
+    from kernels_helpers.record import write_pdf
+
+    monkeypatch.setenv("SHEARBOOK_CHROMIUM", str(tmp_path / "no-chromium-here"))
+    html = tmp_path / "r.html"
+    html.write_text("<html><head></head><body>x</body></html>", encoding="utf-8")
+    with pytest.raises(RecordError, match=r"--pdf needs Chromium or Google Chrome.*apt-get install chromium"):
+        write_pdf(html, tmp_path / "r.pdf")
+    assert not (tmp_path / "r.pdf").exists()

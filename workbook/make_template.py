@@ -42,7 +42,8 @@ CELLS = [
     new_markdown_cell(
         "# Direct shear interpretation\n\n"
         "Readings are reduced, peak and critical-state strengths picked and Mohr-Coulomb envelopes fitted by\n"
-        "`kernels_helpers`; every decision lives in the project's interpretation file. Run all cells."
+        "`kernels_helpers`; every decision lives in the project's interpretation file. Run all cells.",
+        metadata=LIVE,  # words for the notebook: the record opens with its summary instead
     ),
     new_code_cell(
         "# Parameters: the project folder (relative to this notebook) and the interpretation file\n"
@@ -58,13 +59,16 @@ CELLS = [
         "views.setup_notebook()"
     ),
     *INTERACTIVE_CELLS,
-    new_markdown_cell("# The record\nWhat the exported record shows, computed from the interpretation file as saved."),
+    new_markdown_cell("# The record\nWhat the exported record shows, computed from the interpretation file as saved.",
+                      metadata=LIVE),
     new_code_cell(
         "project = load_project(project_dir)\n"
         "interpretation_path = Path(interpretation_file or project.root / INTERPRETATION_FILE)\n"
         "results = interpret(project, interpretation_path)\n"
-        "views.show_header(results, project)"
+        "views.show_summary(results, interpretation_path)"
     ),
+    new_markdown_cell("## Project, inputs and specimens"),
+    new_code_cell("views.show_header(results, project)"),
     new_markdown_cell("## Stages\nShear stress, vertical displacement and void ratio against horizontal displacement."),
     new_code_cell("views.show_stages(results)"),
     new_code_cell("views.show_tables(results)"),

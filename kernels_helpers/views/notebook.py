@@ -25,7 +25,7 @@ from .sections import show_section, show_static
 
 __all__ = ["setup_notebook", "show_changes_since_record", "show_consolidation", "show_critical_state_line",
            "show_design", "show_dilatancy", "show_envelope_statistics", "show_envelopes", "show_header",
-           "show_provenance", "show_set_comparison", "show_stages", "show_static", "show_tables"]
+           "show_provenance", "show_set_comparison", "show_stages", "show_static", "show_summary", "show_tables"]
 
 RECORD_PACKAGES = ("bokeh", "jupyterlab", "ipywidgets", "jupyter_bokeh", "nbconvert", "nbclient", "tsdownsample")
 
@@ -52,6 +52,11 @@ def _show_shearbook_error(shell: object, etype: type, value: BaseException, tb: 
     display(HTML(f'<div class="sb-flag sb-error"><b>Shearbook cannot go on:</b><pre>{tables.esc(str(value))}</pre>'
                  "Fix what it names (the raw readings are never changed), then run the cells again.</div>"))
     return [f"ShearbookError: {value}"]
+
+
+def show_summary(results: Results, interpretation_path: str | Path) -> None:
+    """The record's first page: design parameters, envelopes per set, open flags, sign-off, record digest."""
+    show_section("summary", results, interpretation=load_interpretation(interpretation_path))
 
 
 def show_header(results: Results, project: Project) -> None:

@@ -21,6 +21,7 @@ from bokeh.model import Model
 from IPython.display import HTML, display
 
 from ..interpretation import Interpretation
+from ..mime import digest_of
 from ..project import Project
 from ..results import Results
 from ..signatures import Check, check_step, digests_of
@@ -28,6 +29,7 @@ from . import design_views as dv
 from . import tables
 from .consolidation_views import consolidation_figure, rate_table
 from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
+from .first_page import first_page_html
 from .strength_figures import critical_state_figure, taylor_figure
 
 __all__ = ["PART_TAG", "SECTIONS", "Context", "build_section", "show_section", "show_static"]
@@ -154,13 +156,19 @@ def signature_checks(ctx: Context) -> list[Check]:
     return [check_step(step, now, None) for step in ctx.interpretation.signoff.history]
 
 
+def _summary(ctx: Context) -> list[Part]:
+    digest = digest_of(json.loads(ctx.results.to_json()))
+    checks = signature_checks(ctx) if ctx.interpretation is not None else []
+    return [first_page_html(ctx.results, ctx.interpretation, checks, digest)]
+
+
 def _signoff(ctx: Context) -> list[Part]:
     assert ctx.interpretation is not None
     return [_h("Sign-off") + tables.signoff_table(ctx.interpretation.signoff, signature_checks(ctx))]
 
 
 SECTIONS: dict[str, Callable[[Context], list[Part]]] = {
-    "header": _header, "stages": _stages, "picks": _picks, "consolidation": _consolidation,
+    "summary": _summary, "header": _header, "stages": _stages, "picks": _picks, "consolidation": _consolidation,
     "envelopes": _envelopes, "statistics": _statistics, "sets": _sets, "critical_state_line": _critical_state_line,
     "dilatancy": _dilatancy, "design": _design, "signoff": _signoff,
 }

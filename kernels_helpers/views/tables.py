@@ -67,6 +67,31 @@ STYLE = """<style>
 .sb-excluded td {color: #8a8f94;}
 .sb-caution {border-left: 4px solid #b5651d; background: #fbf3ea; padding: 6px 10px; font-size: 13px;}
 .sb-flag {color: #8c2d04;}
+.sb-first-page h1 {font-size: 22px; margin-top: 4px;}
+.sb-mono {font-family: monospace; font-size: 11px; word-break: break-all;}
+@page {margin: 14mm 11mm 16mm 11mm;
+  @bottom-right {content: "page " counter(page) " of " counter(pages); font: 8pt sans-serif; color: #444;}}
+@page wide {size: landscape;}
+@media print {
+  body, .jp-Notebook {font-size: 9pt; background: #fff;}
+  .jp-Cell, .jp-Cell-outputWrapper, .jp-OutputArea, .jp-OutputArea-child, .jp-OutputArea-output {
+    display: block !important; padding: 0 !important; margin: 0 !important; overflow: visible !important;}
+  .jp-OutputArea-child {break-inside: auto !important;}  /* the lab template keeps a whole output on one page */
+  .jp-OutputPrompt, .jp-InputPrompt, .jp-Collapser {display: none !important;}
+  .sb-first-page {break-after: page;}
+  .jp-OutputArea-child:has(.sb-stage) {break-before: page;}
+  .jp-Cell:has([data-sb-section=picks]), .jp-Cell:has([data-sb-section=dilatancy]),
+  .jp-Cell:has([data-sb-section=statistics]) {page: wide;}
+  .sb-table {font-size: 7.5pt; width: 100%; table-layout: auto; border-collapse: collapse;}
+  .sb-table thead {display: table-header-group;}
+  .sb-table tr {break-inside: avoid;}
+  .sb-table td, .sb-table th {padding: 1px 4px; overflow-wrap: break-word;}
+  .sb-first-page .sb-table td:first-child {width: 16%;}
+  h1, h2, h3 {break-after: avoid;}
+  .jp-OutputArea-output:has(> div[data-root-id]) {zoom: 0.6; break-inside: avoid;}
+  .bk-toolbar, .bk-Toolbar {display: none !important;}
+  .sb-caution {break-inside: avoid;}
+}
 </style>"""
 
 

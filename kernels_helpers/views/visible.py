@@ -55,6 +55,7 @@ class _Parts(HTMLParser):
         self._buf: list[str] = []
         self._table: Table | None = None
         self._cell: list[str] | None = None
+        self._skip = 0  # inside <style> or <script>: not text a reader sees
 
     def _flush(self) -> None:
         text = _norm("".join(self._buf))
@@ -71,7 +72,9 @@ class _Parts(HTMLParser):
                 self._items, self._depth = self.found[-1][3], 1
             return
         self._depth += tag == "div"
-        if tag == "br":  # "<br>" and "<br/>" alike: a space, in a cell and in text
+        if tag in ("style", "script"):
+            self._skip += 1
+        elif tag == "br":  # "<br>" and "<br/>" alike: a space, in a cell and in text
             self.handle_startendtag(tag, attrs)
         elif tag == "table":
             self._flush()
@@ -90,7 +93,9 @@ class _Parts(HTMLParser):
     def handle_endtag(self, tag: str) -> None:
         if self._depth == 0:
             return
-        if tag in ("td", "th") and self._cell is not None and self._table:
+        if tag in ("style", "script"):
+            self._skip = max(0, self._skip - 1)
+        elif tag in ("td", "th") and self._cell is not None and self._table:
             self._table[-1].append(_norm("".join(self._cell)))
             self._cell = None
         elif tag == "table" and self._table is not None:
@@ -104,7 +109,7 @@ class _Parts(HTMLParser):
                 self._flush()
 
     def handle_data(self, data: str) -> None:
-        if self._depth:
+        if self._depth and not self._skip:
             (self._cell if self._cell is not None else self._buf).append(data)
 
 
