@@ -18,6 +18,8 @@ from typing import Any
 
 from bokeh.io import curdoc, show
 from bokeh.model import Model
+from bokeh.model.util import collect_models
+from bokeh.models import ColumnDataSource
 from IPython.display import HTML, display
 
 from ..interpretation import Interpretation
@@ -32,9 +34,11 @@ from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
 from .first_page import first_page_html
 from .strength_figures import critical_state_figure, taylor_figure
 
-__all__ = ["PART_TAG", "SECTIONS", "Context", "build_section", "show_section", "show_static"]
+__all__ = ["PART_TAG", "SECTIONS", "SOURCE_TAG", "Context", "build_section", "show_section", "show_static",
+           "sources_of"]
 
 PART_TAG = "sb-part:"  # the tag on a figure's root: "sb-part:<section>:<index>"
+SOURCE_TAG = "sb-source:"  # the tag on each data source of a figure: "sb-source:<n>", in model order
 Part = str | Model
 
 
@@ -180,7 +184,14 @@ def build_section(name: str, ctx: Context) -> list[Part]:
     for i, part in enumerate(parts):
         if isinstance(part, Model):
             part.tags = [*part.tags, f"{PART_TAG}{name}:{i}"]
+            for n, source in enumerate(sources_of(part), start=1):
+                source.tags = [*source.tags, f"{SOURCE_TAG}{n}"]
     return parts
+
+
+def sources_of(part: Model) -> list[ColumnDataSource]:
+    """The data sources of a figure, in Bokeh's own deterministic walk of its models."""
+    return [m for m in collect_models(part) if isinstance(m, ColumnDataSource)]
 
 
 def part_html(name: str, index: int, html: str, args: dict[str, Any] | None = None) -> str:

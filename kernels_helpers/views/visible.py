@@ -21,9 +21,8 @@ from html.parser import HTMLParser
 from typing import Any
 
 import numpy as np
-from bokeh.document import Document
 
-from .sections import PART_TAG, SECTIONS, Context, build_section, part_html
+from .sections import PART_TAG, SECTIONS, SOURCE_TAG, Context, build_section, part_html, sources_of
 
 __all__ = ["Shown", "compare_visible", "read_visible"]
 
@@ -147,13 +146,32 @@ def _objects(value: Any) -> Iterator[dict[str, Any]]:
             yield from _objects(v)
 
 
+def _tag(attributes: dict[str, Any], prefix: str) -> str | None:
+    return next((t for t in attributes.get("tags", []) if isinstance(t, str) and t.startswith(prefix)), None)
+
+
 def _plot(doc: dict[str, Any]) -> tuple[str | None, list[dict[str, Any]]]:
-    """The part tag of a document's root and the data of every source in it, in order."""
-    tag = next((t for root in doc.get("roots", []) for t in root.get("attributes", {}).get("tags", [])
-                if isinstance(t, str) and t.startswith(PART_TAG)), None)
-    sources = [_decode(o["attributes"].get("data", {})) for o in _objects(doc.get("roots", []))
-               if o.get("name") == "ColumnDataSource"]
-    return tag, sources
+    """The part tag of a document's root and the data of its sources, by their tag (untagged ones last)."""
+    tag = next((t for root in doc.get("roots", []) if (t := _tag(root.get("attributes", {}), PART_TAG))), None)
+    found = [(o["attributes"], _decode(o["attributes"].get("data", {}))) for o in _objects(doc.get("roots", []))
+             if o.get("name") == "ColumnDataSource"]
+
+    def order(item: tuple[dict[str, Any], Any]) -> int:
+        t = _tag(item[0], SOURCE_TAG)
+        return int(t[len(SOURCE_TAG):]) if t and t[len(SOURCE_TAG):].isdigit() else 1 << 30
+
+    return tag, [data for _, data in sorted(found, key=order)]
+
+
+def _plain(value: Any) -> Any:
+    """A source column as plain Python values (what the record's JSON decodes to)."""
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, list | tuple):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
 
 
 _DOCS = re.compile(r"const docs_json = (\{.*?\});\n")
@@ -182,10 +200,8 @@ def _rebuilt(name: str, ctx: Context) -> dict[int, list[Item]]:
     for i, part in enumerate(build_section(name, ctx)):
         if isinstance(part, str):
             parts[i] = read_visible(part_html(name, i, part, ctx.extra))[name].parts[i]
-        else:
-            doc = Document()
-            doc.add_root(part)
-            parts[i] = [("plot", _plot(json.loads(json.dumps(doc.to_json(deferred=False))))[1])]
+        else:  # the sources' own data, in their tagged order: no serialisation of the whole figure
+            parts[i] = [("plot", [{k: _plain(v) for k, v in s.data.items()} for s in sources_of(part)])]
     return parts
 
 
