@@ -165,3 +165,33 @@ def benchmark_project(folder: Path, n_stages: int = 12, n_readings: int = 50_000
         stages[f"B{k + 1:02d}"] = (readings(m, x=np.linspace(0.0, 12.0, n_readings)), m.normal_n, "single-stage",
                                    f"set {k // 4 + 1}")
     return write_project(folder, stages)
+
+
+# markup, quotes, a comment opener, a line separator and a non-ASCII letter: every escaping context at once
+PAYLOAD = "\"'><i data-evil=\"1\">x</i><img src=x onerror=alert(1)></script><script>alert(2)</script><!--\u2028é"
+
+
+def hostile_project(folder: Path) -> Path:
+    """The example project with markup in every user text field: names, a stage id, a test set, notes."""
+    import shutil
+
+    from kernels_helpers import save_interpretation
+    from kernels_helpers.interpretation import Interpretation, StageDecision
+
+    project = folder / "hostile"
+    shutil.copytree(Path(__file__).resolve().parent.parent / "example_project", project)
+    (project / "interpretation.json").unlink()
+    quoted = PAYLOAD.replace("\\", "\\\\").replace('"', '\\"').replace("\u2028", "\\u2028")
+    toml = (project / "project.toml").read_text(encoding="utf-8")
+    for old in ('name = "Port Wendle example - stratum B sand"',
+                'site = "Alder Quay extension, Port Wendle (invented)"', 'client = "Wendle Harbour Board (invented)"'):
+        toml = toml.replace(old, old[:-1] + " " + quoted + '"')
+    toml = toml.replace('id = "BH03-D1"', f'id = "D1 {quoted}"')
+    toml = toml.replace('test_set = "BH03 dense"', f'test_set = "dense {quoted}"')
+    toml = toml.replace('description = "Dense sand', f'description = "{quoted} Dense sand', 1)
+    (project / "project.toml").write_text(toml, encoding="utf-8")
+    interp = Interpretation().with_decision("BH03-D2", StageDecision(note=PAYLOAD))
+    interp = interp.with_decision("BH03-L1", StageDecision(included=False, exclusion_reason=PAYLOAD))
+    interp = interp.with_signoff("checked", "A. Checker " + PAYLOAD, PAYLOAD)
+    save_interpretation(interp, project / "interpretation.json")
+    return project

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import pytest
 from PIL import Image, ImageStat
+from synthetic import PAYLOAD, hostile_project
 
 from kernels_helpers.record import write_record
 
@@ -78,35 +79,6 @@ def test_escaped_note_does_not_run_in_the_browser(browser, example_copy: Path, a
     assert dialogs == []
     assert note in page.inner_text("body")  # shown as typed
     page.close()
-
-
-PAYLOAD = "\"'><i data-evil=\"1\">x</i><img src=x onerror=alert(1)></script><script>alert(2)</script><!--\u2028é"
-
-
-def hostile_project(folder: Path) -> Path:
-    """The example project with markup in every user text field: names, a stage id, a test set, notes."""
-    import shutil
-
-    from kernels_helpers import save_interpretation
-    from kernels_helpers.interpretation import Interpretation, StageDecision
-
-    project = folder / "hostile"
-    shutil.copytree(Path(__file__).resolve().parent.parent / "example_project", project)
-    (project / "interpretation.json").unlink()
-    quoted = PAYLOAD.replace("\\", "\\\\").replace('"', '\\"').replace("\u2028", "\\u2028")
-    toml = (project / "project.toml").read_text(encoding="utf-8")
-    for old in ('name = "Port Wendle example - stratum B sand"',
-                'site = "Alder Quay extension, Port Wendle (invented)"', 'client = "Wendle Harbour Board (invented)"'):
-        toml = toml.replace(old, old[:-1] + " " + quoted + '"')
-    toml = toml.replace('id = "BH03-D1"', f'id = "D1 {quoted}"')
-    toml = toml.replace('test_set = "BH03 dense"', f'test_set = "dense {quoted}"')
-    toml = toml.replace('description = "Dense sand', f'description = "{quoted} Dense sand', 1)
-    (project / "project.toml").write_text(toml, encoding="utf-8")
-    interp = Interpretation().with_decision("BH03-D2", StageDecision(note=PAYLOAD))
-    interp = interp.with_decision("BH03-L1", StageDecision(included=False, exclusion_reason=PAYLOAD))
-    interp = interp.with_signoff("checked", "A. Checker " + PAYLOAD, PAYLOAD)
-    save_interpretation(interp, project / "interpretation.json")
-    return project
 
 
 def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, tmp_path: Path, artifacts: Path) -> None:

@@ -205,3 +205,45 @@ def test_drag_peak_and_exclude_stage_are_saved_and_refit(browser, lab: str, exam
         assert [e for e in errors if "Bokeh" in e or "widget" in e.lower()] == []
     finally:
         page.close()
+
+
+def test_markup_in_ids_and_names_neither_runs_nor_breaks_the_live_screen(browser, tmp_path: Path,
+                                                                        artifacts: Path) -> None:
+    """OWASP XSS rules (common practice): the live screen shows ids as text and keys its DOM by dom_key."""
+    from synthetic import PAYLOAD, hostile_project
+
+    from kernels_helpers.escaping import dom_key
+
+    project = hostile_project(tmp_path)
+    (project / "interpretation.json").unlink()  # a fresh start: only the ids and names carry the markup
+    hostile = "D1 " + PAYLOAD
+    with running_lab(project, tmp_path / "jupyter") as url:
+        page = browser.new_page()
+        dialogs: list[str] = []
+        errors: list[str] = []
+        page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+        page.on("pageerror", lambda e: errors.append(str(e)))
+        try:
+            open_and_run_all(page, url, "live-BH03-D2-tau")
+            assert page.evaluate("n => !!Bokeh.index.query_one(v => v.model.name === n)", f"live-{hostile}-tau")
+            assert page.evaluate("document.querySelectorAll('[data-evil], img[src=x], [onerror]').length") == 0
+            assert dialogs == [], dialogs
+            key = dom_key(hostile)
+            assert key != hostile and all(c.isalnum() or c in "_-" for c in key)
+            page.locator(".sb-author input").fill("B. Browser")
+            page.locator(".sb-author input").press("Tab")
+            reason = page.locator(f".sb-reason-{key} input")
+            reason.scroll_into_view_if_needed()
+            reason.fill("markup test: " + PAYLOAD)
+            reason.press("Enter")
+            page.locator(f".sb-include-{key} input[type=checkbox]").click()
+            saved = _wait(lambda: _file(project).get("stages", {}).get(hostile, {}).get("included") is False
+                          and _file(project), 20, "the exclusion of the stage with markup in its id")
+            assert saved["stages"][hostile]["exclusion_reason"] == "markup test: " + PAYLOAD
+            page.wait_for_timeout(500)
+            assert PAYLOAD.split("<img")[0] in page.inner_text("body")  # shown as typed
+            assert page.evaluate("document.querySelectorAll('[data-evil], img[src=x], [onerror]').length") == 0
+            page.screenshot(path=str(artifacts / "workbook-hostile.png"))
+            assert dialogs == [] and [e for e in errors if "Bokeh" in e or "widget" in e.lower()] == []
+        finally:
+            page.close()
