@@ -69,4 +69,4 @@ def dom_key(name: str) -> str:
     if _TIDY.fullmatch(name):
         return name
     tidy = re.sub(r"[^A-Za-z0-9_-]+", "_", name).strip("_")[:40] or "id"
-    return f"{tidy}-{hashlib.sha256(name.encode('utf-8')).hexdigest()[:10]}"
+    return f"{tidy}-{hashlib.sha256(name.encode('utf-8', 'surrogatepass')).hexdigest()[:10]}"
