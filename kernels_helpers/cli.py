@@ -49,7 +49,7 @@ def _export(args: argparse.Namespace) -> int:
     if args.csv is not None:
         from .export_tables import write_tables
 
-        for path in write_tables(results, args.csv):
+        for path in write_tables(results, args.csv, _units(args, project)):
             _result(args, str(path))
     if args.ags4 is not None:
         from .ags4_export import write_ags4
@@ -57,6 +57,13 @@ def _export(args: argparse.Namespace) -> int:
         _result(args, str(write_ags4(project, results, interp, args.ags4, args.date)))
     _flags(args, results.to_dict())
     return 0
+
+
+def _units(args: argparse.Namespace, project):
+    """The display units: --units, else the project's [display] units (what is shown; stored values stay SI)."""
+    from .display_units import display_for
+
+    return display_for(args.units or project.display_units, f"{project.root / 'project.toml'}: [display] units")
 
 
 def _interpretation_of(path: Path):
@@ -144,10 +151,15 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _summary(args: argparse.Namespace) -> int:
+    from .interpretation import INTERPRETATION_FILE, load_interpretation
     from .pipeline import interpret
     from .summary import summary_text
 
-    sys.stdout.write(summary_text(interpret(load_project(args.project), args.interpretation)))  # flags included
+    project = load_project(args.project)
+    path = args.interpretation or project.root / INTERPRETATION_FILE
+    interp = load_interpretation(path)
+    text = summary_text(interpret(project, interp), _units(args, project), interp.signoff)
+    sys.stdout.write(text)  # flags included
     return 0
 
 
@@ -210,7 +222,7 @@ def _record(args: argparse.Namespace) -> int:
     if args.pdf and find_chromium() is None:  # said before the workbook runs, and said again after it
         _say(args, "note: --pdf needs Chromium or Chrome, and none was found; the HTML record is written anyway.")
     _say(args, f"Running the workbook on {args.project} and exporting the record ...")
-    record = write_record(args.project, args.output, args.interpretation, view=args.view)
+    record = write_record(args.project, args.output, args.interpretation, view=args.view, units=args.units)
     _result(args, str(record.path))
     if args.pdf:
         pdf = record.path.with_suffix(".pdf") if args.pdf is True else args.pdf
@@ -356,6 +368,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also print the record to PDF with a Chromium or Chrome found on this machine "
                         "(default FILE: the record's name with .pdf)")
     p.add_argument("--paper", choices=("a4", "letter"), default="a4", help="paper size of the PDF (default a4)")
+    p.add_argument("--units", choices=("SI", "US"), type=str.upper,
+                   help="display units for this run: SI (kPa, mm, N) or US customary (psf, in, lbf); default: the "
+                        "project's [display] units. Stored values and the results JSON stay SI")
     p.set_defaults(func=_record)
     p = sub.add_parser("verify", help="re-run a record (or every record under a folder) and compare every number")
     p.add_argument("record", type=Path, help="a record .html file, or a folder of records (batch, in parallel)")
@@ -392,6 +407,9 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("summary", help="print picks (beside the suggestions), exclusions, flags and envelopes as text")
     p.add_argument("project", type=Path)
     p.add_argument("-i", "--interpretation", type=Path)
+    p.add_argument("--units", choices=("SI", "US"), type=str.upper,
+                   help="display units for this run: SI (kPa, mm, N) or US customary (psf, in, lbf); default: the "
+                        "project's [display] units. Stored values and the results JSON stay SI")
     p.set_defaults(func=_summary)
     p = sub.add_parser("diff", help="what changed between two interpretation files of a project, in words")
     p.add_argument("project", type=Path)
@@ -408,6 +426,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--csv", type=Path, metavar="FOLDER", help="folder for stages.csv, envelopes.csv, sensitivity.csv")
     p.add_argument("--ags4", type=Path, metavar="FILE", help="AGS4 file of the shear box groups SHBG and SHBT")
     p.add_argument("--date", help="TRAN_DATE of the AGS4 file, yyyy-mm-dd (default: today, UTC)")
+    p.add_argument("--units", choices=("SI", "US"), type=str.upper,
+                   help="display units for this run: SI (kPa, mm, N) or US customary (psf, in, lbf); default: the "
+                        "project's [display] units. Stored values and the results JSON stay SI")
     p.set_defaults(func=_export)
     p = sub.add_parser("import", help="create a project from a folder of laboratory files and a specimen table")
     p.add_argument("folder", type=Path, help="folder of readings files (CSV, TSV, semicolon, XLSX); only read")

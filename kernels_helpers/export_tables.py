@@ -1,9 +1,11 @@
 """CSV tables of the results: one row per stage, per envelope fit, per leave-one-out refit.
 
 Plain data in (the results JSON form, ``Results.to_dict()``), rows out; units are in the column
-names (``tau_kpa``, ``x_mm``, ``phi_deg``). Numbers are written at full precision (Python's
-shortest round-trip form) so that a table read back gives the results' numbers exactly; a value
-that cannot be computed is an empty cell. Booleans are ``True``/``False``.
+names (``tau_kpa``, ``x_mm``, ``phi_deg``). In US customary display units (:func:`in_units`) the
+stress, length and force columns are converted and renamed alike (``tau_psf``, ``x_in``,
+``normal_force_lbf``); angles, ratios and void ratios are the same in both. Numbers are written
+at full precision (Python's shortest round-trip form) so that a table read back gives the results'
+numbers exactly; a value that cannot be computed is an empty cell. Booleans are ``True``/``False``.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any, Final
 
+from .display_units import SI, Display
 from .results import Results
 
 __all__ = [
@@ -22,6 +25,7 @@ __all__ = [
     "STAGE_COLUMNS",
     "TABLE_FILES",
     "envelope_rows",
+    "in_units",
     "sensitivity_rows",
     "stage_rows",
     "table_text",
@@ -113,6 +117,28 @@ def sensitivity_rows(results: Results | Mapping[str, Any]) -> list[dict[str, Any
     return [{k: r[k] for k in SENSITIVITY_COLUMNS} for r in _plain(results)["sensitivity"]]
 
 
+_SUFFIX_QUANTITY: Final = {"_kpa": "stress", "_mm": "length", "_n": "force"}
+
+
+def _column_in(name: str, u: Display) -> tuple[str, float]:
+    """A column's name in display units and the factor of its values (1.0 when it has no unit)."""
+    for suffix, quantity in _SUFFIX_QUANTITY.items():
+        if name.endswith(suffix):
+            return name[: -len(suffix)] + "_" + u.unit(quantity).lower(), u.factor(quantity)  # type: ignore[arg-type]
+    return name, 1.0
+
+
+def in_units(columns: Sequence[str], rows: Sequence[Mapping[str, Any]],
+             u: Display) -> tuple[tuple[str, ...], list[dict[str, Any]]]:
+    """The columns renamed for ``u`` and the rows' values converted; SI returns them as they are."""
+    if u.is_si:
+        return tuple(columns), [dict(r) for r in rows]
+    named = {c: _column_in(c, u) for c in columns}
+    out = [{named[c][0]: (r[c] * named[c][1] if isinstance(r[c], int | float) and not isinstance(r[c], bool)
+                          and named[c][1] != 1.0 else r[c]) for c in columns} for r in rows]
+    return tuple(named[c][0] for c in columns), out
+
+
 def _cell(value: Any) -> Any:
     return "" if value is None else value  # csv writes floats as repr: the shortest exact round trip
 
@@ -126,9 +152,9 @@ def table_text(columns: Sequence[str], rows: Sequence[Mapping[str, Any]]) -> str
     return out.getvalue()
 
 
-def write_tables(results: Results | Mapping[str, Any], folder: str | Path) -> list[Path]:
+def write_tables(results: Results | Mapping[str, Any], folder: str | Path, u: Display = SI) -> list[Path]:
     """Write ``stages.csv``, ``envelopes.csv`` and ``sensitivity.csv`` (UTF-8) into ``folder``
-    (made if missing); return their paths."""
+    (made if missing), in the display units ``u``; return their paths."""
     plain = _plain(results)
     target = Path(folder)
     target.mkdir(parents=True, exist_ok=True)
@@ -140,6 +166,6 @@ def write_tables(results: Results | Mapping[str, Any], folder: str | Path) -> li
     paths = []
     for name, (columns, rows) in zip(TABLE_FILES, tables, strict=True):
         path = target / name
-        path.write_text(table_text(columns, rows), encoding="utf-8", newline="")
+        path.write_text(table_text(*in_units(columns, rows, u)), encoding="utf-8", newline="")
         paths.append(path)
     return paths

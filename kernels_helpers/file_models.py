@@ -192,12 +192,19 @@ class DesignTable(_Table):
         return value
 
 
+class DisplayTable(_Table):
+    """``[display]``: how numbers are shown; stored values stay SI (display_units.py)."""
+
+    units: Literal["SI", "US"] = "SI"  # "US": US customary (psf, in, lbf); stored values stay SI
+
+
 class ProjectFile(_Table):
     """The project file ``project.toml``."""
 
     schema_: Literal["shearbook.project/1"] = Field(alias="schema")
     project: ProjectMeta = ProjectMeta()
     design: DesignTable = DesignTable()
+    display: DisplayTable = DisplayTable()
     stage_defaults: StageTable = StageTable()
     stage: Annotated[list[StageTable], Field(min_length=1)]
 

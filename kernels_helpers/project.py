@@ -151,6 +151,7 @@ class Project:
     stages: tuple[StageSpec, ...]
     design_stress_range_kpa: tuple[float, float] | None = None
     raw: Mapping[str, Any] = field(default_factory=dict, repr=False)
+    display_units: str = "SI"  # [display] units: "SI" or "US" (US customary); what is shown, never what is stored
 
     @property
     def name(self) -> str:
@@ -446,4 +447,6 @@ def load_project(folder: str | Path) -> Project:
     design = raw.get("design", {})
     rng = design.get("normal_stress_range_kpa")
     stress_range = (float(rng[0]), float(rng[1])) if rng else None
-    return Project(root=root, meta=raw.get("project", {}), stages=stages, design_stress_range_kpa=stress_range, raw=raw)
+    units = str(raw.get("display", {}).get("units", "SI"))
+    return Project(root=root, meta=raw.get("project", {}), stages=stages, design_stress_range_kpa=stress_range, raw=raw,
+                   display_units=units)

@@ -91,7 +91,7 @@ def stop_kernel(km: AsyncKernelManager) -> None:
 
 def execute_workbook(project_dir: Path, interpretation_file: Path | None = None, template: Path | None = None,
                      timeout_s: int = 600, live: bool = False,
-                     km: AsyncKernelManager | None = None) -> nbformat.NotebookNode:
+                     km: AsyncKernelManager | None = None, units: str | None = None) -> nbformat.NotebookNode:
     """Execute the template on a project; raise :class:`RecordError` naming the first failed cell.
 
     ``live=False`` (the record) leaves out the cells of the live screen (tagged ``interactive``):
@@ -103,14 +103,14 @@ def execute_workbook(project_dir: Path, interpretation_file: Path | None = None,
     if own:
         km = start_kernel(project_dir)
     try:
-        return _execute(project_dir, interpretation_file, template, timeout_s, live, km)
+        return _execute(project_dir, interpretation_file, template, timeout_s, live, km, units)
     finally:
         if own:
             stop_kernel(km)
 
 
 def _execute(project_dir: Path, interpretation_file: Path | None, template: Path, timeout_s: int, live: bool,
-             km: AsyncKernelManager) -> nbformat.NotebookNode:
+             km: AsyncKernelManager, units: str | None = None) -> nbformat.NotebookNode:
     import nbformat
     from nbclient import NotebookClient
     from nbclient.exceptions import CellExecutionError
@@ -122,6 +122,8 @@ def _execute(project_dir: Path, interpretation_file: Path | None, template: Path
         nb.cells = [c for c in nb.cells if LIVE_TAG not in c.get("metadata", {}).get("tags", [])]
     params: dict[str, object] = {"project_dir": str(project_dir.resolve())}
     params["interpretation_file"] = str(interpretation_file.resolve()) if interpretation_file else None
+    if units is not None:
+        params["display_units"] = units
     inject_parameters(nb, params)
     client = NotebookClient(nb, km=km, timeout=timeout_s, kernel_name=KERNEL)
     try:
@@ -259,8 +261,11 @@ def default_record_path(project_dir: Path, view: View) -> Path:
 
 
 def write_record(project_dir: str | Path, out: str | Path | None = None, interpretation_file: str | Path | None = None,
-                 view: View = "report", template: Path | None = None) -> Record:
-    """Execute the workbook on ``project_dir`` and write the HTML record; return where and what."""
+                 view: View = "report", template: Path | None = None, units: str | None = None) -> Record:
+    """Execute the workbook on ``project_dir`` and write the HTML record; return where and what.
+
+    ``units``: "SI" or "US" to show the record in those display units (None: the project's own).
+    """
     root = Path(project_dir).resolve()
     template = template or workbook_template()
     load_project(root)  # fail early with the project file's own message
@@ -268,7 +273,7 @@ def write_record(project_dir: str | Path, out: str | Path | None = None, interpr
     km = start_kernel(root)  # it starts while the interpretation file is checked and nbconvert imported
     try:
         load_interpretation(interp_path)
-        nb = execute_workbook(root, interp_path, template, km=km)
+        nb = execute_workbook(root, interp_path, template, km=km, units=units)
     finally:
         stop_kernel(km)
     results_json = _published(nb, RESULTS_MIME, template)

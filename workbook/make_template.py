@@ -23,7 +23,7 @@ INTERACTIVE_CELLS = [
     ),
     new_code_cell(
         "from kernels_helpers.views.widgets import live_workbook\n\n"
-        "live = live_workbook(project_dir, interpretation_file)\n"
+        "live = live_workbook(project_dir, interpretation_file, units=display_units)\n"
         "live.top",
         metadata=LIVE,
     ),
@@ -49,7 +49,10 @@ CELLS = [
         "# Parameters: the project folder (relative to this notebook) and the interpretation file\n"
         "# (None: the project's own interpretation.json; all suggestions when it does not exist yet).\n"
         'project_dir = "../example_project"\n'
-        "interpretation_file = None",
+        "interpretation_file = None\n"
+        '# display units: "SI" (kPa, mm, N) or "US" (psf, in, lbf); None: the project\'s [display] units.\n'
+        "# Only what is shown changes: the interpretation file and the results stay SI.\n"
+        "display_units = None",
         metadata={"tags": ["parameters"]},
     ),
     new_code_cell(
@@ -64,6 +67,7 @@ CELLS = [
     new_code_cell(
         "project = load_project(project_dir)\n"
         "interpretation_path = Path(interpretation_file or project.root / INTERPRETATION_FILE)\n"
+        "views.use_units(display_units or project.display_units)\n"
         "results = interpret(project, interpretation_path)\n"
         "views.show_summary(results, interpretation_path)"
     ),

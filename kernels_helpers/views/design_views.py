@@ -12,6 +12,7 @@ from collections.abc import Sequence
 from ..compare import overlaps_pooled
 from ..design import PARTIAL_FACTOR_SETS
 from ..dilatancy import DAVIS_JEWELL_ASSUMPTIONS
+from ..display_units import SI, Display
 from ..results import Results
 from .tables import esc, num, table
 
@@ -30,7 +31,7 @@ def _kind(kind: str) -> str:
     return esc(kind.replace("_", " "))
 
 
-def statistics_table(results: Results) -> str:
+def statistics_table(results: Results, u: Display = SI) -> str:
     """Per envelope: secant angle per stage, the power law with secant/tangent angles, residuals side by side."""
     dash = "&ndash;"
     rows = []
@@ -39,21 +40,26 @@ def statistics_table(results: Results) -> str:
             continue
         pw, cv = st.power, st.curvature
         law = dash if pw is None else f"a {pw.a:.4g} (SE {num(pw.a_se, 3)}), b {pw.b:.4f} (SE {num(pw.b_se, 4)})"
-        remark = esc(cv.statement) if cv else esc(st.power_not_fitted or "")
+        remark = cv.statement if cv else (st.power_not_fitted or "")
         sigma = results.envelope(st.group, st.kind).sigma_kpa
         for i, sid in enumerate(st.stage_ids):
             rows.append((
-                esc(st.group), _kind(st.kind), esc(sid), num(sigma[i], 1), num(st.secant_phi_deg[i], 1),
+                esc(st.group), _kind(st.kind), esc(sid), u.fmt("stress", sigma[i], 1), num(st.secant_phi_deg[i], 1),
                 num(st.power_phi_secant_deg[i], 1) if pw else dash, num(st.power_phi_tangent_deg[i], 1) if pw else dash,
-                f"{cv.line_residuals[i]:+.2f}" if cv else dash, f"{cv.power_residuals[i]:+.2f}" if cv else dash,
-                law if i == 0 else "", remark if i == 0 else "",
+                _signed(u, cv.line_residuals[i]) if cv else dash, _signed(u, cv.power_residuals[i]) if cv else dash,
+                law if i == 0 else "", esc(u.annotate(remark)) if i == 0 else "",
             ))
-    return table(("group", "envelope", "stage", "sigma' (kPa)", "phi' secant (deg)", "power law phi' secant (deg)",
-                  "power law phi' tangent (deg)", "straight-line residual (kPa)", "power-law residual (kPa)",
-                  "power law tau = a sigma'^b (kPa)", "curvature"), rows)
+    return table(("group", "envelope", "stage", u.label("sigma'", "stress"), "phi' secant (deg)",
+                  "power law phi' secant (deg)", "power law phi' tangent (deg)",
+                  u.label("straight-line residual", "stress"), u.label("power-law residual", "stress"),
+                  "power law tau = a sigma'^b (fitted in kPa)", "curvature"), rows)
 
 
-def power_law_angle_table(results: Results, stresses_kpa: Sequence[float] | None = None) -> str:
+def _signed(u: Display, value: float) -> str:
+    return ("+" if value >= 0 else "") + u.fmt("stress", value, 2)
+
+
+def power_law_angle_table(results: Results, stresses_kpa: Sequence[float] | None = None, u: Display = SI) -> str:
     """Power-law secant and tangent angles at the stresses named (default: ends and middle of the design range)."""
     if stresses_kpa is None:
         rng = results.design.stress_range_kpa if results.design is not None else None
@@ -68,11 +74,13 @@ def power_law_angle_table(results: Results, stresses_kpa: Sequence[float] | None
         pw = st.power
         cells = [f"{float(pw.phi_secant_deg(s)):.1f} / {float(pw.phi_tangent_deg(s)):.1f}" for s in stresses]
         rows.append((esc(st.group), _kind(st.kind), *cells))
-    heads = ("group", "envelope", *(f"secant / tangent phi' at {s:g} kPa (deg)" for s in stresses))
+    heads = ("group", "envelope",
+             *(f"secant / tangent phi' at {s:g} kPa" + ("" if u.is_si else f" [{u.with_unit('stress', s)}]")
+               + " (deg)" for s in stresses))
     return "<p>Power-law secant and tangent friction angles at the stresses named:</p>" + table(heads, rows)
 
 
-def set_comparison_table(results: Results) -> str:
+def set_comparison_table(results: Results, u: Display = SI) -> str:
     """Each test set's phi' (and c') with its interval beside the pooled envelope, and the F-test statement."""
     if not results.set_comparisons:
         return "<p>No stratum holds more than one test set: nothing to compare.</p>"
@@ -84,7 +92,8 @@ def set_comparison_table(results: Results) -> str:
         for name, f in named:
             lo, hi = f.phi_interval_deg
             c_lo, c_hi = f.c_interval_kpa
-            c = "0 (fixed)" if f.through_origin else f"{f.intercept:.1f} [{c_lo:.1f}, {c_hi:.1f}]"
+            c = "0 (fixed)" if f.through_origin else (
+                f"{u.fmt('stress', f.intercept, 1)} [{u.fmt('stress', c_lo, 1)}, {u.fmt('stress', c_hi, 1)}]")
             overlap = ""
             if cmp.pooled is not None and f is not cmp.pooled:
                 inside = overlaps_pooled(f, cmp.pooled)
@@ -92,9 +101,10 @@ def set_comparison_table(results: Results) -> str:
             rows.append((esc(cmp.group), _kind(cmp.kind), esc(name), str(f.n), f"{f.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]",
                          c, overlap))
         rows.append((esc(cmp.group), _kind(cmp.kind), "<b>test</b>", "", "", "",
-                     esc(cmp.statement) + "".join(f"<br>{esc(x)}" for x in cmp.left_out)))
+                     esc(u.annotate(cmp.statement)) + "".join(f"<br>{esc(u.annotate(x))}" for x in cmp.left_out)))
     method = esc(results.set_comparisons[0].method)
-    heads = ("group", "envelope", "set", "n", "phi' (deg) [95 % CI]", "c' (kPa) [95 % CI]", "comparison")
+    heads = ("group", "envelope", "set", "n", "phi' (deg) [95 % CI]", f"c' ({u.unit('stress')}) [95 % CI]",
+             "comparison")
     return table(heads, rows) + f"<p>Method: {method}. Interval overlap is a visual aid, not a test.</p>"
 
 
@@ -106,7 +116,7 @@ def _by_set(line) -> str:
     return ", ".join(f"{esc(t or 'stages')} {sum(v) / len(v):+.3f}" for t, v in sets.items())
 
 
-def critical_state_table(results: Results) -> str:
+def critical_state_table(results: Results, u: Display = SI) -> str:
     rows = []
     for line in results.critical_state_lines:
         f = line.fit
@@ -116,8 +126,8 @@ def critical_state_table(results: Results) -> str:
                      _by_set(line)))
     if not rows:
         return "<p>No group has three or more critical-state values: no critical-state line.</p>"
-    return table(("group", "n", "lambda (slope of e on ln sigma')", "e at 1 kPa", "e at 100 kPa", "R^2",
-                  "residuals of e", "mean residual by test set"), rows) + (
+    return table(("group", "n", "lambda (slope of e on ln sigma')", u.annotate("e at 1 kPa"),
+                  u.annotate("e at 100 kPa"), "R^2", "residuals of e", "mean residual by test set"), rows) + (
         "<p>e_cs = e_1 - lambda ln(sigma'/1 kPa), least squares (n - 2 dof). In the shear box the normal stress "
         "stands in for p': these are box values, not triaxial ones. The void ratio is a specimen average; the "
         "shear zone may differ.</p>")
@@ -145,11 +155,6 @@ def dilatancy_table(results: Results) -> str:
         "plane-strain estimate of the measured difference.</p>")
 
 
-def _kpa(value: float | None) -> str:
-    """One decimal, without a "-0.0" for a tiny negative value."""
-    return num(None if value is None else round(value, 1) + 0.0, 1)
-
-
 def design_caution_html(text: str) -> str:
     return f'<div class="sb-caution"><b>Caution: design values.</b> {esc(text)}</div>'
 
@@ -168,20 +173,20 @@ def _statistics_rows(st) -> str:
     return table(("EN 1990 Annex D on tan phi'", "value"), rows)
 
 
-def design_html(results: Results) -> str:
+def design_html(results: Results, u: Display = SI) -> str:
     """Characteristic values with the method, the EN 1990 comparison and design values with partial factors."""
     d = results.design
     if d is None:
         return "<p>No design values were derived.</p>"
     ch = d.choices
+    lo, hi = d.stress_range_kpa if d.stress_range_kpa else (None, None)
     who = f"{esc(ch.author)} at {esc(ch.time_utc)}" if ch.author else "<b>not yet chosen by an engineer (defaults)</b>"
     choice_rows = [
         ("envelope", f"{esc(d.group)}, {_kind(d.kind)}"), ("parameter choice", esc(d.parameter_note)),
         ("limit state", esc(ch.limit_state) + (" (mean: large zone governs)" if ch.limit_state == "large zone" else
                                                " (5 % fractile: local failure)")),
-        ("design normal-stress range", f"{num(d.stress_range_kpa[0] if d.stress_range_kpa else None, 0)}&ndash;"
-                                       f"{num(d.stress_range_kpa[1] if d.stress_range_kpa else None, 0)} kPa "
-                                       f"({esc(d.range_source)})"),
+        ("design normal-stress range", f"{u.fmt('stress', lo, 0)}&ndash;{u.fmt('stress', hi, 0)} "
+                                       f"{u.unit('stress')} ({esc(d.range_source)})"),
         ("chosen by", who),
     ]
     out = [design_caution_html(d.caution), table(("choice", "value"), choice_rows)]
@@ -189,19 +194,20 @@ def design_html(results: Results) -> str:
         out.append(f'<p class="sb-flag">Not derived: {esc(d.not_derived)}</p>')
         return "".join(out)
     out.append(table(("characteristic value", "value"), [
-        ("c'_k (kPa)", _kpa(d.c_k_kpa)), ("phi'_k (deg)", num(d.phi_k_deg, 1)), ("tan phi'_k", num(d.tan_phi_k, 4)),
-        ("method", esc(d.method)),
+        (u.label("c'_k", "stress"), u.fmt("stress", d.c_k_kpa, 1)), ("phi'_k (deg)", num(d.phi_k_deg, 1)),
+        ("tan phi'_k", num(d.tan_phi_k, 4)), ("method", esc(u.annotate(d.method))),
     ]))
-    out += [f'<p class="sb-flag">{esc(f)}</p>' for f in d.flags]
+    out += [f'<p class="sb-flag">{esc(u.annotate(f))}</p>' for f in d.flags]
     out.append(_statistics_rows(d.tan_phi_statistics))
     rows = []
     for v in d.design:
         table_a4 = v.set_name in PARTIAL_FACTOR_SETS
         src = " (EN 1997-1 Annex A Table A.4, recommended)" if table_a4 else " (engineer's values)"
         chosen = " <b>(chosen)</b>" if v is d.design[0] else ""
-        rows.append((esc(v.set_name) + esc(src) + chosen, f"{v.gamma_phi:g}", f"{v.gamma_c:g}", _kpa(v.c_d_kpa),
-                     num(v.tan_phi_d, 4), num(v.phi_d_deg, 1)))
-    heads = ("partial factor set", "gamma_phi' (on tan phi')", "gamma_c'", "c'_d (kPa)", "tan phi'_d", "phi'_d (deg)")
+        rows.append((esc(v.set_name) + esc(src) + chosen, f"{v.gamma_phi:g}", f"{v.gamma_c:g}",
+                     u.fmt("stress", v.c_d_kpa, 1), num(v.tan_phi_d, 4), num(v.phi_d_deg, 1)))
+    heads = ("partial factor set", "gamma_phi' (on tan phi')", "gamma_c'", u.label("c'_d", "stress"), "tan phi'_d",
+             "phi'_d (deg)")
     out.append(table(heads, rows))
     out.append("<p>tan phi'_d = tan phi'_k / gamma_phi'; c'_d = c'_k / gamma_c'. The National Annex or local code in "
                "force governs the factors and the design approach; edit them in the interpretation file's "

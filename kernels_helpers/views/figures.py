@@ -25,8 +25,8 @@ from bokeh.models import (
 from bokeh.plotting import figure
 from tsdownsample import LTTBDownsampler
 
+from ..display_units import SI, Display
 from ..results import EnvelopeResult, Results, StageResult
-from .tables import num
 
 __all__ = ["DISPLAY_POINTS", "decimate", "envelope_figure", "linked_row", "stage_figure"]
 
@@ -53,10 +53,11 @@ def decimate(x: np.ndarray, columns: list[np.ndarray], n_out: int = DISPLAY_POIN
     return np.array(sorted(keep))
 
 
-def _panel(title: str, y_label: str, name: str, x_range=None) -> figure:
+def _panel(title: str, y_label: str, name: str, x_range=None, u: Display = SI) -> figure:
     shared = {"x_range": x_range} if x_range is not None else {}
-    p = figure(title=title, height=220, width=380, tools=TOOLS, name=name, x_axis_label="horizontal displacement (mm)",
-               y_axis_label=y_label, toolbar_location=None, **shared)
+    p = figure(title=title, height=220, width=380, tools=TOOLS, name=name,
+               x_axis_label=u.label("horizontal displacement", "length"), y_axis_label=y_label, toolbar_location=None,
+               **shared)
     p.title.text_font_size = "11px"
     return p
 
@@ -83,47 +84,57 @@ def _draw(p: figure, glyph, source: ColumnDataSource) -> GlyphRenderer:
     return r
 
 
-def stage_figure(s: StageResult):
-    """Shear stress, vertical displacement and void ratio against horizontal displacement."""
+STAGE_COLUMNS = {"x_mm": "length", "tau_kpa": "stress", "y_mm": "length", "e": None, "dydx": None, "ratio": None}
+
+
+def stage_figure(s: StageResult, u: Display = SI):
+    """Shear stress, vertical displacement and void ratio against horizontal displacement (in display units).
+
+    The source columns keep their canonical names (x_mm, tau_kpa, y_mm) and hold display units.
+    """
     c = s.reduced.curve
     shear = c[c["in_shear"]]
     x = shear["x_mm"].to_numpy()
     keep = decimate(x, [shear["tau_kpa"].to_numpy(), shear["y_mm"].to_numpy()])
     d = shear.iloc[keep]
     # float32 is ample for drawing (7 digits) and halves the record; the computation keeps float64
-    src = ColumnDataSource(
-        {k: d[k].to_numpy(dtype=np.float32) for k in ("x_mm", "tau_kpa", "y_mm", "e", "dydx", "ratio")}
-    )
-    label = f"{s.stage_id}: sigma'n {s.sigma_nominal_kpa:.0f} kPa" + ("" if s.included else " (excluded)")
+    src = ColumnDataSource({k: (d[k].to_numpy() * (u.factor(q) if q else 1.0)).astype(np.float32)
+                            for k, q in STAGE_COLUMNS.items()})
+    L, S, F = u.factor("length"), u.factor("stress"), u.unit
+    in_set = f" ({s.test_set})" if s.test_set else ""
+    label = f"{s.stage_id}{in_set}: sigma'n {u.with_unit('stress', s.sigma_nominal_kpa, 0)}" + (
+        "" if s.included else " (excluded)")
     colour = INK if s.included else GREY
-    tau = _panel(f"{label} - shear stress", "shear stress tau (kPa)", f"stage-{s.stage_id}-tau")
-    vert = _panel("vertical displacement (dilation +)", "vertical displacement (mm)", f"stage-{s.stage_id}-y",
-                  tau.x_range)
-    void = _panel("void ratio", "void ratio e", f"stage-{s.stage_id}-e", tau.x_range)
+    tau = _panel(f"{label} - shear stress", f"shear stress tau ({F('stress')})", f"stage-{s.stage_id}-tau", u=u)
+    vert = _panel("vertical displacement (dilation +)", f"vertical displacement ({F('length')})",
+                  f"stage-{s.stage_id}-y", tau.x_range, u=u)
+    void = _panel("void ratio", "void ratio e", f"stage-{s.stage_id}-e", tau.x_range, u=u)
     items = {"readings": [_draw(tau, Line(x="x_mm", y="tau_kpa", line_color=colour, line_width=1.2), src)]}
     _draw(vert, Line(x="x_mm", y="y_mm", line_color=colour, line_width=1.2), src)
     _draw(void, Line(x="x_mm", y="e", line_color=colour, line_width=1.2), src)
-    hover = [("x", "@x_mm{0.000} mm"), ("tau", "@tau_kpa{0.0} kPa"), ("y", "@y_mm{0.000} mm"), ("e", "@e{0.0000}"),
-             ("dy/dx", "@dydx{+0.0000}")]
+    lfmt, sfmt = ("0.000", "0.0") if u.is_si else ("0.0000", "0")
+    hover = [("x", f"@x_mm{{{lfmt}}} {F('length')}"), ("tau", f"@tau_kpa{{{sfmt}}} {F('stress')}"),
+             ("y", f"@y_mm{{{lfmt}}} {F('length')}"), ("e", "@e{0.0000}"), ("dy/dx", "@dydx{+0.0000}")]
     for p in (tau, vert, void):
-        p.add_layout(BoxAnnotation(left=s.cs.x_from_mm, right=s.cs.x_to_mm, fill_color=CRIT, fill_alpha=0.12))
+        p.add_layout(BoxAnnotation(left=s.cs.x_from_mm * L, right=s.cs.x_to_mm * L, fill_color=CRIT,
+                                   fill_alpha=0.12))
         p.add_tools(HoverTool(tooltips=hover, mode="vline"))
     sug = s.cs_suggested
-    windows = ColumnDataSource({"x": [s.cs.x_from_mm, s.cs.x_to_mm], "tau": [s.cs.tau_kpa] * 2,
-                                "x_sug": [sug.x_from_mm, sug.x_to_mm], "tau_sug": [sug.tau_kpa] * 2})
+    windows = ColumnDataSource({"x": [s.cs.x_from_mm * L, s.cs.x_to_mm * L], "tau": [s.cs.tau_kpa * S] * 2,
+                                "x_sug": [sug.x_from_mm * L, sug.x_to_mm * L], "tau_sug": [sug.tau_kpa * S] * 2})
     items["critical state (window mean)"] = [_draw(tau, Line(x="x", y="tau", line_color=CRIT, line_width=3), windows)]
     if s.cs_source == "manual":
         items["critical state suggested"] = [_draw(tau, Line(x="x_sug", y="tau_sug", line_color=SUGGESTED, line_width=2,
                                                              line_dash="dashed"), windows)]
     p, q = s.peak, s.peak_suggested
-    points = ColumnDataSource({"x": [p.x_mm], "tau": [p.tau_kpa], "y": [float(c["y_mm"].iloc[p.index])], "e": [p.e],
-                               "x_sug": [q.x_mm], "tau_sug": [q.tau_kpa]})
+    points = ColumnDataSource({"x": [p.x_mm * L], "tau": [p.tau_kpa * S], "y": [float(c["y_mm"].iloc[p.index]) * L],
+                               "e": [p.e], "x_sug": [q.x_mm * L], "tau_sug": [q.tau_kpa * S]})
     if not (s.no_distinct_peak and s.peak_source == "suggested"):
         items["peak"] = [_draw(tau, Scatter(x="x", y="tau", size=11, fill_color=PEAK, line_color=PEAK,
                                             marker="diamond"), points)]
         _draw(vert, Scatter(x="x", y="y", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
         _draw(void, Scatter(x="x", y="e", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
-        vert.add_layout(Span(location=p.x_mm, dimension="height", line_color=PEAK, line_dash="dotted"))
+        vert.add_layout(Span(location=p.x_mm * L, dimension="height", line_color=PEAK, line_dash="dotted"))
     if s.peak_source == "manual":
         items["peak suggested"] = [_draw(tau, Scatter(x="x_sug", y="tau_sug", size=10, line_color=SUGGESTED,
                                                       fill_color=None, marker="diamond", line_width=2), points)]
@@ -136,7 +147,11 @@ def _line_points(fit, sigma_max: float) -> tuple[list[float], list[float]]:
     return xs, [fit.intercept + fit.slope * v for v in xs]
 
 
-def envelope_figure(results: Results, group: str):
+def _scaled(values, factor: float) -> list[float]:
+    return [float(v) * factor for v in values]
+
+
+def envelope_figure(results: Results, group: str, u: Display = SI):
     """tau against sigma' for one group, every pick type in one plot.
 
     Per pick type: the stages used and those excluded (grey), the reported straight line, its 95 %
@@ -145,8 +160,10 @@ def envelope_figure(results: Results, group: str):
     characteristic line. One figure per group: Bokeh's cost is per figure, and a checker reads the
     bands against the points they came from. A legend entry hides or shows its curves on a click.
     """
+    k = u.factor("stress")  # every stress drawn in display units
     p = figure(title=f"Mohr-Coulomb envelopes - {group}", height=420, width=860, tools=TOOLS, name=f"envelope-{group}",
-               x_axis_label="normal stress sigma' (kPa)", y_axis_label="shear stress tau (kPa)")
+               x_axis_label=u.label("normal stress sigma'", "stress"),
+               y_axis_label=u.label("shear stress tau", "stress"))
     p.toolbar.logo = None
     members = {e.kind: e for e in results.envelopes if e.group == group}
     stats = {st.kind: st for st in results.envelope_statistics if st.group == group}
@@ -158,13 +175,14 @@ def envelope_figure(results: Results, group: str):
         env: EnvelopeResult = members[kind]
         stat = stats.get(kind)
         name = kind.replace("_", " ")
-        src = ColumnDataSource({"sigma": list(env.sigma_kpa), "tau": list(env.tau_kpa), "stage": list(env.stage_ids),
+        src = ColumnDataSource({"sigma": _scaled(env.sigma_kpa, k), "tau": _scaled(env.tau_kpa, k),
+                                "stage": list(env.stage_ids),
                                 "phi_sec": list(stat.secant_phi_deg) if stat else [float("nan")] * len(env.stage_ids)})
         r = p.scatter("sigma", "tau", source=src, size=10, color=colour, marker=marker)
         if out and kind != "residual":
             gx = [s.strength(kind) for s in out]
-            items.append((f"{name} excluded", [p.scatter([q.sigma_kpa for q in gx], [q.tau_kpa for q in gx], size=9,
-                                                          color=GREY, marker=marker, alpha=0.7)]))
+            items.append((f"{name} excluded", [p.scatter([q.sigma_kpa * k for q in gx], [q.tau_kpa * k for q in gx],
+                                                          size=9, color=GREY, marker=marker, alpha=0.7)]))
         fit = env.chosen
         if fit is None:
             items.insert(0, (f"{name}: not fitted", [r]))
@@ -175,34 +193,38 @@ def envelope_figure(results: Results, group: str):
             xs, ys = list(band.sigma_kpa), list(band.line_kpa)
             pct = f"{band.level * 100:g} %"
             items.append((f"{name}: {pct} confidence band of the mean line",
-                          [p.varea(band.sigma_kpa, band.mean_lower_kpa, band.mean_upper_kpa, fill_color=colour,
-                                   fill_alpha=0.15)]))
-            pred = p.multi_line([list(band.sigma_kpa)] * 2, [list(band.prediction_lower_kpa),
-                                                             list(band.prediction_upper_kpa)],
+                          [p.varea(np.asarray(band.sigma_kpa) * k, np.asarray(band.mean_lower_kpa) * k,
+                                   np.asarray(band.mean_upper_kpa) * k, fill_color=colour, fill_alpha=0.15)]))
+            pred = p.multi_line([_scaled(band.sigma_kpa, k)] * 2, [_scaled(band.prediction_lower_kpa, k),
+                                                                   _scaled(band.prediction_upper_kpa, k)],
                                 color=colour, line_dash="dashed", line_width=1)
             items.append((f"{name}: {pct} prediction band (one new specimen)", [pred]))
         else:
             xs, ys = _line_points(fit, sigma_max)
-        c_txt = "0" if fit.through_origin else num(fit.intercept, 1)
-        line = p.line(xs, ys, color=colour, line_width=2)
-        items.insert(0, (f"{name}: c' {c_txt} kPa, phi' {fit.phi_deg:.1f} deg", [r, line]))
+        c_txt = "0" if fit.through_origin else u.fmt("stress", fit.intercept, 1)
+        line = p.line(_scaled(xs, k), _scaled(ys, k), color=colour, line_width=2)
+        items.insert(0, (f"{name}: c' {c_txt} {u.unit('stress')}, phi' {fit.phi_deg:.1f} deg", [r, line]))
         if stat is not None and stat.power is not None:
             top = xs[-1]
             px = np.linspace(top / 400, top, 200)
-            items.append((f"{name}: power law tau = {stat.power.a:.3f} sigma'^{stat.power.b:.3f}",
-                          [p.line(px, stat.power.tau_kpa(px), color=colour, line_dash="dotdash", line_width=1.5)]))
+            items.append((f"{name}: power law tau = {stat.power.a:.3f} sigma'^{stat.power.b:.3f} (kPa)",
+                          [p.line(px * k, stat.power.tau_kpa(px) * k, color=colour, line_dash="dotdash",
+                                  line_width=1.5)]))
     d = results.design
     if d is not None and d.characteristic is not None and d.group == group and d.kind in members:
         ch = d.characteristic
         lo_r, hi_r = ch.stress_range_kpa
-        p.add_layout(BoxAnnotation(left=lo_r, right=hi_r, fill_color=DESIGN, fill_alpha=0.05))
+        p.add_layout(BoxAnnotation(left=lo_r * k, right=hi_r * k, fill_color=DESIGN, fill_alpha=0.05))
         items.append((f"{d.kind.replace('_', ' ')}: lower bound used for the characteristic value",
-                      [p.line(ch.sigma_kpa, ch.tau_bound_kpa, color=DESIGN, line_width=1.5)]))
+                      [p.line(_scaled(ch.sigma_kpa, k), _scaled(ch.tau_bound_kpa, k), color=DESIGN, line_width=1.5)]))
         xs = [lo_r, hi_r]
-        items.append((f"characteristic line: c'_k {num(d.c_k_kpa, 1)} kPa, phi'_k {d.phi_k_deg:.1f} deg "
-                       f"({ch.expressed})", [p.line(xs, [d.c_k_kpa + d.tan_phi_k * x for x in xs], color=DESIGN,
-                                                    line_width=3)]))
-    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@sigma{0.0} kPa"), ("tau", "@tau{0.0} kPa"),
+        items.append((f"characteristic line: c'_k {u.with_unit('stress', d.c_k_kpa, 1)}, phi'_k {d.phi_k_deg:.1f} "
+                       f"deg ({ch.expressed})",
+                       [p.line(_scaled(xs, k), [(d.c_k_kpa + d.tan_phi_k * x) * k for x in xs], color=DESIGN,
+                               line_width=3)]))
+    fmt = "0.0" if u.is_si else "0"
+    p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", f"@sigma{{{fmt}}} {u.unit('stress')}"),
+                                    ("tau", f"@tau{{{fmt}}} {u.unit('stress')}"),
                                     ("secant phi'", "@phi_sec{0.0} deg")]))
     p.x_range.start = 0
     p.y_range.start = 0

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from ..display_units import SI, Display
 from ..escaping import css_string
 from ..interpretation import Interpretation
 from ..results import EnvelopeResult, Results
@@ -23,7 +24,7 @@ def _kind(kind: str) -> str:
     return "critical state" if kind == "critical_state" else kind
 
 
-def _design(results: Results) -> str:
+def _design(results: Results, u: Display) -> str:
     d = results.design
     if d is None:
         return "<p><b>Design parameters:</b> none derived.</p>"
@@ -33,17 +34,18 @@ def _design(results: Results) -> str:
     who = f"chosen by {esc(ch.author)} at {esc(ch.time_utc)}" if ch.author else (
         '<span class="sb-flag">defaults, not yet chosen by an engineer</span>')
     rows = [("basis", f"{esc(d.group)}, {esc(_kind(d.kind))} envelope; {esc(d.parameter_note)}"),
-            ("characteristic", f"c'_k = {num(d.c_k_kpa, 1)} kPa, phi'_k = {num(d.phi_k_deg, 1)} deg "
-                               f"({esc(ch.limit_state)}; {esc(d.method)})")]
+            ("characteristic", f"c'_k = {u.with_unit('stress', d.c_k_kpa, 1)}, phi'_k = {num(d.phi_k_deg, 1)} deg "
+                               f"({esc(ch.limit_state)}; {esc(u.annotate(d.method))})")]
     if first is not None:
-        rows.append(("design", f"c'_d = {num(first.c_d_kpa, 1)} kPa, phi'_d = {num(first.phi_d_deg, 1)} deg "
+        rows.append(("design", f"c'_d = {u.with_unit('stress', first.c_d_kpa, 1)}, "
+                               f"phi'_d = {num(first.phi_d_deg, 1)} deg "
                                f"(partial factors {esc(first.set_name)}: gamma_phi' {first.gamma_phi:g}, "
                                f"gamma_c' {first.gamma_c:g})"))
     rows.append(("choice", who))
     return "<h3>Parameters for design</h3>" + table(("item", "value"), rows)
 
 
-def _envelope_row(results: Results, e: EnvelopeResult) -> tuple[str, ...]:
+def _envelope_row(results: Results, e: EnvelopeResult, u: Display) -> tuple[str, ...]:
     members = [s for s in results.stages if s.in_group(e.group)]
     excluded = [s.stage_id for s in members if not s.included]
     left_out = [s.stage_id for s in members if s.included and e.kind == "critical_state" and s.critical_state_left_out]
@@ -56,7 +58,8 @@ def _envelope_row(results: Results, e: EnvelopeResult) -> tuple[str, ...]:
                 out or "none", "too few stages (see Envelopes)")
     lo, hi = fit.phi_interval_deg
     c_lo, c_hi = fit.c_interval_kpa
-    c = "0 (through origin)" if fit.through_origin else f"{num(fit.intercept, 1)} [{num(c_lo, 1)}, {num(c_hi, 1)}]"
+    c = "0 (through origin)" if fit.through_origin else (
+        f"{u.fmt('stress', fit.intercept, 1)} [{u.fmt('stress', c_lo, 1)}, {u.fmt('stress', c_hi, 1)}]")
     notes = ['<span class="sb-flag">negative c\'</span>'] if fit.negative_cohesion else []
     if e.not_fitted and e.reported == "zero":
         notes.append("too few stages for c' free: c' = 0 reported")
@@ -67,11 +70,11 @@ def _envelope_row(results: Results, e: EnvelopeResult) -> tuple[str, ...]:
             f"{fit.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]", c, str(fit.n), out or "none", note)
 
 
-def _flags(results: Results) -> str:
+def _flags(results: Results, u: Display) -> str:
     open_flags = [(s.stage_id, f) for s in results.stages if s.included for f in s.flags]
     if not open_flags:
         return "<p><b>Open flags on included stages:</b> none.</p>"
-    items = "".join(f"<li>{esc(sid)}: {esc(f)}</li>" for sid, f in open_flags)
+    items = "".join(f"<li>{esc(sid)}: {esc(u.annotate(f))}</li>" for sid, f in open_flags)
     return (f'<p class="sb-flag"><b>Open flags on included stages: {len(open_flags)}</b> '
             "(each to be judged; detail under Flags)</p>" f'<ul class="sb-flags">{items}</ul>')
 
@@ -89,24 +92,26 @@ def _signoff(interpretation: Interpretation | None, checks: Sequence[Check]) -> 
 
 
 def first_page_html(results: Results, interpretation: Interpretation | None, checks: Sequence[Check],
-                    digest: str) -> str:
+                    digest: str, u: Display = SI) -> str:
     """The summary at the head of the record."""
     p = results.project
     title = esc(p.get("name") or "Direct shear interpretation")
     facts = ", ".join(esc(p[k]) for k in ("site", "client", "reference") if p.get(k))
     invented = "<p><b>Invented example data (demonstration only).</b></p>" if p.get("invented_data") else ""
-    rows = [_envelope_row(results, e) for e in results.envelopes]
+    invented += "" if u.is_si else (f"<p>Display units: {esc(u.name)}; the embedded results and every stored value "
+                                    "are SI (kPa, mm, N).</p>")
+    rows = [_envelope_row(results, e, u) for e in results.envelopes]
     level = next((e.chosen.level for e in results.envelopes if e.chosen is not None), 0.95)
     envelopes = table(("group", "envelope", "reported fit", f"phi' (deg) [{level * 100:g} % CI]",
-                       f"c' (kPa) [{level * 100:g} % CI]", "stages used", "left out", "remarks"), rows)
+                       f"c' ({u.unit('stress')}) [{level * 100:g} % CI]", "stages used", "left out", "remarks"), rows)
     footer = css_string(f"{p.get('name') or 'Shearbook record'} - record {digest[:16]}")
     return (
         f"<style>@page {{@bottom-left {{content: {footer}; font: 8pt sans-serif; color: #444;}}}}</style>"
         f'<div class="sb-first-page"><h1>Calculation record: {title}</h1>'
         + (f"<p>{facts}</p>" if facts else "") + invented
-        + _design(results)
+        + _design(results, u)
         + "<h3>Envelopes (Mohr-Coulomb, reported fit)</h3>" + envelopes
-        + _flags(results) + _signoff(interpretation, checks)
+        + _flags(results, u) + _signoff(interpretation, checks)
         + f'<p><b>Record digest</b> (SHA-256 of the embedded results): <span class="sb-mono">{esc(digest)}</span></p>'
         + f'<div class="sb-caution"><b>Caution.</b> {esc(CAUTION)}</div></div>'
     )

@@ -17,6 +17,7 @@ from bokeh.layouts import column, row
 from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Label, Legend, LegendItem, PointDrawTool, Span
 from bokeh.plotting import figure
 
+from ..display_units import SI, Display
 from ..envelope import confidence_band, fit_power_law
 from ..results import EnvelopeResult, Results, StageResult
 from .figures import CRIT, GREY, INK, PEAK, RESIDUAL, SUGGESTED, decimate
@@ -24,29 +25,40 @@ from .figures import CRIT, GREY, INK, PEAK, RESIDUAL, SUGGESTED, decimate
 __all__ = ["EnvelopePlot", "StagePlots", "marker_data", "residual_data", "window_data"]
 
 TOOLS = "pan,box_zoom,wheel_zoom,reset,save"
-CURVES = (("tau_kpa", "shear stress tau (kPa)", "shear stress"),
-          ("y_mm", "vertical displacement y (mm)", "vertical displacement (dilation +)"),
-          ("ratio", "stress ratio tau/sigma' (-)", "stress ratio"),
-          ("dydx", "rate of dilation dy/dx (-)", "rate of dilation"))
+# source column, axis label (its unit from the display units), title, quantity for the display units
+CURVES = (("tau_kpa", "shear stress tau", "shear stress", "stress"),
+          ("y_mm", "vertical displacement y", "vertical displacement (dilation +)", "length"),
+          ("ratio", "stress ratio tau/sigma' (-)", "stress ratio", None),
+          ("dydx", "rate of dilation dy/dx (-)", "rate of dilation", None))
+QUANTITY = {"x_mm": "length", "tau_kpa": "stress", "y_mm": "length", "abs_tau": "stress"}  # columns with a unit
 Callback = Callable[[str, Any, Any], None]
 ResidualPick = tuple[int, float, float]  # reversal tests: pass number, window from and to (mm)
 
 
-def marker_data(s: StageResult) -> dict[str, list[float]]:
-    """The peak marker: the chosen peak reading (x mm, smoothed tau kPa)."""
-    return {"x": [s.peak.x_mm], "y": [s.peak.tau_kpa]}
+def _xy(u: Display, xs: list[float], ys: list[float]) -> dict[str, list[float]]:
+    """Points (canonical mm, kPa) in display units: what the page draws and sends back."""
+    return {"x": [u.value("length", x) for x in xs], "y": [u.value("stress", y) for y in ys]}
 
 
-def window_data(s: StageResult) -> dict[str, list[float]]:
-    """The two ends of the critical-state window, drawn at the window's mean shear stress."""
-    return {"x": [s.cs.x_from_mm, s.cs.x_to_mm], "y": [s.cs.tau_kpa, s.cs.tau_kpa]}
+def marker_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
+    """The peak marker: the chosen peak reading (x, smoothed tau), in display units."""
+    return _xy(u, [s.peak.x_mm], [s.peak.tau_kpa])
 
 
-def residual_data(s: StageResult, pick: ResidualPick) -> dict[str, list[float]]:
-    """The two ends of the residual window, drawn at the residual shear stress (mean |tau| over the window)."""
+def window_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
+    """The two ends of the critical-state window, drawn at the window's mean shear stress (display units)."""
+    return _xy(u, [s.cs.x_from_mm, s.cs.x_to_mm], [s.cs.tau_kpa, s.cs.tau_kpa])
+
+
+def residual_data(s: StageResult, pick: ResidualPick, u: Display = SI) -> dict[str, list[float]]:
+    """The two ends of the residual window, at the residual shear stress (mean |tau| over the window)."""
     _, lo, hi = pick
     tau = s.residual.tau_kpa if s.residual is not None and s.residual.tau_kpa is not None else _window_mean(s, pick)
-    return {"x": [lo, hi], "y": [tau, tau]}
+    return _xy(u, [lo, hi], [tau, tau])
+
+
+def _scaled(data: dict[str, np.ndarray], u: Display) -> dict[str, np.ndarray]:
+    return {k: v * u.factor(QUANTITY[k]) if k in QUANTITY else v for k, v in data.items()}  # type: ignore[arg-type]
 
 
 def _pass_rows(s: StageResult, pass_no: int) -> tuple[np.ndarray, np.ndarray]:
@@ -71,7 +83,7 @@ def _pass_curve(s: StageResult, pass_no: int) -> dict[str, np.ndarray]:
 def _curve_data(s: StageResult) -> dict[str, np.ndarray]:
     c = s.reduced.curve
     shear = c[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == 1)]
-    keep = decimate(shear["x_mm"].to_numpy(), [shear[k].to_numpy() for k, _, _ in CURVES])
+    keep = decimate(shear["x_mm"].to_numpy(), [shear[k].to_numpy() for k, _, _, _ in CURVES])
     d = shear.iloc[keep]
     return {k: d[k].to_numpy() for k in ("x_mm", "tau_kpa", "y_mm", "ratio", "dydx", "e")}
 
@@ -80,17 +92,23 @@ class StagePlots:
     """The four linked plots of one stage, the draggable picks, and how to redraw them."""
 
     def __init__(self, s: StageResult, on_peak: Callback, on_window: Callback,
-                 residual: ResidualPick | None = None, on_residual: Callback | None = None) -> None:
-        """``residual`` (reversal tests): the residual window in use; its ends are dragged like the window's."""
+                 residual: ResidualPick | None = None, on_residual: Callback | None = None, u: Display = SI) -> None:
+        """``residual`` (reversal tests): the residual window in use; its ends are dragged like the window's.
+
+        Everything is drawn in the display units ``u``; the callbacks receive display units (the
+        widgets turn them back into mm before the controller sees them).
+        """
         self.stage_id = s.stage_id
-        self.curve = ColumnDataSource(_curve_data(s))
-        self.peak = ColumnDataSource(marker_data(s))
-        self.window = ColumnDataSource(window_data(s))
-        self.peak_suggested = ColumnDataSource({"x": [s.peak_suggested.x_mm], "y": [s.peak_suggested.tau_kpa]})
-        self.plots = [self._plot(i, key, label, title) for i, (key, label, title) in enumerate(CURVES)]
-        self.boxes = [BoxAnnotation(left=s.cs.x_from_mm, right=s.cs.x_to_mm, fill_color=CRIT, fill_alpha=0.13,
-                                    level="underlay") for _ in self.plots]
-        self.spans = [Span(location=s.peak.x_mm, dimension="height", line_color=PEAK, line_dash="dashed",
+        self.u = u
+        self.curve = ColumnDataSource(_scaled(_curve_data(s), u))
+        self.peak = ColumnDataSource(marker_data(s, u))
+        self.window = ColumnDataSource(window_data(s, u))
+        self.peak_suggested = ColumnDataSource(_xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
+        self.plots = [self._plot(i, key, label, title, q) for i, (key, label, title, q) in enumerate(CURVES)]
+        k = u.factor("length")
+        self.boxes = [BoxAnnotation(left=s.cs.x_from_mm * k, right=s.cs.x_to_mm * k, fill_color=CRIT,
+                                    fill_alpha=0.13, level="underlay") for _ in self.plots]
+        self.spans = [Span(location=s.peak.x_mm * k, dimension="height", line_color=PEAK, line_dash="dashed",
                            line_width=1.5) for _ in self.plots]
         for p, box, span in zip(self.plots, self.boxes, self.spans, strict=True):
             p.add_layout(box)
@@ -129,11 +147,12 @@ class StagePlots:
         """On the shear-stress plot: |tau| of the residual pass, the shaded window, its two ends, the value."""
         tau = self.plots[0]
         self.residual_pass = pick[0]
-        self.residual_curve = ColumnDataSource(_pass_curve(s, pick[0]))
-        self.residual = ColumnDataSource(residual_data(s, pick))
-        self.residual_box = BoxAnnotation(left=pick[1], right=pick[2], fill_color=RESIDUAL, fill_alpha=0.10,
+        k = self.u.factor("length")
+        self.residual_curve = ColumnDataSource(_scaled(_pass_curve(s, pick[0]), self.u))
+        self.residual = ColumnDataSource(residual_data(s, pick, self.u))
+        self.residual_box = BoxAnnotation(left=pick[1] * k, right=pick[2] * k, fill_color=RESIDUAL, fill_alpha=0.10,
                                           hatch_pattern="/", hatch_color=RESIDUAL, hatch_alpha=0.25, level="underlay")
-        self.residual_label = Label(x=pick[2], y=0.0, text="", text_font_size="10px", text_color=RESIDUAL,
+        self.residual_label = Label(x=pick[2] * k, y=0.0, text="", text_font_size="10px", text_color=RESIDUAL,
                                     text_align="right", text_baseline="bottom", y_offset=9,
                                     background_fill_color="white", background_fill_alpha=0.8)
         tau.add_layout(self.residual_box)
@@ -145,10 +164,12 @@ class StagePlots:
                   LegendItem(label="residual window ends (drag them)", renderers=[ends])]
         return ends
 
-    def _plot(self, i: int, key: str, label: str, title: str):
+    def _plot(self, i: int, key: str, label: str, title: str, quantity: str | None):
         shared = {"x_range": self.plots_x_range} if i else {}
+        u = self.u
         p = figure(height=210, width=360, tools=TOOLS, name=f"live-{self.stage_id}-{key.split('_')[0]}",
-                   title=f"{self.stage_id} - {title}", x_axis_label="horizontal displacement (mm)", y_axis_label=label,
+                   title=f"{self.stage_id} - {title}", x_axis_label=u.label("horizontal displacement", "length"),
+                   y_axis_label=u.label(label, quantity) if quantity else label,  # type: ignore[arg-type]
                    **shared)
         if not i:
             self.plots_x_range = p.x_range
@@ -156,8 +177,10 @@ class StagePlots:
         p.toolbar.autohide = True
         p.title.text_font_size = "11px"
         r = p.line("x_mm", key, source=self.curve, color=INK, line_width=1.3)
+        lf, sf = ("0.000", "0.0") if u.is_si else ("0.0000", "0")
+        L, S = u.unit("length"), u.unit("stress")
         p.add_tools(HoverTool(renderers=[r], mode="vline", tooltips=[
-            ("x", "@x_mm{0.000} mm"), ("tau", "@tau_kpa{0.0} kPa"), ("y", "@y_mm{+0.000} mm"),
+            ("x", f"@x_mm{{{lf}}} {L}"), ("tau", f"@tau_kpa{{{sf}}} {S}"), ("y", f"@y_mm{{+{lf}}} {L}"),
             ("tau/sigma'", "@ratio{0.000}"), ("dy/dx", "@dydx{+0.0000}"), ("e", "@e{0.0000}")]))
         return p
 
@@ -167,31 +190,36 @@ class StagePlots:
         for p in self.plots:
             p.renderers[0].glyph.line_color = colour
             p.background_fill_color = "white" if s.included else "#f1f2f3"
+        u, k = self.u, self.u.factor("length")
         for box in self.boxes:
-            box.update(left=s.cs.x_from_mm, right=s.cs.x_to_mm)
+            box.update(left=s.cs.x_from_mm * k, right=s.cs.x_to_mm * k)
         for span in self.spans:
-            span.location = s.peak.x_mm
-        _set(self.peak, marker_data(s))
-        _set(self.window, window_data(s))
-        _set(self.peak_suggested, {"x": [s.peak_suggested.x_mm], "y": [s.peak_suggested.tau_kpa]})
-        self.plots[0].title.text = f"{s.stage_id} - shear stress, sigma'n {s.sigma_nominal_kpa:.0f} kPa" + (
-            "" if s.included else " (excluded)")
+            span.location = s.peak.x_mm * k
+        _set(self.peak, marker_data(s, u))
+        _set(self.window, window_data(s, u))
+        _set(self.peak_suggested, _xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
+        in_set = f" ({s.test_set})" if s.test_set else ""
+        self.plots[0].title.text = (f"{s.stage_id}{in_set} - shear stress, sigma'n "
+                                    f"{u.with_unit('stress', s.sigma_nominal_kpa, 0)}"
+                                    + ("" if s.included else " (excluded)"))
         if self.residual is not None and residual is not None:
             self._update_residual(s, residual)
 
     def _update_residual(self, s: StageResult, pick: ResidualPick) -> None:
         pass_no, lo, hi = pick
+        u, k = self.u, self.u.factor("length")
         if pass_no != self.residual_pass:  # another pass chosen: draw its curve
             self.residual_pass = pass_no
-            self.residual_curve.data = _pass_curve(s, pass_no)
-        data = residual_data(s, pick)
+            self.residual_curve.data = _scaled(_pass_curve(s, pass_no), u)
+        data = residual_data(s, pick, u)
         _set(self.residual, data)  # type: ignore[arg-type]
-        self.residual_box.update(left=lo, right=hi)
-        value = "not reached" if s.residual is None or s.residual.tau_kpa is None else f"{s.residual.tau_kpa:.1f} kPa"
+        self.residual_box.update(left=lo * k, right=hi * k)
+        value = ("not reached" if s.residual is None or s.residual.tau_kpa is None
+                 else u.with_unit("stress", s.residual.tau_kpa, 1))
         if s.residual is not None and s.residual_source == "suggested" and not s.residual.reached \
                 and s.residual.tau_kpa is not None:
             value += " (upper bound)"
-        self.residual_label.update(x=hi, y=data["y"][0],
+        self.residual_label.update(x=hi * k, y=data["y"][0],
                                    text=f"residual {value}, pass {pass_no}, {s.residual_source}")
 
 
@@ -217,12 +245,14 @@ class EnvelopePlot:
 
     STYLES = (("peak", PEAK, "triangle"), ("critical_state", CRIT, "circle"), ("residual", RESIDUAL, "square"))
 
-    def __init__(self, results: Results, group: str) -> None:
+    def __init__(self, results: Results, group: str, u: Display = SI) -> None:
         self.group = group
         self.curved = False
+        self.u = u
         safe = group.replace(" ", "_")
         p = figure(title=f"Envelopes - {group}", height=430, width=560, tools=TOOLS, name=f"live-envelope-{safe}",
-                   x_axis_label="normal stress sigma' (kPa)", y_axis_label="shear stress tau (kPa)")
+                   x_axis_label=u.label("normal stress sigma'", "stress"),
+                   y_axis_label=u.label("shear stress tau", "stress"))
         p.toolbar.logo = None
         self.sources: dict[str, dict[str, ColumnDataSource]] = {}
         self._drawn: dict[str, tuple[EnvelopeResult, float, bool]] = {}
@@ -245,7 +275,9 @@ class EnvelopePlot:
                                  renderers=[pts, line, band]),
                       LegendItem(label=f"{name}: excluded stages", renderers=[out]),
                       LegendItem(label=f"{name}: curved envelope (when shown)", renderers=[curve])]
-        p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", "@x{0.0} kPa"), ("tau", "@y{0.0} kPa")]))
+        sf = "0.0" if u.is_si else "0"
+        p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", f"@x{{{sf}}} {u.unit('stress')}"),
+                                        ("tau", f"@y{{{sf}}} {u.unit('stress')}")]))
         p.x_range.start = 0
         p.y_range.start = 0
         p.add_layout(Legend(items=items, ncols=2, label_text_font_size="9px", spacing=0, padding=4, margin=4), "below")
@@ -260,14 +292,16 @@ class EnvelopePlot:
             src = self.sources[kind]
             out = {s.stage_id: p for s in members
                    if not s.included and (p := s.strength(kind)) is not None and p.tau_kpa is not None}
-            _set(src["in"], {"x": list(env.sigma_kpa), "y": list(env.tau_kpa), "stage": list(env.stage_ids)})
-            _set(src["out"], {"x": [p.sigma_kpa for p in out.values()], "y": [p.tau_kpa for p in out.values()],
+            k = self.u.factor("stress")
+            _set(src["in"], {"x": [v * k for v in env.sigma_kpa], "y": [v * k for v in env.tau_kpa],
+                             "stage": list(env.stage_ids)})
+            _set(src["out"], {"x": [p.sigma_kpa * k for p in out.values()], "y": [p.tau_kpa * k for p in out.values()],
                               "stage": list(out)})
             drawn = (env, sigma_max, self.curved)
             if self._drawn.get(kind) != drawn:  # the band needs t quantiles: only when the fit changed
                 self._drawn[kind] = drawn
-                _set(src["line"], _line(env.chosen, sigma_max))
-                _set(src["curve"], self._curve(env, sigma_max))
+                _set(src["line"], {c: [v * k for v in vs] for c, vs in _line(env.chosen, sigma_max).items()})
+                _set(src["curve"], {c: [v * k for v in vs] for c, vs in self._curve(env, sigma_max).items()})
 
     def _curve(self, env: EnvelopeResult, sigma_max: float) -> dict[str, list]:
         empty: dict[str, list] = {"x": [], "y": []}

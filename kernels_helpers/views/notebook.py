@@ -21,11 +21,12 @@ from ..interpretation import load_interpretation
 from ..project import Project
 from ..results import INTERPRETATION_MIME, RESULTS_MIME, Results
 from . import tables
-from .sections import show_section, show_static
+from .sections import show_section, show_static, use_units
 
 __all__ = ["setup_notebook", "show_changes_since_record", "show_consolidation", "show_critical_state_line",
            "show_design", "show_dilatancy", "show_envelope_statistics", "show_envelopes", "show_header",
-           "show_provenance", "show_set_comparison", "show_stages", "show_static", "show_summary", "show_tables"]
+           "show_provenance", "show_set_comparison", "show_stages", "show_static", "show_summary", "show_tables",
+           "use_units"]
 
 RECORD_PACKAGES = ("bokeh", "jupyterlab", "ipywidgets", "jupyter_bokeh", "nbconvert", "nbclient", "tsdownsample")
 

@@ -22,6 +22,7 @@ from bokeh.model.util import collect_models
 from bokeh.models import ColumnDataSource
 from IPython.display import HTML, display
 
+from ..display_units import SI, Display, display_for
 from ..interpretation import Interpretation
 from ..mime import digest_of
 from ..project import Project
@@ -35,7 +36,7 @@ from .first_page import first_page_html
 from .strength_figures import critical_state_figure, taylor_figure
 
 __all__ = ["PART_TAG", "SECTIONS", "SOURCE_TAG", "Context", "build_section", "show_section", "show_static",
-           "sources_of"]
+           "sources_of", "use_units"]
 
 PART_TAG = "sb-part:"  # the tag on a figure's root: "sb-part:<section>:<index>"
 SOURCE_TAG = "sb-source:"  # the tag on each data source of a figure: "sb-source:<n>", in model order
@@ -50,6 +51,11 @@ class Context:
     project: Project | None = None
     interpretation: Interpretation | None = None
     extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def u(self) -> Display:
+        """The display units of this section: ``units`` among its arguments ("SI" when not given)."""
+        return display_for(self.extra.get("units"))
 
 
 def show_static(obj: Model) -> None:
@@ -69,7 +75,7 @@ def _h(text: str) -> str:
 
 
 def _header(ctx: Context) -> list[Part]:
-    results, project = ctx.results, ctx.project
+    results, project, u = ctx.results, ctx.project, ctx.u
     assert project is not None
     r, pk = results.settings["reduction"], results.settings["picks"]
     method = (
@@ -82,27 +88,27 @@ def _header(ctx: Context) -> list[Part]:
             area=tables.esc(r["area_convention"]), w=r["smoothing_window_mm"], ps=r["peak_smoothing_mm"],
             sf=r["seating_fraction"] * 100, cw=pk["cs_window_mm"], rt=pk["cs_rate_tolerance"],
             tt=pk["cs_trend_tolerance"] * 100, n=DISPLAY_POINTS))
-    return [tables.header_html(results) + tables.caution_html(),
+    return [tables.header_html(results, u) + tables.caution_html(),
             _h("Inputs (raw readings, never modified)") + tables.inputs_table(results, project),
-            _h("Specimens") + tables.specimen_table(results, project) + method]
+            _h("Specimens") + tables.specimen_table(results, project, u) + u.annotate(method)]
 
 
 def _stages(ctx: Context) -> list[Part]:
     out: list[Part] = []
     for s in ctx.results.stages:
-        out.append(tables.stage_heading(s))
-        out.append(stage_figure(s))
+        out.append(tables.stage_heading(s, ctx.u))
+        out.append(stage_figure(s, ctx.u))
     return out
 
 
 def _picks(ctx: Context) -> list[Part]:
-    results = ctx.results
-    out = _h("Method: how the suggestions and flags were made") + tables.method_html(results)
-    out += _h("Picks") + tables.picks_table(results)
-    residual = tables.residual_table(results)
+    results, u = ctx.results, ctx.u
+    out = _h("Method: how the suggestions and flags were made") + tables.method_html(results, u)
+    out += _h("Picks") + tables.picks_table(results, u)
+    residual = tables.residual_table(results, u)
     if residual:
         out += _h("Residual strength (reversal tests)") + residual
-    return [out + _h("Flags") + tables.flags_table(results)]
+    return [out + _h("Flags") + tables.flags_table(results, u)]
 
 
 def _consolidation(ctx: Context) -> list[Part]:
@@ -113,43 +119,44 @@ def _consolidation(ctx: Context) -> list[Part]:
     rule = results.settings.get("rate", {}).get("time_to_failure", "largest")
     said = ("the largest of 50 t_50, 11.6 t_90 and 12.7 t_100 that the constructions give (the cautious choice)"
             if rule == "largest" else f"t_f = {tables.esc(rule)}, as chosen in the interpretation file's settings")
-    return [*(consolidation_figure(s) for s in stages),
+    return [*(consolidation_figure(s, ctx.u) for s in stages),
             f"<p>Required time to failure: {said}; settings.rate.time_to_failure in the interpretation "
-            "file chooses the rule the governing standard states.</p>" + rate_table(results)]
+            "file chooses the rule the governing standard states.</p>" + rate_table(results, ctx.u)]
 
 
 def _envelopes(ctx: Context) -> list[Part]:
     results = ctx.results
-    figures: list[Part] = [envelope_figure(results, g) for g in dict.fromkeys(e.group for e in results.envelopes)]
-    return [*figures, tables.envelope_table(results) + _h("Sensitivity: each stage left out in turn")
-            + tables.sensitivity_table(results) + tables.caution_html()]
+    groups = dict.fromkeys(e.group for e in results.envelopes)
+    figures: list[Part] = [envelope_figure(results, g, ctx.u) for g in groups]
+    return [*figures, tables.envelope_table(results, ctx.u) + _h("Sensitivity: each stage left out in turn")
+            + tables.sensitivity_table(results, ctx.u) + tables.caution_html()]
 
 
 def _statistics(ctx: Context) -> list[Part]:
     at = ctx.extra.get("angles_at_kpa")
-    return [dv.statistics_table(ctx.results) + dv.power_law_angle_table(ctx.results, at)]
+    return [dv.statistics_table(ctx.results, ctx.u) + dv.power_law_angle_table(ctx.results, at, ctx.u)]
 
 
 def _sets(ctx: Context) -> list[Part]:
-    return [dv.set_comparison_table(ctx.results)]
+    return [dv.set_comparison_table(ctx.results, ctx.u)]
 
 
 def _critical_state_line(ctx: Context) -> list[Part]:
     lines = ctx.results.critical_state_lines
     pooled = [line for line in lines if line.group.startswith("stratum ")]
-    return [*(critical_state_figure(ctx.results, line) for line in pooled or lines),  # dense and loose together
-            dv.critical_state_table(ctx.results)]
+    return [*(critical_state_figure(ctx.results, line, ctx.u) for line in pooled or lines),  # dense and loose
+            dv.critical_state_table(ctx.results, ctx.u)]
 
 
 def _dilatancy(ctx: Context) -> list[Part]:
     sets: dict[str, list[str]] = {}
     for s in ctx.results.stages:
         sets.setdefault(s.test_set or "all stages", []).append(s.stage_id)
-    return [*(taylor_figure(ctx.results, ids) for ids in sets.values()), dv.dilatancy_table(ctx.results)]
+    return [*(taylor_figure(ctx.results, ids, ctx.u) for ids in sets.values()), dv.dilatancy_table(ctx.results)]
 
 
 def _design(ctx: Context) -> list[Part]:
-    return [dv.design_html(ctx.results) + tables.caution_html()]
+    return [dv.design_html(ctx.results, ctx.u) + tables.caution_html()]
 
 
 def signature_checks(ctx: Context) -> list[Check]:
@@ -163,7 +170,7 @@ def signature_checks(ctx: Context) -> list[Check]:
 def _summary(ctx: Context) -> list[Part]:
     digest = digest_of(json.loads(ctx.results.to_json()))
     checks = signature_checks(ctx) if ctx.interpretation is not None else []
-    return [first_page_html(ctx.results, ctx.interpretation, checks, digest)]
+    return [first_page_html(ctx.results, ctx.interpretation, checks, digest, ctx.u)]
 
 
 def _signoff(ctx: Context) -> list[Part]:
@@ -200,10 +207,24 @@ def part_html(name: str, index: int, html: str, args: dict[str, Any] | None = No
     return f'<div class="sb-part" data-sb-section="{name}" data-sb-part="{index}"{extra}>{html}</div>'
 
 
+_UNITS: list[Display] = [SI]  # the notebook's display units (use_units); stored values are never converted
+
+
+def use_units(units: str | Display | None) -> Display:
+    """Show every later section in ``units`` ("SI", "US" or None for SI); returns the Display now in use."""
+    _UNITS[0] = units if isinstance(units, Display) else display_for(units, "display units")
+    return _UNITS[0]
+
+
 def show_section(name: str, results: Results, project: Project | None = None,
                  interpretation: Interpretation | None = None, **args: Any) -> None:
-    """Display every part of section ``name`` (HTML parts marked, figures tagged) for the record."""
+    """Display every part of section ``name`` (HTML parts marked, figures tagged) for the record.
+
+    Outside SI the display units join the section's arguments, so that verify rebuilds it alike.
+    """
     args = {k: list(v) if isinstance(v, Sequence) and not isinstance(v, str) else v for k, v in args.items()}
+    if not _UNITS[0].is_si:
+        args["units"] = _UNITS[0].system
     ctx = Context(results, project, interpretation, args)
     for i, part in enumerate(build_section(name, ctx)):
         if isinstance(part, str):

@@ -11,6 +11,7 @@ import math
 from collections.abc import Iterable, Sequence
 from typing import Any
 
+from ..display_units import SI, Display
 from ..interpretation import SignOff
 from ..project import Project
 from ..results import EnvelopeResult, Results, StageResult
@@ -95,7 +96,7 @@ STYLE = """<style>
 </style>"""
 
 
-def header_html(results: Results) -> str:
+def header_html(results: Results, u: Display = SI) -> str:
     p = results.project
     rows = [
         (esc(k.replace("_", " ")), esc(p[k]))
@@ -108,6 +109,8 @@ def header_html(results: Results) -> str:
     rows.append(("stresses on", esc(f"{conv['area']} area (ASTM D3080 sec. 5.6: tau/sigma does not depend on it)")))
     rows.append(("vertical displacement", esc(conv["vertical_displacement"])))
     rows.append(("horizontal displacement", esc(conv["horizontal_displacement"])))
+    rows.append(("display units", esc(u.name) + (" (stored values and the embedded results are SI)" if not u.is_si
+                                                 else "")))
     return STYLE + table(("field", "value"), rows)
 
 
@@ -128,26 +131,28 @@ SETTLEMENT_SOURCE = {"declared": "project file", "consolidation readings": "end 
                      "none": "none given (height before consolidation)"}
 
 
-def specimen_table(results: Results, project: Project) -> str:
+def specimen_table(results: Results, project: Project, u: Display = SI) -> str:
     rows = []
     for s, spec in zip(results.stages, project.stages, strict=True):
         sp, r = spec.specimen, s.reduced
-        size = f"{sp.shape} {sp.width_mm:g} mm"
+        size = f"{sp.shape} {u.fmt('length', sp.width_mm, 1)} {u.unit('length')}"
         rows.append((
-            esc(s.stage_id), esc(spec.test_set), esc(size), num(sp.height_mm, 2), num(sp.dry_mass_g, 1), num(sp.gs, 2),
-            esc(spec.normal_load.given_as), num(r.normal_force_n, 1), num(s.sigma_nominal_kpa, 1),
-            num(r.e_initial, 3), num(r.settlement_mm, 3), esc(SETTLEMENT_SOURCE[r.settlement_source]),
-            num(r.height_start_mm, 3), num(r.e_start, 3), num(r.seating_shift_mm, 3),
+            esc(s.stage_id), esc(spec.test_set), esc(size), u.fmt("length", sp.height_mm, 2), num(sp.dry_mass_g, 1),
+            num(sp.gs, 2), esc(spec.normal_load.given_as), u.fmt("force", r.normal_force_n, 1),
+            u.fmt("stress", s.sigma_nominal_kpa, 1), num(r.e_initial, 3), u.fmt("length", r.settlement_mm, 3),
+            esc(SETTLEMENT_SOURCE[r.settlement_source]), u.fmt("length", r.height_start_mm, 3), num(r.e_start, 3),
+            u.fmt("length", r.seating_shift_mm, 3),
         ))
     return table(
-        ("stage", "test set", "box", "H0 (mm)", "Ms (g)", "Gs", "normal load given as", "N (N)",
-         "sigma'n nominal (kPa)", "e0", "consol. settlement (mm)", "settlement from", "H at start of shear (mm)",
-         "e at start of shear", "seating slack removed (mm)"),
+        ("stage", "test set", "box", u.label("H0", "length"), "Ms (g)", "Gs", "normal load given as",
+         u.label("N", "force"), u.label("sigma'n nominal", "stress"), "e0", u.label("consol. settlement", "length"),
+         "settlement from", u.label("H at start of shear", "length"), "e at start of shear",
+         u.label("seating slack removed", "length")),
         rows,
     )
 
 
-def method_html(results: Results) -> str:
+def method_html(results: Results, u: Display = SI) -> str:
     """The rules behind the suggestions and flags, with the thresholds this interpretation used."""
     p = results.settings["picks"]
     sources = sorted({SETTLEMENT_SOURCE[s.reduced.settlement_source] for s in results.stages})
@@ -173,48 +178,53 @@ def method_html(results: Results) -> str:
         "prediction interval of its envelope fitted without it is flagged (outlier_level), with phi' and c' with and "
         "without it; it is never left out automatically.",
     ]
-    return "<ul>" + "".join(f"<li>{esc(i)}</li>" for i in items) + "</ul>"
+    return "<ul>" + "".join(f"<li>{esc(u.annotate(i))}</li>" for i in items) + "</ul>"
 
 
-def _pick_cells(s: StageResult) -> list[str]:
+def _pick_cells(s: StageResult, u: Display = SI) -> list[str]:
     p, ps = s.peak, s.peak_suggested
     if s.no_distinct_peak and s.peak_source == "suggested":
         peak = ["no distinct peak (see flags)"] + ["&ndash;"] * 3
     else:
-        peak = [num(p.x_mm, 2), num(p.tau_kpa, 1), num(p.sigma_kpa, 1), num(math.degrees(math.atan(p.ratio)), 1)]
+        peak = [u.fmt("length", p.x_mm, 2), u.fmt("stress", p.tau_kpa, 1), u.fmt("stress", p.sigma_kpa, 1),
+                num(math.degrees(math.atan(p.ratio)), 1)]
     peak_src = esc(s.peak_source) + (
-        f" (suggested at {num(ps.x_mm, 2)} mm, {num(ps.tau_kpa, 1)} kPa)" if s.peak_source == "manual" else ""
+        f" (suggested at {u.with_unit('length', ps.x_mm, 2)}, {u.with_unit('stress', ps.tau_kpa, 1)})"
+        if s.peak_source == "manual" else ""
     )
     c, cs = s.cs, s.cs_suggested
     cs_src = esc(s.cs_source) + (
-        f" (suggested {num(cs.x_from_mm, 2)}-{num(cs.x_to_mm, 2)} mm, {num(cs.tau_kpa, 1)} kPa)"
+        f" (suggested {u.fmt('length', cs.x_from_mm, 2)}-{u.with_unit('length', cs.x_to_mm, 2)}, "
+        f"{u.with_unit('stress', cs.tau_kpa, 1)})"
         if s.cs_source == "manual" else "") + (
         "; not reached: left out of the critical-state fit" if s.critical_state_left_out else "") + (
         f"; not reached, used in the fit: {esc(s.critical_state_reason)}" if s.critical_state_used else ""
     )
     return [
         peak_src, *peak,
-        cs_src, f"{num(c.x_from_mm, 2)}&ndash;{num(c.x_to_mm, 2)}", num(c.tau_kpa, 1), num(c.tau_sd_kpa, 2),
-        num(c.sigma_kpa, 1), num(math.degrees(math.atan(c.ratio)), 1), f"{c.dydx:+.4f}", num(c.e, 3),
+        cs_src, f"{u.fmt('length', c.x_from_mm, 2)}&ndash;{u.fmt('length', c.x_to_mm, 2)}",
+        u.fmt("stress", c.tau_kpa, 1), u.fmt("stress", c.tau_sd_kpa, 2),
+        u.fmt("stress", c.sigma_kpa, 1), num(math.degrees(math.atan(c.ratio)), 1), f"{c.dydx:+.4f}", num(c.e, 3),
     ]
 
 
-def picks_table(results: Results) -> str:
+def picks_table(results: Results, u: Display = SI) -> str:
     """Peak and critical-state picks per stage, the suggestion beside any manual value."""
     rows = []
     for s in results.stages:
         inc = "yes" if s.included else f"<b>excluded</b>: {esc(s.exclusion_reason)}"
         notes = "; ".join(esc(n) for n in (s.note, s.peak_note, s.cs_note) if n)
-        rows.append([esc(s.stage_id), num(s.sigma_nominal_kpa, 0), inc, *_pick_cells(s), notes])
+        rows.append([esc(s.stage_id), u.fmt("stress", s.sigma_nominal_kpa, 0), inc, *_pick_cells(s, u), notes])
+    L, S = u.unit("length"), u.unit("stress")
     headers = (
-        "stage", "sigma'n (kPa)", "included", "peak pick", "x (mm)", "tau (kPa)", "sigma' (kPa)", "phi' secant (deg)",
-        "critical-state pick", "window (mm)", "tau mean (kPa)", "tau s.d. (kPa)", "sigma' (kPa)", "phi' secant (deg)",
-        "dy/dx mean", "e", "notes",
+        "stage", f"sigma'n ({S})", "included", "peak pick", f"x ({L})", f"tau ({S})", f"sigma' ({S})",
+        "phi' secant (deg)", "critical-state pick", f"window ({L})", f"tau mean ({S})", f"tau s.d. ({S})",
+        f"sigma' ({S})", "phi' secant (deg)", "dy/dx mean", "e", "notes",
     )
     return table(headers, rows)
 
 
-def _fit_row(e: EnvelopeResult, which: str) -> list[str]:
+def _fit_row(e: EnvelopeResult, which: str, u: Display = SI) -> list[str]:
     fit = e.free if which == "free" else e.origin
     label = "c' free" if which == "free" else "through origin (c' = 0)"
     chosen = " (reported)" if e.reported == which else ""
@@ -223,61 +233,69 @@ def _fit_row(e: EnvelopeResult, which: str) -> list[str]:
                 + [esc(e.not_fitted or "")])
     lo, hi = fit.phi_interval_deg
     c_lo, c_hi = fit.c_interval_kpa
-    c = "0 (fixed)" if fit.through_origin else f"{num(fit.intercept, 1)} [{c_lo:.1f}, {c_hi:.1f}]"
+    c = "0 (fixed)" if fit.through_origin else (
+        f"{u.fmt('stress', fit.intercept, 1)} [{u.fmt('stress', c_lo, 1)}, {u.fmt('stress', c_hi, 1)}]")
     warn = '<span class="sb-flag">negative c\' : consider c\' = 0</span>' if fit.negative_cohesion else ""
     return [
         esc(e.group), esc(e.kind.replace("_", " ")), esc(label + chosen), str(fit.n),
-        f"{fit.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]", c, f"{fit.r2:.4f}", f"{fit.residual_sd:.2f}",
-        ", ".join(f"{r:+.2f}" for r in fit.residuals), warn,
+        f"{fit.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]", c, f"{fit.r2:.4f}", u.fmt("stress", fit.residual_sd, 2),
+        ", ".join(("+" if r >= 0 else "") + u.fmt("stress", r, 2) for r in fit.residuals), warn,
     ]
 
 
-def envelope_table(results: Results) -> str:
+def envelope_table(results: Results, u: Display = SI) -> str:
     """c' and phi' with their 95 % intervals for every envelope, both fits."""
-    rows = [_fit_row(e, w) for e in results.envelopes for w in ("free", "origin")]
+    rows = [_fit_row(e, w, u) for e in results.envelopes for w in ("free", "origin")]
     level = results.envelopes[0].free.level if results.envelopes and results.envelopes[0].free else 0.95
     pct = f"{level * 100:g} %"
+    S = u.unit("stress")
     return table(
-        ("group", "envelope", "fit", "n", f"phi' (deg) [{pct} CI]", f"c' (kPa) [{pct} CI]", "R^2", "s (kPa)",
-         "residuals (kPa)", "remarks"),
+        ("group", "envelope", "fit", "n", f"phi' (deg) [{pct} CI]", f"c' ({S}) [{pct} CI]", "R^2", f"s ({S})",
+         f"residuals ({S})", "remarks"),
         rows,
     )
 
 
-def residual_table(results: Results) -> str:
+def residual_table(results: Results, u: Display = SI) -> str:
     """Reversal tests: the stress at the end of every pass, and the residual strength."""
     rows = []
     for s in results.stages:
         if s.residual is None:
             continue
-        passes = "<br>".join(f"pass {p.pass_no} ({'forward' if p.forward else 'back'}, {p.travel_mm:.1f} mm): "
-                             f"{p.tau_kpa:.1f} kPa, tau/sigma {p.ratio:.3f}" for p in s.passes)
+        passes = "<br>".join(f"pass {p.pass_no} ({'forward' if p.forward else 'back'}, "
+                             f"{u.with_unit('length', p.travel_mm, 1)}): "
+                             f"{u.with_unit('stress', p.tau_kpa, 1)}, tau/sigma {p.ratio:.3f}" for p in s.passes)
         r = s.residual
-        value = f"{num(r.tau_kpa, 1)} kPa at {num(r.sigma_kpa, 1)} kPa" if r.tau_kpa is not None else "&ndash;"
-        rows.append((esc(s.stage_id), passes, value, esc(r.message)))
+        value = (f"{u.with_unit('stress', r.tau_kpa, 1)} at {u.with_unit('stress', r.sigma_kpa, 1)}"
+                 if r.tau_kpa is not None else "&ndash;")
+        rows.append((esc(s.stage_id), passes, value, esc(u.annotate(r.message))))
     if not rows:
         return ""
     return table(("stage", "end of each pass", "residual", "rule"), rows)
 
 
-def sensitivity_table(results: Results) -> str:
+def sensitivity_table(results: Results, u: Display = SI) -> str:
     """Leave-one-out: every envelope refitted without each of its stages in turn."""
     def change(v: float | None, digits: int) -> str:
         return "&ndash;" if v is None else f"{v:+.{digits}f}"
 
+    def c_change(v: float | None) -> str:
+        return "&ndash;" if v is None else ("+" if v >= 0 else "") + u.fmt("stress", v, 2)
+
     rows = [
         (esc(r.group), esc(r.kind.replace("_", " ")), esc(r.left_out), str(r.n_left), num(r.phi_deg, 1),
-         change(r.phi_change_deg, 2), num(r.c_kpa, 1), change(r.c_change_kpa, 2), num(r.phi_origin_deg, 1),
-         change(r.phi_origin_change_deg, 2), esc(r.method))
+         change(r.phi_change_deg, 2), u.fmt("stress", r.c_kpa, 1), c_change(r.c_change_kpa),
+         num(r.phi_origin_deg, 1), change(r.phi_origin_change_deg, 2), esc(r.method))
         for r in results.sensitivity
     ]
-    return table(("group", "envelope", "stage left out", "n left", "phi' (deg)", "change", "c' (kPa)", "change",
-                  "phi' c'=0 (deg)", "change", "how"), rows)
+    return table(("group", "envelope", "stage left out", "n left", "phi' (deg)", "change",
+                  u.label("c'", "stress"), "change", "phi' c'=0 (deg)", "change", "how"), rows)
 
 
-def flags_table(results: Results) -> str:
-    rows = [(esc(s.stage_id), f'<span class="sb-flag">{esc(f)}</span>') for s in results.stages for f in s.flags]
-    rows += [(esc(s.stage_id), esc(s.no_distinct_peak)) for s in results.stages if s.no_distinct_peak]
+def flags_table(results: Results, u: Display = SI) -> str:
+    rows = [(esc(s.stage_id), f'<span class="sb-flag">{esc(u.annotate(f))}</span>')
+            for s in results.stages for f in s.flags]
+    rows += [(esc(s.stage_id), esc(u.annotate(s.no_distinct_peak))) for s in results.stages if s.no_distinct_peak]
     if not rows:
         return "<p>No flags raised.</p>"
     return table(("stage", "flag"), rows)
@@ -320,9 +338,9 @@ def caution_html() -> str:
     return f'<div class="sb-caution"><b>Caution.</b> {esc(CAUTION)}</div>'
 
 
-def stage_heading(s: StageResult) -> str:
+def stage_heading(s: StageResult, u: Display = SI) -> str:
     """The heading above a stage's plots: stage, test set and normal stress (a new page in print)."""
     where = f", {esc(s.test_set)}" if s.test_set else ""
     left = " (excluded)" if not s.included else ""
-    return (f'<h3 class="sb-stage">Stage {esc(s.stage_id)}{where}, sigma\'n {num(s.sigma_nominal_kpa, 0)} kPa'
-            f"{left}</h3>")
+    return (f'<h3 class="sb-stage">Stage {esc(s.stage_id)}{where}, sigma\'n '
+            f"{u.with_unit('stress', s.sigma_nominal_kpa, 0)}{left}</h3>")

@@ -17,6 +17,7 @@ import ipywidgets as W
 from bokeh.layouts import column, row
 from jupyter_bokeh.widgets import BokehModel
 
+from ..display_units import SI, Display, display_for
 from ..escaping import dom_key
 from ..interpretation import utc_now
 from ..results import Results, StageResult
@@ -30,11 +31,18 @@ PICK_HELP = ("Drag the amber diamond (peak) or the teal squares (ends of the cri
              "stress plot; they snap to the nearest reading. Or type the displacement below.")
 
 
-def _float_text(description: str, value: float, css: str) -> W.FloatText:
-    w = W.FloatText(value=round(value, 3), step=0.01, description=description, style={"description_width": "125px"},
-                    layout=W.Layout(width="265px"))
+def _float_text(description: str, value: float, css: str, u: Display = SI) -> W.FloatText:
+    """A displacement typed in display units: ``value`` is canonical (mm)."""
+    step = 0.01 if u.is_si else 0.0005
+    w = W.FloatText(value=_shown_mm(u, value), step=step, description=f"{description} ({u.unit('length')})",
+                    style={"description_width": "125px"}, layout=W.Layout(width="265px"))
     w.add_class(css)
     return w
+
+
+def _shown_mm(u: Display, value_mm: float) -> float:
+    """A displacement as the number box shows it: 3 decimals of mm, 4 of inches."""
+    return round(u.value("length", value_mm), 3 if u.is_si else 4)
 
 
 class _Guard:
@@ -55,12 +63,12 @@ class StagePanel:
     """Plots, number twins and "back to suggestion" buttons of one stage."""
 
     def __init__(self, wb: LiveWorkbook, s: StageResult) -> None:
-        self.wb, self.sid = wb, s.stage_id
+        self.wb, self.sid, u = wb, s.stage_id, wb.u
         pick = wb.controller.residual_pick(self.sid)  # None unless a reversal test
-        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, pick, self.on_residual_drag)
-        self.peak_x = _float_text("peak at x (mm)", s.peak.x_mm, f"sb-peak-x-{dom_key(self.sid)}")
-        self.cs_from = _float_text("window from (mm)", s.cs.x_from_mm, f"sb-cs-from-{dom_key(self.sid)}")
-        self.cs_to = _float_text("window to (mm)", s.cs.x_to_mm, f"sb-cs-to-{dom_key(self.sid)}")
+        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, pick, self.on_residual_drag, u)
+        self.peak_x = _float_text("peak at x", s.peak.x_mm, f"sb-peak-x-{dom_key(self.sid)}", u)
+        self.cs_from = _float_text("window from", s.cs.x_from_mm, f"sb-cs-from-{dom_key(self.sid)}", u)
+        self.cs_to = _float_text("window to", s.cs.x_to_mm, f"sb-cs-to-{dom_key(self.sid)}", u)
         self.peak_reset = W.Button(description="peak: back to suggestion", layout=W.Layout(width="260px"))
         self.cs_reset = W.Button(description="window: back to suggestion", layout=W.Layout(width="260px"))
         self.info = W.HTML()
@@ -77,8 +85,8 @@ class StagePanel:
                                             description="forward pass", style={"description_width": "125px"},
                                             layout=W.Layout(width="265px"))
             self.residual_pass.add_class(f"sb-res-pass-{dom_key(self.sid)}")
-            self.res_from = _float_text("residual from (mm)", pick[1], f"sb-res-from-{dom_key(self.sid)}")
-            self.res_to = _float_text("residual to (mm)", pick[2], f"sb-res-to-{dom_key(self.sid)}")
+            self.res_from = _float_text("residual from", pick[1], f"sb-res-from-{dom_key(self.sid)}", u)
+            self.res_to = _float_text("residual to", pick[2], f"sb-res-to-{dom_key(self.sid)}", u)
             self.res_reset = W.Button(description="residual: back to suggestion", layout=W.Layout(width="260px"))
             for w in (self.residual_pass, self.res_from, self.res_to):
                 w.observe(self.on_residual_typed, "value")
@@ -91,70 +99,82 @@ class StagePanel:
         self.widget = W.HBox([BokehModel(self.plots.layout), side])
         self.update(s)
 
-    # Bokeh callbacks: (attr, old, new) as jupyter_bokeh calls them, twice, and with our own echo.
+    # Bokeh callbacks: (attr, old, new) as jupyter_bokeh calls them, twice, and with our own echo. The page
+    # works in display units; the controller in mm (mm() turns a displayed displacement back into mm).
+    def mm(self, shown: float) -> float:
+        return self.wb.u.canonical("length", float(shown))
+
     def on_peak_drag(self, attr: str, old: Any, new: Any) -> None:
-        if not new.get("x") or _same(new, marker_data(self.wb.controller.stage(self.sid))):
+        if not new.get("x") or _same(new, marker_data(self.wb.controller.stage(self.sid), self.wb.u)):
             return  # our own write coming back, or the second call of one change
-        self.wb.act(lambda c: c.move_peak(self.sid, float(new["x"][0])), redraw=self.sid)
+        self.wb.act(lambda c: c.move_peak(self.sid, self.mm(new["x"][0])), redraw=self.sid)
 
     def on_window_drag(self, attr: str, old: Any, new: Any) -> None:
         xs = list(new.get("x", []))
-        if len(xs) != 2 or _same(new, window_data(self.wb.controller.stage(self.sid))):
+        if len(xs) != 2 or _same(new, window_data(self.wb.controller.stage(self.sid), self.wb.u)):
             return
-        self.wb.act(lambda c: c.set_window(self.sid, float(min(xs)), float(max(xs))), redraw=self.sid)
+        self.wb.act(lambda c: c.set_window(self.sid, self.mm(min(xs)), self.mm(max(xs))), redraw=self.sid)
 
     def on_peak_typed(self, change: dict[str, Any]) -> None:
         if not self.wb.guard.active:
-            self.wb.act(lambda c: c.move_peak(self.sid, change["new"]), redraw=self.sid)
+            self.wb.act(lambda c: c.move_peak(self.sid, self.mm(change["new"])), redraw=self.sid)
 
     def on_window_typed(self, change: dict[str, Any]) -> None:
         if not self.wb.guard.active:
-            self.wb.act(lambda c: c.set_window(self.sid, self.cs_from.value, self.cs_to.value), redraw=self.sid)
+            self.wb.act(lambda c: c.set_window(self.sid, self.mm(self.cs_from.value), self.mm(self.cs_to.value)),
+                        redraw=self.sid)
 
     def on_residual_drag(self, attr: str, old: Any, new: Any) -> None:
         xs = list(new.get("x", []))
         c = self.wb.controller
         pick = c.residual_pick(self.sid)
-        if len(xs) != 2 or pick is None or _same(new, residual_data(c.stage(self.sid), pick)):
+        if len(xs) != 2 or pick is None or _same(new, residual_data(c.stage(self.sid), pick, self.wb.u)):
             return  # our own write coming back, or the second call of one change
-        self.wb.act(lambda c: c.set_residual(self.sid, pick[0], float(min(xs)), float(max(xs))), redraw=self.sid)
+        self.wb.act(lambda c: c.set_residual(self.sid, pick[0], self.mm(min(xs)), self.mm(max(xs))),
+                    redraw=self.sid)
 
     def on_residual_typed(self, change: dict[str, Any]) -> None:
         if not self.wb.guard.active and self.residual_pass is not None:
-            self.wb.act(lambda c: c.set_residual(self.sid, self.residual_pass.value, self.res_from.value,
-                                                 self.res_to.value), redraw=self.sid)
+            self.wb.act(lambda c: c.set_residual(self.sid, self.residual_pass.value, self.mm(self.res_from.value),
+                                                 self.mm(self.res_to.value)), redraw=self.sid)
 
     def update(self, s: StageResult) -> None:
         pick = self.wb.controller.residual_pick(self.sid)
         self.plots.update(s, pick)
 
+        u = self.wb.u
+
         def write() -> None:
-            self.peak_x.value = round(s.peak.x_mm, 3)
-            self.cs_from.value = round(s.cs.x_from_mm, 3)
-            self.cs_to.value = round(s.cs.x_to_mm, 3)
+            self.peak_x.value = _shown_mm(u, s.peak.x_mm)
+            self.cs_from.value = _shown_mm(u, s.cs.x_from_mm)
+            self.cs_to.value = _shown_mm(u, s.cs.x_to_mm)
             if self.residual_pass is not None and pick is not None:
                 self.residual_pass.value = pick[0]
-                self.res_from.value = round(pick[1], 3)
-                self.res_to.value = round(pick[2], 3)
+                self.res_from.value = _shown_mm(u, pick[1])
+                self.res_to.value = _shown_mm(u, pick[2])
         self.wb.guard.run(write)
-        peak = "suggested" if s.peak_source == "suggested" else f"manual (suggested {s.peak_suggested.x_mm:.2f} mm)"
+        peak = "suggested" if s.peak_source == "suggested" else (
+            f"manual (suggested {u.with_unit('length', s.peak_suggested.x_mm, 2)})")
         cs = "suggested" if s.cs_source == "suggested" else (
-            f"manual (suggested {s.cs_suggested.x_from_mm:.2f}-{s.cs_suggested.x_to_mm:.2f} mm)")
-        distinct = f"<br><i>{tables.esc(s.no_distinct_peak)}</i>" if s.no_distinct_peak else ""
-        residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick))}"
-        self.info.value = (f"<small>peak: {tables.esc(peak)}, tau {s.peak.tau_kpa:.1f} kPa{distinct}<br>"
-                           f"critical state: {tables.esc(cs)}, tau {s.cs.tau_kpa:.1f} kPa{residual}</small>")
+            f"manual (suggested {u.fmt('length', s.cs_suggested.x_from_mm, 2)}-"
+            f"{u.with_unit('length', s.cs_suggested.x_to_mm, 2)})")
+        distinct = f"<br><i>{tables.esc(u.annotate(s.no_distinct_peak))}</i>" if s.no_distinct_peak else ""
+        residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick, u))}"
+        self.info.value = (f"<small>peak: {tables.esc(peak)}, tau {u.with_unit('stress', s.peak.tau_kpa, 1)}"
+                           f"{distinct}<br>critical state: {tables.esc(cs)}, tau "
+                           f"{u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}</small>")
 
 
-def residual_words(s: StageResult, pick: tuple[int, float, float]) -> str:
+def residual_words(s: StageResult, pick: tuple[int, float, float], u: Display = SI) -> str:
     """The residual in use, in words: value, pass, window and source (e.g. for the stage table)."""
     r = s.residual
     if r is None or r.tau_kpa is None:
         value = "not reached"
     else:
         bound = "" if r.reached else " (not reached: an upper bound)"
-        value = f"{r.tau_kpa:.1f} kPa{bound}"
-    return f"{value} on pass {pick[0]}, {pick[1]:.2f}-{pick[2]:.2f} mm ({s.residual_source})"
+        value = f"{u.with_unit('stress', r.tau_kpa, 1)}{bound}"
+    return (f"{value} on pass {pick[0]}, {u.fmt('length', pick[1], 2)}-{u.with_unit('length', pick[2], 2)} "
+            f"({s.residual_source})")
 
 
 def _same(new: Any, drawn: dict[str, list[float]]) -> bool:
@@ -169,7 +189,7 @@ def _same(new: Any, drawn: dict[str, list[float]]) -> bool:
 class StageTable:
     """One row per stage: normal stress, picks, flags, include (a reason is required) and a note."""
 
-    HEAD = ("stage", "sigma'n (kPa)", "peak tau (kPa)", "critical state tau (kPa)", "flags (click to read)",
+    HEAD = ("stage", "sigma'n", "peak tau", "critical state tau", "flags (click to read)",
             "included", "reason for excluding / note")
 
     def __init__(self, wb: LiveWorkbook) -> None:
@@ -177,7 +197,10 @@ class StageTable:
         self.rows: dict[str, dict[str, W.Widget]] = {}
         # a residual column only when the project holds reversal tests
         self.reversal = any(wb.controller.stage(sid).residual is not None for sid in wb.controller.stage_ids)
-        head = (*self.HEAD[:4], "residual tau (kPa)", *self.HEAD[4:]) if self.reversal else self.HEAD
+        S = wb.u.unit("stress")
+        head = (self.HEAD[0], *(f"{h} ({S})" for h in self.HEAD[1:4]), *self.HEAD[4:])
+        if self.reversal:
+            head = (*head[:4], f"residual tau ({S})", *head[4:])
         cells: list[W.Widget] = [W.HTML(f"<b>{tables.esc(h)}</b>") for h in head]
         for sid in wb.controller.stage_ids:
             r = {"sigma": W.HTML(), "peak": W.HTML(), "cs": W.HTML(), "residual": W.HTML(), "flags": W.HTML(),
@@ -226,21 +249,24 @@ class StageTable:
             self.update(self.wb.controller.results)
 
     def update(self, results: Results) -> None:
+        u = self.wb.u
+
         def write() -> None:
             for s in results.stages:
                 r = self.rows[s.stage_id]
-                r["sigma"].value = f"{s.sigma_nominal_kpa:.0f}"
+                r["sigma"].value = u.fmt("stress", s.sigma_nominal_kpa, 0)
                 no_peak = s.no_distinct_peak and s.peak_source == "suggested"
-                peak = "no distinct peak" if no_peak else f"{s.peak.tau_kpa:.1f}"
-                r["peak"].value = f"{tables.esc(peak)} at {s.peak.x_mm:.2f} mm ({s.peak_source})"
-                r["cs"].value = (f"{s.cs.tau_kpa:.1f} over {s.cs.x_from_mm:.2f}-{s.cs.x_to_mm:.2f} mm ({s.cs_source})"
+                peak = "no distinct peak" if no_peak else u.fmt("stress", s.peak.tau_kpa, 1)
+                r["peak"].value = f"{tables.esc(peak)} at {u.with_unit('length', s.peak.x_mm, 2)} ({s.peak_source})"
+                r["cs"].value = (f"{u.fmt('stress', s.cs.tau_kpa, 1)} over {u.fmt('length', s.cs.x_from_mm, 2)}-"
+                                 f"{u.with_unit('length', s.cs.x_to_mm, 2)} ({s.cs_source})"
                                  + ('<br><span class="sb-flag">not reached: left out of the critical-state fit'
                                     "</span>" if s.critical_state_left_out else "")
                                  + (f"<br>not reached, used: {tables.esc(s.critical_state_reason)}"
                                     if s.critical_state_used else ""))
                 pick = self.wb.controller.residual_pick(s.stage_id)
-                r["residual"].value = "&ndash;" if pick is None else tables.esc(residual_words(s, pick))
-                items = "".join(f"<li>{tables.esc(f)}</li>" for f in s.flags)
+                r["residual"].value = "&ndash;" if pick is None else tables.esc(residual_words(s, pick, u))
+                items = "".join(f"<li>{tables.esc(u.annotate(f))}</li>" for f in s.flags)
                 r["flags"].value = (f'<details><summary class="sb-flag">{len(s.flags)} flag(s)</summary>'
                                     f'<ul style="font-size: 11px; margin: 0; padding-left: 14px">{items}</ul></details>'
                                     if s.flags else "none")
@@ -254,8 +280,9 @@ class StageTable:
 class LiveWorkbook:
     """The whole live screen; display its parts in separate cells (``top``, stages, ``table``...)."""
 
-    def __init__(self, controller: Controller) -> None:
+    def __init__(self, controller: Controller, u: Display = SI) -> None:
         self.controller = controller
+        self.u = u  # display units: what the screen shows and what is typed; the controller keeps mm and kPa
         self.guard = _Guard()
         self.last_message = ""
         self.author = W.Text(value=controller.author, description="author", placeholder="your name (recorded)",
@@ -274,7 +301,7 @@ class LiveWorkbook:
         self.stage_table = StageTable(self)
         self.table = self.stage_table.widget
         groups = dict.fromkeys(e.group for e in controller.results.envelopes)
-        self.envelope_plots = [EnvelopePlot(controller.results, g) for g in groups]
+        self.envelope_plots = [EnvelopePlot(controller.results, g, u) for g in groups]
         self.cohesion = W.Checkbox(value=controller.interpretation.settings.fit.cohesion == "zero", indent=False,
                                    description="c' = 0 (envelopes through the origin)")
         self.curved = W.Checkbox(value=False, indent=False, description="show the curved envelope tau = a sigma'^b")
@@ -304,9 +331,9 @@ class LiveWorkbook:
         c = self.controller
         if ok:
             self.status.value = (f'<span class="sb-saved">saved {utc_now()} by {tables.esc(c.author)} '
-                                 f'({c.last_refresh_s * 1000:.0f} ms): {tables.esc(c.message)}</span>')
+                                 f'({c.last_refresh_s * 1000:.0f} ms): {tables.esc(self.u.annotate(c.message))}</span>')
         elif c.message:
-            self.status.value = f'<span class="sb-flag">{tables.esc(c.message)}</span>'
+            self.status.value = f'<span class="sb-flag">{tables.esc(self.u.annotate(c.message))}</span>'
         self.last_message, c.message = c.message, ""
         if not ok and redraw:
             self.panels[redraw].update(c.stage(redraw))
@@ -343,8 +370,8 @@ class LiveWorkbook:
             e.update(results)
         zero = self.controller.interpretation.settings.fit.cohesion == "zero"
         self.guard.run(lambda: setattr(self.cohesion, "value", zero))
-        self.parameters.value = parameters_html(results)
-        self.summary.value = summary_html(results, self.controller)
+        self.parameters.value = parameters_html(results, self.u)
+        self.summary.value = summary_html(results, self.controller, self.u)
 
 
 def _pairs(figures: list[Any]) -> Any:
@@ -352,7 +379,7 @@ def _pairs(figures: list[Any]) -> Any:
     return column(*(row(*figures[i : i + 2]) for i in range(0, len(figures), 2)))
 
 
-def parameters_html(results: Results) -> str:
+def parameters_html(results: Results, u: Display = SI) -> str:
     """c' and phi' with their intervals, every group and envelope; the caution below."""
     rows = []
     for e in results.envelopes:
@@ -364,35 +391,33 @@ def parameters_html(results: Results) -> str:
             continue
         lo, hi = fit.phi_interval_deg
         c_lo, c_hi = fit.c_interval_kpa
-        c = "0 (fixed)" if fit.through_origin else f"{_kpa(fit.intercept)} [{_kpa(c_lo)}, {_kpa(c_hi)}]"
+        c = "0 (fixed)" if fit.through_origin else (
+            f"{u.fmt('stress', fit.intercept, 1)} [{u.fmt('stress', c_lo, 1)}, {u.fmt('stress', c_hi, 1)}]")
         phi = (f'<span class="sb-phi" data-group="{tables.esc(e.group)}" data-kind="{tables.esc(e.kind)}">'
                f"{fit.phi_deg:.1f}</span> [{lo:.1f}, {hi:.1f}]")
         rows.append((tables.esc(e.group), tables.esc(kind), str(fit.n), phi, c, tables.esc(e.not_fitted or "")))
     level = next((e.chosen.level for e in results.envelopes if e.chosen), 0.95)
     ci = f"[{level * 100:g} % CI]"
-    head = ("group", "envelope", "n", f"phi' (deg) {ci}", f"c' (kPa) {ci}", "remarks")
+    head = ("group", "envelope", "n", f"phi' (deg) {ci}", f"c' ({u.unit('stress')}) {ci}", "remarks")
     return _NOWRAP + tables.table(head, rows, css="sb-table sb-live") + tables.caution_html()
 
 
 _NOWRAP = "<style>.sb-live td:not(:last-child), .sb-live th {white-space: nowrap;}</style>"
 
 
-def _kpa(value: float) -> str:
-    """A stress to 0.1 kPa, never "-0.0" (short for ``tables.num(value, 1)``)."""
-    return tables.num(value, 1)
-
-
-def summary_html(results: Results, controller: Controller) -> str:
+def summary_html(results: Results, controller: Controller, u: Display = SI) -> str:
     """Chosen parameters, the flags still open and the sign-off state, in a few lines."""
     interp = controller.interpretation
     manual = sum((s.peak_source == "manual") + (s.cs_source == "manual") + (s.residual_source == "manual")
                  for s in results.stages)
     out = [s for s in results.stages if not s.included]
     params = "; ".join(
-        f"{e.group} {e.kind.replace('_', ' ')}: phi' {e.chosen.phi_deg:.1f} deg, c' {_kpa(e.chosen.intercept)} kPa"
+        f"{e.group} {e.kind.replace('_', ' ')}: phi' {e.chosen.phi_deg:.1f} deg, "
+        f"c' {u.with_unit('stress', e.chosen.intercept, 1)}"
         for e in results.envelopes if e.chosen)
     flags = [(s.stage_id, f) for s in results.stages if s.included for f in s.flags]
-    flag_items = "".join(f"<li>{tables.esc(sid)}: {tables.esc(f)}</li>" for sid, f in flags) or "<li>none</li>"
+    flag_items = "".join(f"<li>{tables.esc(sid)}: {tables.esc(u.annotate(f))}</li>" for sid, f in flags) or (
+        "<li>none</li>")
     signed = interp.signoff.history[-1] if interp.signoff.history else None
     who = f" ({tables.esc(signed['who'])}, {tables.esc(signed['time_utc'])})" if signed else ""
     return (f"<p><b>Parameters:</b> {tables.esc(params) or 'none fitted'}.</p>"
@@ -404,6 +429,10 @@ def summary_html(results: Results, controller: Controller) -> str:
 
 
 def live_workbook(project_dir: str | Path, interpretation_file: str | Path | None = None,
-                  author: str = "") -> LiveWorkbook:
-    """Open the live screen on a project: every decision already in the interpretation file is restored."""
-    return LiveWorkbook(Controller(project_dir, interpretation_file, author))
+                  author: str = "", units: str | None = None) -> LiveWorkbook:
+    """Open the live screen on a project: every decision already in the interpretation file is restored.
+
+    ``units``: "SI" or "US" for what is shown and typed (None: the project's [display] units).
+    """
+    controller = Controller(project_dir, interpretation_file, author)
+    return LiveWorkbook(controller, display_for(units or controller.project.display_units, "display units"))
