@@ -179,7 +179,7 @@ def _rate_mm_min(st: StageResult) -> float | None:
         return st.rate.rate_mm_min
     c = st.reduced.curve
     c = c[c["in_shear"] & (c["pass_no"] == 1)]
-    if len(c) < 2 or np.ptp(c["time_s"].to_numpy()) <= 0:
+    if len(c) < 2 or not np.isfinite(c["time_s"].to_numpy()).all() or np.ptp(c["time_s"].to_numpy()) <= 0:
         return None
     rate = float(np.polyfit(c["time_s"].to_numpy() / 60.0, c["x_mm"].to_numpy(), 1)[0])
     return rate if math.isfinite(rate) and rate > 0 else None

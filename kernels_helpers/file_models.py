@@ -51,6 +51,7 @@ class ColumnEntry(_Table):
     unit: Text = Field(min_length=1)
     dilation: Literal["positive", "negative"] | None = None
     zero: float = 0.0
+    calibration: Text | None = None  # unit "div": the [calibration.NAME] that converts the divisions
 
 
 class ColumnMap(_Table):
@@ -124,6 +125,33 @@ class NormalLoadEntry(_Table):
     lever_ratio: Positive | None = None
 
 
+class ApparatusEntry(_Table):
+    """``[stage.apparatus]``: corrections for the apparatus, each stated per stage in the results."""
+
+    horizontal_measured_at: Literal["box", "drive"] | None = None
+    ring_dial_mm_per_div: Positive | None = None
+    lid_mass_g: NonNegative | None = None
+    box_friction: Text | None = None  # a calibration: friction force against horizontal displacement (mm)
+    vertical_compliance: Text | None = None  # a calibration: apparatus deflection against normal force (N)
+    flag_share: Annotated[float, Field(gt=0, le=1)] | None = None
+
+
+class CalibrationEntry(_Table):
+    """``[calibration.NAME]``: a dial gauge's, proving ring's or apparatus calibration, with its source and date."""
+
+    kind: Literal["linear", "table", "polynomial"]
+    input_unit: Text = "div"
+    output_unit: Text = Field(min_length=1)
+    source: Text = Field(min_length=1)  # e.g. the calibration certificate's number
+    date: Text = Field(min_length=1)
+    range: Annotated[list[float], Field(min_length=2, max_length=2)] | None = None
+    factor: float | None = None
+    offset: float | None = None
+    inputs: list[float] | None = None
+    values: list[float] | None = None
+    coefficients: list[float] | None = None
+
+
 class SampleEntry(_Table):
     """Where the specimen came from (AGS4 export); depths in m below ground."""
 
@@ -153,6 +181,7 @@ class StageTable(_Table):
     columns: ColumnMap | None = None
     csv: CsvLayout | None = None
     consolidation_columns: ConsolidationColumnMap | None = None
+    apparatus: ApparatusEntry | None = None
     consolidation_csv: CsvLayout | None = None
     sample: SampleEntry | None = None
 
@@ -205,6 +234,7 @@ class ProjectFile(_Table):
     project: ProjectMeta = ProjectMeta()
     design: DesignTable = DesignTable()
     display: DisplayTable = DisplayTable()
+    calibration: dict[str, CalibrationEntry] = {}
     stage_defaults: StageTable = StageTable()
     stage: Annotated[list[StageTable], Field(min_length=1)]
 

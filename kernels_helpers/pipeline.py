@@ -17,6 +17,7 @@ from typing import TypeVar
 
 import numpy as np
 
+from .apparatus import correction_flags, corrections_at
 from .derived import derive
 from .envelope import fit_line, fit_through_origin
 from .errors import InterpretationFileError
@@ -101,8 +102,11 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     # in the order the data needs: the consolidation stage first, then the reduction from the height at the
     # start of shearing it gives, then suggestions and checks
     consolidation = consolidation_of(spec)
+    final = consolidation.result.final_settlement_mm if consolidation is not None else None
+    compliance = _compliance_of_settlement(spec, final)  # (taken out, as measured) or None
+    if compliance is not None and final is not None:
+        final = final - compliance[0]
     if reduced is None:
-        final = consolidation.result.final_settlement_mm if consolidation is not None else None
         reduced = reduce_stage(spec, readings, settings.reduction, origin_mm,
                                settlement_of(spec.specimen.consolidation_settlement_mm, final))
     cs_from, cs_to = suggest_critical_state(reduced, settings.picks)
@@ -143,6 +147,9 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     checks = check_stage(spec, readings, reduced, peak.x_mm if no_peak is None else cs.x_from_mm,
                          settings.rate.time_to_failure, consolidation, settings.picks)
     flags.extend(checks.flags)
+    corrections = corrections_at(spec, readings.table, peak.index if no_peak is None else _row_at(reduced, cs.x_to_mm),
+                                 compliance) if spec.apparatus is not None else ()
+    flags.extend(correction_flags(corrections))
     passes, residual, residual_suggested = (), None, None
     if spec.test_type == "reversal":
         c = reduced.curve[reduced.curve["in_shear"]]
@@ -199,7 +206,31 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         consolidation=checks.consolidation,
         rate=checks.rate,
         unreliable=checks.unreliable,
+        corrections=corrections,
     )
+
+
+def _row_at(reduced: ReducedStage, x_mm: float) -> int:
+    """The shearing reading nearest to ``x_mm`` (where a no-peak stage's strength is stated)."""
+    c = reduced.curve
+    x = np.where(c["in_shear"].to_numpy(), c["x_mm"].to_numpy(), np.inf)
+    return int(np.argmin(np.abs(x - x_mm)))
+
+
+def _compliance_of_settlement(spec: StageSpec, final_mm: float | None) -> tuple[float, float] | None:
+    """The apparatus deflection at the stage's load, to take out of a settlement from the consolidation readings.
+
+    None when there is no compliance calibration, or the settlement used is the one declared in the project
+    file (the laboratory's value, left as it is).
+    """
+    app = spec.apparatus
+    if app is None or app.vertical_compliance is None or final_mm is None:
+        return None
+    if spec.specimen.consolidation_settlement_mm is not None:
+        return None
+    from .apparatus import compliance_at
+
+    return float(compliance_at(app, np.array([spec.normal_load.force_n]))[0]), float(final_mm)
 
 
 def pair_flags(stages: tuple[StageResult, ...], ratio_tolerance: float = 0.05, e_tolerance: float = 0.05,

@@ -7,6 +7,7 @@ and validates the project file; it never touches the readings.
 
 from __future__ import annotations
 
+import itertools
 import math
 import tomllib
 from collections.abc import Mapping
@@ -19,6 +20,8 @@ from .units import QUANTITY_OF, to_canonical_factor
 
 __all__ = [
     "PROJECT_FILE",
+    "ApparatusSpec",
+    "CalibrationSpec",
     "ColumnSpec",
     "ConsolidationSpec",
     "CsvFormat",
@@ -33,7 +36,8 @@ __all__ = [
 PROJECT_FILE: Final = "project.toml"
 SCHEMA: Final = "shearbook.project/1"
 G_N: Final = 9.80665  # standard gravity, m/s2 (exact by definition)
-REQUIRED_COLUMNS: Final = ("time", "horizontal_displacement", "vertical_displacement")
+# time is optional: a hand-logged sheet read at intervals of displacement may have none (no rate check then)
+REQUIRED_COLUMNS: Final = ("horizontal_displacement", "vertical_displacement")
 
 Shape = Literal["square", "circular"]
 
@@ -68,6 +72,52 @@ class NormalLoad:
     given_as: str  # what the project file gave, for the record, e.g. "stress_kpa = 50"
 
 
+DIVISIONS: Final = ("div", "divisions")  # a dial gauge or proving-ring reading, converted by a calibration
+
+
+@dataclass(frozen=True)
+class CalibrationSpec:
+    """A named calibration (``[calibration.NAME]``): divisions (or another input) to a physical value.
+
+    ``kind`` "linear": value = offset + factor x input; "table": a monotonic table (certificate)
+    interpolated by PCHIP; "polynomial": value = c0 + c1 x + c2 x^2 + ... The calibrated value is in
+    ``output_unit``; ``range`` is the input span the calibration covers (a reading outside it is flagged).
+    """
+
+    name: str
+    kind: Literal["linear", "table", "polynomial"]
+    input_unit: str
+    output_unit: str
+    source: str
+    date: str
+    range: tuple[float, float]
+    factor: float = 1.0
+    offset: float = 0.0
+    inputs: tuple[float, ...] = ()
+    values: tuple[float, ...] = ()
+    coefficients: tuple[float, ...] = ()
+
+    def describe(self) -> str:
+        what = {"linear": f"linear, {self.factor:g} {self.output_unit}/{self.input_unit}"
+                          + (f" + {self.offset:g} {self.output_unit}" if self.offset else ""),
+                "table": f"table of {len(self.inputs)} points, PCHIP (monotonic) between them",
+                "polynomial": f"polynomial of degree {len(self.coefficients) - 1}"}[self.kind]
+        return (f"{self.name}: {what}; {self.input_unit} -> {self.output_unit}, calibrated over "
+                f"{self.range[0]:g}-{self.range[1]:g} {self.input_unit}; {self.source}, {self.date}")
+
+
+@dataclass(frozen=True)
+class ApparatusSpec:
+    """Apparatus corrections of a stage (``[stage.apparatus]``); every one is stated in the results."""
+
+    horizontal_measured_at: Literal["box", "drive"] = "box"  # "drive": the ring's own deflection is taken out
+    ring_dial_mm_per_div: float | None = None  # proving ring: its dial's mm per division (its deflection)
+    lid_mass_g: float = 0.0  # lid, loading pad and hanger: their weight is added to the normal load
+    box_friction: CalibrationSpec | None = None  # empty-box run: friction force (N) against displacement (mm)
+    vertical_compliance: CalibrationSpec | None = None  # steel dummy: apparatus deflection (mm) against load (N)
+    flag_share: float = 0.05  # a correction larger than this share of the value it corrects is flagged
+
+
 @dataclass(frozen=True)
 class ColumnSpec:
     """How one canonical quantity is read from a readings file."""
@@ -78,6 +128,7 @@ class ColumnSpec:
     factor: float  # multiply the file's values by this to get canonical units
     dilation_positive: bool = True  # vertical gauge only: False when it reads down on dilation
     zero: float = 0.0  # zero offset in the file's unit: canonical = (reading - zero) x factor
+    calibration: CalibrationSpec | None = None  # unit "div": (reading - zero) -> calibration -> x factor
 
 
 @dataclass(frozen=True)
@@ -122,6 +173,7 @@ class StageSpec:
     description: str = ""
     consolidation: ConsolidationSpec | None = None
     sample: SampleSpec | None = None  # [stage.sample]: where the specimen came from (AGS4 export)
+    apparatus: ApparatusSpec | None = None  # [stage.apparatus]: corrections for the apparatus
 
 
 @dataclass(frozen=True)
@@ -151,6 +203,7 @@ class Project:
     stages: tuple[StageSpec, ...]
     design_stress_range_kpa: tuple[float, float] | None = None
     raw: Mapping[str, Any] = field(default_factory=dict, repr=False)
+    calibrations: Mapping[str, CalibrationSpec] = field(default_factory=dict)  # [calibration.NAME]
     display_units: str = "SI"  # [display] units: "SI" or "US" (US customary); what is shown, never what is stored
 
     @property
@@ -287,7 +340,8 @@ def _normal_load(t: _Fields, specimen: Specimen) -> NormalLoad:
     return NormalLoad(value * lever * G_N, f"hanger_mass_kg = {value:g} kg x lever_ratio {lever:g} x g_n")
 
 
-def _columns(t: _Fields, file_label: str, consolidation: bool = False) -> dict[str, ColumnSpec]:
+def _columns(t: _Fields, file_label: str, consolidation: bool = False,
+             calibrations: Mapping[str, CalibrationSpec] | None = None) -> dict[str, ColumnSpec]:
     cols: dict[str, ColumnSpec] = {}
     for quantity, spec in t.table.items():
         where = f"{t.where}.{quantity}"
@@ -306,8 +360,9 @@ def _columns(t: _Fields, file_label: str, consolidation: bool = False) -> dict[s
                 f"{where}: say which way the vertical gauge reads on dilation: add dilation = \"positive\" "
                 "(reading grows when the specimen gets taller) or \"negative\". Shearbook never guesses it."
             )
+        cal = _column_calibration(f, where, unit, calibrations or {})
         try:
-            factor = to_canonical_factor(unit, quantity, f"{where} ({file_label})")
+            factor = to_canonical_factor(cal.output_unit if cal else unit, quantity, f"{where} ({file_label})")
         except UnitError as exc:  # load_project raises ProjectFileError for anything wrong in the file
             raise ProjectFileError(str(exc)) from exc
         cols[quantity] = ColumnSpec(
@@ -317,6 +372,7 @@ def _columns(t: _Fields, file_label: str, consolidation: bool = False) -> dict[s
             factor=factor,
             dilation_positive=sense == "positive",
             zero=f.number("zero", positive=False, default=0.0),
+            calibration=cal,
         )
     if consolidation:  # time and settlement only (settlement = compression = -vertical displacement)
         missing = [q for q in ("time", "vertical_displacement") if q not in cols]
@@ -327,6 +383,114 @@ def _columns(t: _Fields, file_label: str, consolidation: bool = False) -> dict[s
     if missing:
         raise ProjectFileError(f"{t.where}: the column map lacks {', '.join(missing)}.")
     return cols
+
+
+def _column_calibration(f: _Fields, where: str, unit: str,
+                        calibrations: Mapping[str, CalibrationSpec]) -> CalibrationSpec | None:
+    """The calibration of a column read in divisions; an error when one is missing or does not fit."""
+    name = f.table.get("calibration")
+    if unit.strip().lower() not in DIVISIONS:
+        if name is not None:
+            raise ProjectFileError(f"{where}: a calibration converts readings in divisions; give unit = \"div\" "
+                                   f"with calibration = {name!r}, or remove the calibration.")
+        return None
+    if name is None:
+        raise ProjectFileError(f"{where}: a column in divisions needs its calibration: add calibration = \"NAME\" "
+                               "and a [calibration.NAME] table (linear factor, certificate table or polynomial).")
+    return _named_calibration(str(name), where, calibrations, input_unit="div")
+
+
+def _named_calibration(name: str, where: str, calibrations: Mapping[str, CalibrationSpec],
+                       input_unit: str, output_dimension: str | None = None) -> CalibrationSpec:
+    if name not in calibrations:
+        known = ", ".join(sorted(calibrations)) or "none"
+        raise ProjectFileError(f"{where}: no [calibration.{name}] in the project file (calibrations given: {known}).")
+    cal = calibrations[name]
+    if cal.input_unit.strip().lower() != input_unit:
+        raise ProjectFileError(f"{where}: calibration {name!r} takes {cal.input_unit!r}; this needs one that takes "
+                               f"{input_unit!r}.")
+    if output_dimension is not None:
+        from .units import DIMENSION_OF
+
+        got = DIMENSION_OF.get(cal.output_unit.strip().lower())
+        if got != output_dimension:
+            raise ProjectFileError(f"{where}: calibration {name!r} gives {cal.output_unit!r}; this needs a "
+                                   f"{output_dimension} unit.")
+    return cal
+
+
+def _calibrations(raw: Mapping[str, Any], path: Path) -> dict[str, CalibrationSpec]:
+    """Every ``[calibration.NAME]`` table (the file model has checked the types already)."""
+    out: dict[str, CalibrationSpec] = {}
+    for name, table in raw.get("calibration", {}).items():
+        where = f"{path}: [calibration.{name}]"
+        t = _Fields(table, where)
+        kind = t.text("kind")
+        common = {"name": name, "kind": kind, "input_unit": t.text("input_unit", "div"),
+                  "output_unit": t.text("output_unit"), "source": t.text("source"), "date": t.text("date")}
+        span = table.get("range")
+        if kind == "linear":
+            if "factor" not in table:
+                raise ProjectFileError(f"{where}: a linear calibration needs factor (output per input unit).")
+            if span is None:
+                raise ProjectFileError(f"{where}: give range = [low, high], the inputs the calibration was made over.")
+            spec = CalibrationSpec(**common, range=(float(span[0]), float(span[1])),
+                                   factor=t.number("factor", positive=False),
+                                   offset=t.number("offset", positive=False, default=0.0))
+        elif kind == "table":
+            xs, ys = [float(v) for v in table.get("inputs", [])], [float(v) for v in table.get("values", [])]
+            if len(xs) < 2 or len(xs) != len(ys):
+                raise ProjectFileError(f"{where}: a table needs inputs and values of the same length, 2 or more "
+                                       f"(found {len(xs)} inputs and {len(ys)} values).")
+            if any(b <= a for a, b in itertools.pairwise(xs)):
+                raise ProjectFileError(f"{where}: inputs must increase strictly (a certificate table, low to high).")
+            steps = [b - a for a, b in itertools.pairwise(ys)]
+            if not (all(s >= 0 for s in steps) or all(s <= 0 for s in steps)):
+                raise ProjectFileError(f"{where}: values must rise (or fall) throughout: a calibration that turns "
+                                       "back cannot be inverted; check the certificate.")
+            lo, hi = (float(span[0]), float(span[1])) if span is not None else (xs[0], xs[-1])
+            if lo < xs[0] or hi > xs[-1]:
+                raise ProjectFileError(f"{where}: range {lo:g}-{hi:g} goes beyond the table ({xs[0]:g}-{xs[-1]:g}).")
+            spec = CalibrationSpec(**common, range=(lo, hi), inputs=tuple(xs), values=tuple(ys))
+        elif kind == "polynomial":
+            coeffs = [float(v) for v in table.get("coefficients", [])]
+            if not coeffs:
+                raise ProjectFileError(f"{where}: a polynomial needs coefficients = [c0, c1, ...].")
+            if span is None:
+                raise ProjectFileError(f"{where}: give range = [low, high], the inputs the calibration was made over.")
+            spec = CalibrationSpec(**common, range=(float(span[0]), float(span[1])), coefficients=tuple(coeffs))
+        else:  # the file model refuses any other kind
+            raise ProjectFileError(f"{where}: kind must be \"linear\", \"table\" or \"polynomial\", not {kind!r}.")
+        if not spec.range[0] < spec.range[1]:
+            raise ProjectFileError(f"{where}: range must be [low, high] with low < high.")
+        out[name] = spec
+    return out
+
+
+def _apparatus(t: _Fields, calibrations: Mapping[str, CalibrationSpec], columns: Mapping[str, ColumnSpec]
+               ) -> ApparatusSpec | None:
+    if not t.table:
+        return None
+    at = t.text("horizontal_measured_at", "box")
+    ring = t.number("ring_dial_mm_per_div") if "ring_dial_mm_per_div" in t.table else None
+    if at == "drive":
+        force = columns.get("shear_force")
+        if ring is None or force is None or force.calibration is None:
+            raise ProjectFileError(f"{t.where}: horizontal_measured_at = \"drive\" takes the proving ring's own "
+                                   "deflection out: it needs the shear force read in divisions of the ring's dial "
+                                   "(unit = \"div\") and ring_dial_mm_per_div.")
+    friction = t.table.get("box_friction")
+    compliance = t.table.get("vertical_compliance")
+    return ApparatusSpec(
+        horizontal_measured_at=at,  # type: ignore[arg-type]  # checked by the file model
+        ring_dial_mm_per_div=ring,
+        lid_mass_g=t.number("lid_mass_g", positive=False, default=0.0),
+        box_friction=_named_calibration(str(friction), f"{t.where}.box_friction", calibrations, "mm", "force")
+        if friction is not None else None,
+        vertical_compliance=_named_calibration(str(compliance), f"{t.where}.vertical_compliance", calibrations,
+                                               "n", "length") if compliance is not None else None,
+        flag_share=t.number("flag_share", default=0.05),
+    )
 
 
 def _csv(t: _Fields, default_format: str = "text") -> CsvFormat:
@@ -381,20 +545,29 @@ def _consolidation(root: Path, top: _Fields) -> ConsolidationSpec | None:
     )
 
 
-def _stage(root: Path, raw: Mapping[str, Any], defaults: Mapping[str, Any], index: int) -> StageSpec:
+def _stage(root: Path, raw: Mapping[str, Any], defaults: Mapping[str, Any], index: int,
+           calibrations: Mapping[str, CalibrationSpec] | None = None) -> StageSpec:
     merged = _merge(defaults, raw)
     top = _Fields(merged, f"{root / PROJECT_FILE}: stage {index + 1}")
     stage_id = top.text("id")
     top.where = f"{root / PROJECT_FILE}: stage {stage_id!r}"
     relpath = top.text("file")
     specimen = _specimen(_Fields(top.table_of("specimen"), f"{top.where} specimen"))
+    columns = _columns(_Fields(top.table_of("columns"), f"{top.where} columns"), relpath,
+                       calibrations=calibrations or {})
+    apparatus = _apparatus(_Fields(top.table_of("apparatus"), f"{top.where} apparatus"), calibrations or {}, columns)
+    load = _normal_load(_Fields(top.table_of("normal_load"), f"{top.where} normal_load"), specimen)
+    if apparatus is not None and apparatus.lid_mass_g:
+        lid = apparatus.lid_mass_g / 1000.0 * G_N
+        load = NormalLoad(load.force_n + lid, f"{load.given_as}, plus lid, pad and hanger {apparatus.lid_mass_g:g} g "
+                                              f"x g_n = {lid:.2f} N")
     return StageSpec(
         id=stage_id,
         file=_inside(root, relpath, f"{top.where}: file"),
         relpath=relpath,
         specimen=specimen,
-        normal_load=_normal_load(_Fields(top.table_of("normal_load"), f"{top.where} normal_load"), specimen),
-        columns=_columns(_Fields(top.table_of("columns"), f"{top.where} columns"), relpath),
+        normal_load=load,
+        columns=columns,
         csv=_csv(_Fields(top.table_of("csv"), f"{top.where} csv"), _suffix_format(relpath)),
         test_set=top.text("test_set", ""),
         stratum=top.text("stratum", ""),
@@ -402,6 +575,7 @@ def _stage(root: Path, raw: Mapping[str, Any], defaults: Mapping[str, Any], inde
         description=top.text("description", ""),
         consolidation=_consolidation(root, top),
         sample=_sample(_Fields(top.table_of("sample"), f"{top.where} sample")),
+        apparatus=apparatus,
     )
 
 
@@ -439,7 +613,8 @@ def load_project(folder: str | Path) -> Project:
     if not isinstance(stages_raw, list) or not stages_raw:
         raise ProjectFileError(f"{path}: no [[stage]] tables. Declare at least one stage.")
     defaults = raw.get("stage_defaults", {})
-    stages = tuple(_stage(root, s, defaults, i) for i, s in enumerate(stages_raw))
+    calibrations = _calibrations(raw, path)
+    stages = tuple(_stage(root, s, defaults, i, calibrations) for i, s in enumerate(stages_raw))
     ids = [s.id for s in stages]
     dupes = sorted({i for i in ids if ids.count(i) > 1})
     if dupes:
@@ -449,4 +624,4 @@ def load_project(folder: str | Path) -> Project:
     stress_range = (float(rng[0]), float(rng[1])) if rng else None
     units = str(raw.get("display", {}).get("units", "SI"))
     return Project(root=root, meta=raw.get("project", {}), stages=stages, design_stress_range_kpa=stress_range, raw=raw,
-                   display_units=units)
+                   display_units=units, calibrations=calibrations)

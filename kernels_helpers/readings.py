@@ -333,10 +333,19 @@ def read_table(path: Path, relpath: str, label: str, fmt: CsvFormat, columns: Ma
     if n < min_rows:
         raise ReadingsError(f"{path}: only {n} data rows; a {kind} stage needs many more. Check csv.header_row.")
     out: dict[str, np.ndarray] = {}
+    range_notes: list[str] = []
     for quantity, spec in columns.items():
         values = raw[quantity]
         if spec.zero:
             values = values - spec.zero
+        if spec.calibration is not None:  # divisions -> calibrated value (its own unit) -> canonical
+            from .calibration import evaluate, outside_range, range_note
+
+            out[CANONICAL_COLUMNS[quantity] + "_div"] = values
+            if outside_range(spec.calibration, values).any():
+                at = f"at line {_first_line(values, spec.calibration, first, lines)} of {path.name}"
+                range_notes.append(str(range_note(spec.calibration, values, f"{quantity} ({spec.column!r})", at)))
+            values = evaluate(spec.calibration, values)
         values = values * spec.factor if spec.factor != 1.0 else values
         if quantity == "vertical_displacement" and not spec.dilation_positive:
             values = -values
@@ -344,14 +353,24 @@ def read_table(path: Path, relpath: str, label: str, fmt: CsvFormat, columns: Ma
     readings = StageReadings(label, pd.DataFrame(out, copy=False), hashlib.sha256(data).hexdigest(), len(data), relpath,
                              first, lines)
     readings, repeats = _repeated_times(path, fmt, readings)
-    notes = (*untidy, *repeats, *_time_order(path, fmt, columns["time"].column, readings.table["time_s"].to_numpy(),
-                                             readings.line))
+    times = () if "time" not in columns else _time_order(path, fmt, columns["time"].column,
+                                                         readings.table["time_s"].to_numpy(), readings.line)
+    notes = (*untidy, *repeats, *times, *range_notes)
     return readings if not notes else StageReadings(**{**readings.__dict__, "notes": notes})
+
+
+def _first_line(values: np.ndarray, cal, first: int, lines) -> int:
+    from .calibration import outside_range
+
+    i = int(np.flatnonzero(outside_range(cal, values))[0])
+    return int(lines[i]) if lines is not None else first + i
 
 
 def _repeated_times(path: Path, fmt: CsvFormat, readings: StageReadings) -> tuple[StageReadings, tuple[str, ...]]:
     """Readings whose time repeats the previous one (a logger that splits or restarts its file) are left out with
     a note, unless csv.untidy_rows = "refuse" (then csv.time_order decides, as for times that go back)."""
+    if "time_s" not in readings.table:  # a hand-logged sheet without times: nothing to repeat
+        return readings, ()
     t = readings.table["time_s"].to_numpy()
     repeat = np.flatnonzero(np.diff(t) == 0) + 1
     if fmt.untidy_rows == "refuse" or not repeat.size:
@@ -369,7 +388,12 @@ def _repeated_times(path: Path, fmt: CsvFormat, readings: StageReadings) -> tupl
 def read_stage(stage: StageSpec) -> StageReadings:
     """Read the (shear) readings file of ``stage`` into canonical units."""
     r = read_table(stage.file, stage.relpath, f"stage {stage.id!r}", stage.csv, stage.columns)
-    return StageReadings(**{**r.__dict__, "stage_id": stage.id})
+    if stage.apparatus is None:
+        return StageReadings(**{**r.__dict__, "stage_id": stage.id})
+    from .apparatus import apply_corrections  # box friction, ring deflection, compliance (kept as columns)
+
+    table, notes = apply_corrections(stage, r.table)
+    return StageReadings(**{**r.__dict__, "stage_id": stage.id, "table": table, "notes": (*r.notes, *notes)})
 
 
 def read_consolidation(stage: StageSpec) -> StageReadings | None:

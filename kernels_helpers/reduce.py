@@ -146,6 +146,7 @@ class ReducedStage:
     settlement_mm: float = 0.0  # consolidation settlement the heights use (positive = compression)
     settlement_source: str = "declared"  # "declared" (project file), "consolidation readings", or "none"
     height_initial_mm: float = 0.0  # H_0, before consolidation
+    sparse: bool = False  # readings too far apart to smooth (a hand-logged sheet): kept as read (is_sparse)
 
     @property
     def height_start_mm(self) -> float:
@@ -235,6 +236,10 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
     h_start = spec.height_mm - settled_mm
     e = void_ratio(h_start + y, hs)  # H = H_0 - consolidation settlement + y
     in_shear = np.arange(len(x)) >= start
+    if is_sparse(x[start:], settings):  # a hand-logged sheet: every reading is kept as it is
+        return _reduced(stage, readings, x, y, area, tau, sigma, force, normal, e, in_shear, shift, start,
+                        settled_mm, source, h_start, _sparse_rate(x, y, start), tau.copy(),
+                        np.zeros(len(x), dtype=bool), settings.area_convention, sparse=True)
     dydx = np.full_like(x, np.nan)
     tau_smooth = np.full_like(x, np.nan)
     # isolated spikes (Hampel filter, checks.py): kept as read; the smoothing sees the moving median instead
@@ -265,10 +270,45 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
             raise ReadingsError(
                 f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column."
             ) from exc
+    return _reduced(stage, readings, x, y, area, tau, sigma, force, normal, e, in_shear, shift, start, settled_mm,
+                    source, h_start, dydx, tau_smooth, spike, settings.area_convention, pass_no)
+
+
+def is_sparse(x_mm: np.ndarray, settings: ReductionSettings) -> bool:
+    """Readings too far apart to smooth: fewer than four in the peak-smoothing window (a hand-logged sheet).
+
+    Such a curve is kept as read: no spike filter (every reading was taken on purpose), the peak at
+    the highest reading, and the rate of dilation by central differences between neighbouring readings.
+    """
+    steps = np.abs(np.diff(x_mm))
+    steps = steps[steps > 0]
+    return bool(steps.size) and float(np.median(steps)) > settings.peak_smoothing_mm / 4.0
+
+
+def _sparse_rate(x: np.ndarray, y: np.ndarray, start: int) -> np.ndarray:
+    """dy/dx between neighbouring readings (central differences; one-sided at the ends), from the start of shear."""
+    out = np.full_like(x, np.nan)
+    xs, ys = x[start:], y[start:]
+    if xs.size >= 3:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rate = np.gradient(ys, xs)
+        out[start:] = np.where(np.isfinite(rate), rate, np.nan)
+    return out
+
+
+def _reduced(stage: StageSpec, readings: StageReadings, x: np.ndarray, y: np.ndarray, area, tau: np.ndarray,
+             sigma: np.ndarray, force: np.ndarray, normal: float, e: np.ndarray, in_shear: np.ndarray, shift: float,
+             start: int, settled_mm: float, source: str, h_start: float, dydx: np.ndarray, tau_smooth: np.ndarray,
+             spike: np.ndarray, area_convention: str, pass_no: np.ndarray | None = None,
+             sparse: bool = False) -> ReducedStage:
+    t, spec = readings.table, stage.specimen
+    hs = height_of_solids_mm(spec)
+    pass_no = pass_no if pass_no is not None else (
+        label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64))
     curve = pd.DataFrame(
         {
-            "time_s": t["time_s"].to_numpy(),
-            "x_raw_mm": x_raw,
+            "time_s": t["time_s"].to_numpy() if "time_s" in t else np.full(len(t), np.nan),  # none: a hand sheet
+            "x_raw_mm": t["x_mm"].to_numpy(),
             "x_mm": x,
             "y_mm": y,
             "area_mm2": area,
@@ -293,10 +333,11 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
         e_start=float(void_ratio(h_start, hs)),
         normal_force_n=normal,
         area0_mm2=spec.area0_mm2,
-        area_convention=settings.area_convention,
+        area_convention=area_convention,
         settlement_mm=settled_mm,
         settlement_source=source,
         height_initial_mm=spec.height_mm,
+        sparse=sparse,
     )
 
 

@@ -13,6 +13,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from .apparatus import Correction
 from .consolidation import ConsolidationResult, RateCheck, consolidation_dict
 from .envelope import LineFit
 from .mime import INTERPRETATION_MIME, RESULTS_MIME  # noqa: F401  (re-exported)
@@ -64,6 +65,7 @@ class StageResult:
     consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
     rate: RateCheck | None = None  # required time to failure against the actual test
     unreliable: tuple[str, ...] = ()  # results that depend on a faulty transducer channel (checks.transducer_flags)
+    corrections: tuple[Correction, ...] = ()  # apparatus corrections, stated at the peak (apparatus.py)
     critical_state_used: bool = False  # put back in the critical-state fit by the engineer although not reached
     critical_state_reason: str = ""
 
@@ -238,6 +240,8 @@ class Results:
                                       else dataclasses.asdict(s.residual_suggested))},
                     "consolidation": consolidation_dict(s.consolidation),
                     "rate_check": None if s.rate is None else dataclasses.asdict(s.rate),
+                    **({"apparatus_corrections": [{**dataclasses.asdict(c), "flagged": c.flagged}
+                                                  for c in s.corrections]} if s.corrections else {}),
                 }
             )
         envelopes = [

@@ -82,6 +82,10 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
         lambda row: readings.line(first + row), float(np.ptp(shear["x_mm"].to_numpy())) if len(shear) else 0.0,
         picks)
     flags += faults
+    timed = bool(np.isfinite(c["time_s"].to_numpy()).all())
+    if not timed:
+        flags.append("drained-rate check not possible: the readings have no time column (a sheet read at intervals "
+                     "of displacement); state the rate of shearing from the laboratory's record")
     if consolidation is None:
         return StageChecks(tuple(flags), None, None, None, tuple(unreliable))
     cons_readings, result = consolidation.readings, consolidation.result
@@ -89,7 +93,7 @@ def check_stage(spec: StageSpec, readings: StageReadings, reduced: ReducedStage,
     flags += [f"consolidation stage ({relpath}): {f}" for f in result.flags]
     rows = np.flatnonzero(in_shear & (c["pass_no"].to_numpy() == 1) if "pass_no" in c else in_shear)
     rate = None
-    if rows.size >= 3:
+    if rows.size >= 3 and timed:
         x = c["x_mm"].to_numpy()
         failure = int(rows[np.argmin(np.abs(x[rows] - x_failure_mm))])
         rate = rate_check(c["time_s"].to_numpy(), x, int(rows[0]), failure, result, time_to_failure)

@@ -90,7 +90,8 @@ def _header(ctx: Context) -> list[Part]:
             tt=pk["cs_trend_tolerance"] * 100, n=DISPLAY_POINTS))
     return [tables.header_html(results, u) + tables.caution_html(),
             _h("Inputs (raw readings, never modified)") + tables.inputs_table(results, project),
-            _h("Specimens") + tables.specimen_table(results, project, u) + u.annotate(method)]
+            _h("Specimens") + tables.specimen_table(results, project, u) + u.annotate(method)
+            + tables.apparatus_html(results, project, u)]
 
 
 def _stages(ctx: Context) -> list[Part]:

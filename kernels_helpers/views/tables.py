@@ -178,6 +178,12 @@ def method_html(results: Results, u: Display = SI) -> str:
         "prediction interval of its envelope fitted without it is flagged (outlier_level), with phi' and c' with and "
         "without it; it is never left out automatically.",
     ]
+    sparse = [s.stage_id for s in results.stages if s.reduced.sparse]
+    if sparse:
+        items.append(f"Readings far apart (a hand-logged sheet: fewer than four readings in "
+                     f"{results.settings['reduction']['peak_smoothing_mm']:g} mm; here {', '.join(sparse)}): kept as "
+                     "read, with no spike filter and no smoothing; the peak is the highest reading and every pick is "
+                     "at a reading; dy/dx is taken between neighbouring readings (central differences).")
     return "<ul>" + "".join(f"<li>{esc(u.annotate(i))}</li>" for i in items) + "</ul>"
 
 
@@ -344,3 +350,28 @@ def stage_heading(s: StageResult, u: Display = SI) -> str:
     left = " (excluded)" if not s.included else ""
     return (f'<h3 class="sb-stage">Stage {esc(s.stage_id)}{where}, sigma\'n '
             f"{u.with_unit('stress', s.sigma_nominal_kpa, 0)}{left}</h3>")
+
+
+def apparatus_html(results: Results, project: Project, u: Display = SI) -> str:
+    """The calibrations the readings were converted with, and each stage's apparatus corrections at its peak."""
+    cals = {c.calibration.name: c.calibration for s in project.stages for c in s.columns.values() if c.calibration}
+    for s in project.stages:
+        if s.apparatus is not None:
+            cals.update({c.name: c for c in (s.apparatus.box_friction, s.apparatus.vertical_compliance) if c})
+    rows = [(esc(s.stage_id), esc(c.name), esc(c.method), f"{c.at_peak:.4g} {esc(c.unit)}",
+             f"{c.measured_at_peak:.4g} {esc(c.unit)}",
+             ("&ndash;" if c.share is None else f"{c.share * 100:.1f} %")
+             + (' <span class="sb-flag">above the stated share</span>' if c.flagged else ""),
+             f"{c.limit * 100:g} %") for s in results.stages for c in s.corrections]
+    if not cals and not rows:
+        return ""
+    out = "<h3>Calibrations and apparatus corrections</h3>"
+    if cals:
+        out += table(("calibration", "kind, units, range, source and date"),
+                     [(esc(n), esc(c.describe())) for n, c in sorted(cals.items())])
+    if rows:
+        out += table(("stage", "correction", "how", "size at the peak", "value it corrects (measured)", "share",
+                      "flagged above"), rows)
+        out += ("<p>Corrections are applied to the readings before reduction; the raw files are unchanged. "
+                "Values are in SI (N, mm) as the calibrations give them.</p>")
+    return out
