@@ -230,3 +230,24 @@ def test_the_record_of_the_hand_logged_set_states_calibrations_and_corrections(t
     assert "table of 9 points, PCHIP (monotonic)" in text and "kept as read" in text
     assert verify_record(rec.path, project).ok
     assert math.isfinite(rec.results["envelopes"][0]["free"]["phi_deg"])
+
+
+def test_compliance_comes_off_a_settlement_taken_from_the_consolidation_readings(example_copy: Path) -> None:
+    toml = example_copy / "project.toml"
+    text = toml.read_text(encoding="utf-8").replace("consolidation_settlement_mm = 0.046\n", "", 1)
+    text += ('\n[calibration.dummy]\nkind = "linear"\ninput_unit = "N"\noutput_unit = "mm"\nfactor = 0.0001\n'
+             'range = [0, 2000]\nsource = "steel dummy (invented)"\ndate = "2026-03-03"\n')
+    text = text.replace("force_n = 180.0\n", 'force_n = 180.0\n[stage.apparatus]\nvertical_compliance = "dummy"\n', 1)
+    toml.write_text(toml.read_text(encoding="utf-8").replace("consolidation_settlement_mm = 0.046\n", "", 1),
+                    encoding="utf-8")  # no declared settlement, no compliance yet
+    before = interpret(example_copy).stage("BH03-D1")
+    toml.write_text(text, encoding="utf-8")
+    s = interpret(example_copy).stage("BH03-D1")
+    measured = s.consolidation.final_settlement_mm
+    # 180 N x 0.0001 mm/N = 0.018 mm of the measured settlement was the apparatus, not the specimen
+    assert s.reduced.settlement_mm == pytest.approx(measured - 0.018)
+    assert s.reduced.settlement_source == "consolidation readings"
+    stated = next(c for c in s.corrections if c.name == "vertical compliance at the stage's load")
+    assert stated.at_peak == pytest.approx(0.018) and stated.measured_at_peak == pytest.approx(measured)
+    assert before.reduced.settlement_mm == pytest.approx(measured)  # without the calibration: all of it
+    assert s.reduced.e_start > before.reduced.e_start  # less settlement: a taller, looser specimen
