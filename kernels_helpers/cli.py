@@ -287,9 +287,12 @@ def _open(args: argparse.Namespace) -> int:
     notebook = workbook_in_project(project.root)
     token = os.environ.get("JUPYTER_TOKEN") or secrets.token_urlsafe(24)  # passed by environment, not argv
     url = f"http://{args.ip}:{args.port}/lab/tree/{quote(notebook.name)}"
+    settings = _quiet_lab_settings()
     cmd = [sys.executable, "-m", "jupyterlab", f"--ServerApp.root_dir={project.root}", f"--ServerApp.ip={args.ip}",
            f"--ServerApp.port={args.port}", "--ServerApp.port_retries=0",
            "--KernelManager.transport=ipc",  # kernels on Unix sockets in the runtime folder, not TCP
+           # no news pop-up over the live screen and no update check: this session's own application settings
+           f"--LabApp.app_settings_dir={settings}", "--LabApp.check_for_updates_class=jupyterlab.NeverCheckForUpdate",
            *[f"--{app}.log_level={'INFO' if args.verbose else 'WARN'}" for app in ("ServerApp", "LabApp")],
            notebook.name]
     if args.no_browser:
@@ -304,6 +307,40 @@ def _open(args: argparse.Namespace) -> int:
         return server.wait()
     except KeyboardInterrupt:  # the server got the same signal and shuts down; wait for it
         return server.wait()
+    finally:
+        import shutil
+
+        shutil.rmtree(settings, ignore_errors=True)
+
+
+NEWS_OFF = {"@jupyterlab/apputils-extension:notification": {"fetchNews": "false", "checkForUpdates": False}}
+
+
+def _quiet_lab_settings() -> Path:
+    """A private copy of JupyterLab's application settings with the news and update prompts turned off.
+
+    The installation's own overrides are kept (copied); only the notification settings are set. The
+    user's settings are untouched: what the user chose in JupyterLab's settings editor still applies.
+    """
+    import json
+    import shutil
+    import tempfile
+
+    from jupyterlab.commands import get_app_dir
+
+    folder = Path(tempfile.mkdtemp(prefix="shearbook-lab-settings-"))
+    installed = Path(get_app_dir()) / "settings"
+    if installed.is_dir():
+        shutil.copytree(installed, folder, dirs_exist_ok=True)
+    overrides_path = folder / "overrides.json"
+    try:
+        overrides = json.loads(overrides_path.read_text(encoding="utf-8")) if overrides_path.is_file() else {}
+    except (OSError, json.JSONDecodeError):
+        overrides = {}
+    for plugin, values in NEWS_OFF.items():
+        overrides[plugin] = {**overrides.get(plugin, {}), **values}
+    overrides_path.write_text(json.dumps(overrides, indent=2), encoding="utf-8")
+    return folder
 
 
 OUTPUT_POLICY = ("A normal run prints Shearbook's own lines only: progress on long work (standard error), the result "

@@ -148,6 +148,13 @@ def _open_starts(env: Path, project: Path) -> None:
         with urllib.request.urlopen(first.split(" ", 1)[1].strip(), timeout=30) as page:
             assert page.status == 200
         assert (project / "shear_interpretation.ipynb").is_file()
+        # no news pop-up over the live screen: the session's settings turn news and update checks off
+        token = first.split("token=", 1)[1].strip()
+        api = f"http://127.0.0.1:{port}/lab/api/settings/@jupyterlab/apputils-extension:notification?token={token}"
+        with urllib.request.urlopen(api, timeout=30) as reply:
+            answer = json.loads(reply.read())
+        defaults = {k: v.get("default") for k, v in answer["schema"]["properties"].items()}  # overrides set these
+        assert defaults["fetchNews"] == "false" and defaults["checkForUpdates"] is False, defaults
     finally:
         os.killpg(server.pid, signal.SIGTERM)
         server.wait(timeout=60)

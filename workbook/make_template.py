@@ -36,6 +36,9 @@ INTERACTIVE_CELLS = [
     new_code_cell("live.envelopes", metadata=LIVE),
     new_markdown_cell("### Summary", metadata=LIVE),
     new_code_cell("live.summary", metadata=LIVE),
+    new_markdown_cell("### Sign-off\nThe state and every step so far; record the next one here (your name and the time "
+                      "are kept), or sign it with your key from the command line.", metadata=LIVE),
+    new_code_cell("live.signoff.widget", metadata=LIVE),
 ]
 
 CELLS = [
@@ -52,7 +55,10 @@ CELLS = [
         "interpretation_file = None\n"
         '# display units: "SI" (kPa, mm, N) or "US" (psf, in, lbf); None: the project\'s [display] units.\n'
         "# Only what is shown changes: the interpretation file and the results stay SI.\n"
-        "display_units = None",
+        "display_units = None\n"
+        "# normal stresses (kPa) at which to give the power-law secant and tangent angles; None: the ends and the\n"
+        "# middle of the design range\n"
+        "angles_at_kpa = None",
         metadata={"tags": ["parameters"]},
     ),
     new_code_cell(
@@ -95,11 +101,7 @@ CELLS = [
         "## Envelope statistics and curvature\n"
         "The numbers behind the bands and the power law drawn above, and the secant angle of every stage."
     ),
-    new_code_cell(
-        "# normal stresses (kPa) at which to give the power-law secant and tangent angles;\n"
-        "# None: the ends and the middle of the design range\n"
-        "views.show_envelope_statistics(results, angles_at_kpa=None)"
-    ),
+    new_code_cell("views.show_envelope_statistics(results, angles_at_kpa=angles_at_kpa)"),
     new_markdown_cell("## Test sets within a stratum\n"
                       "Each set's envelope beside the pooled one, and whether they belong together."),
     new_code_cell("views.show_set_comparison(results)"),

@@ -200,6 +200,14 @@ class Controller:
         words = "c' = 0 (envelopes through the origin)" if cohesion == "zero" else "c' free"
         return self._edit(edit, None, f"reported fits: {words}")
 
+    def sign_off(self, state: Literal["draft", "checked", "approved"], note: str = "") -> bool:
+        """Record the next sign-off step by the author (draft -> checked -> approved, or back to draft).
+
+        The same rules as ``shearbook signoff``; a signed step (an OpenSSH signature) is made there.
+        """
+        return self._edit(lambda i: i.with_signoff(state, self.author, note), None,
+                          f"sign-off: {state} by {self.author} saved")
+
     def undo(self) -> bool:
         """Go back to the interpretation before the last change (saved at once, like any edit)."""
         if not self.history:

@@ -20,6 +20,7 @@ from jupyter_bokeh.widgets import BokehModel
 from ..display_units import SI, Display, display_for
 from ..escaping import dom_key
 from ..interpretation import utc_now
+from ..notices import fit_changes, standing_notices
 from ..results import Results, StageResult
 from . import tables
 from .interactive import Controller
@@ -313,6 +314,12 @@ class LiveWorkbook:
                                  BokehModel(_pairs([e.figure for e in self.envelope_plots])), self.parameters])
         self.summary = W.HTML()
         self.summary.add_class("sb-summary")
+        self.notices = W.HTML()
+        self.notices.add_class("sb-notices")
+        self.last_changes: list[str] = []
+        self._previous: Results | None = None
+        self.envelopes.children = (*self.envelopes.children, self.notices)
+        self.signoff = SignOffPanel(self)
         controller.subscribe(self.refresh)
         self.refresh(controller.results, frozenset())
         self.status.value = (f"<small>{tables.esc(PICK_HELP)} Decisions are saved at once to "
@@ -330,8 +337,11 @@ class LiveWorkbook:
         ok = edit(self.controller)
         c = self.controller
         if ok:
+            changes = "".join(f'<br><span class="sb-flag">{tables.esc(self.u.annotate(x))}</span>'
+                              for x in self.last_changes)
             self.status.value = (f'<span class="sb-saved">saved {utc_now()} by {tables.esc(c.author)} '
-                                 f'({c.last_refresh_s * 1000:.0f} ms): {tables.esc(self.u.annotate(c.message))}</span>')
+                                 f'({c.last_refresh_s * 1000:.0f} ms): {tables.esc(self.u.annotate(c.message))}</span>'
+                                 + changes)
         elif c.message:
             self.status.value = f'<span class="sb-flag">{tables.esc(self.u.annotate(c.message))}</span>'
         self.last_message, c.message = c.message, ""
@@ -372,6 +382,59 @@ class LiveWorkbook:
         self.guard.run(lambda: setattr(self.cohesion, "value", zero))
         self.parameters.value = parameters_html(results, self.u)
         self.summary.value = summary_html(results, self.controller, self.u)
+        self.last_changes = fit_changes(self._previous, results) if self._previous is not None else []
+        self._previous = results
+        self.notices.value = notices_html(self.last_changes, standing_notices(results), self.u)
+        if hasattr(self, "signoff"):
+            self.signoff.update()
+
+
+def notices_html(changes: list[str], standing: list[str], u: Display = SI) -> str:
+    """Beside the envelopes: what the last edit changed in the fits, then what stands out in them now."""
+    out = ""
+    if changes:
+        out += ("<p><b>The last edit changed the fits:</b></p><ul>"
+                + "".join(f'<li class="sb-flag">{tables.esc(u.annotate(x))}</li>' for x in changes) + "</ul>")
+    if standing:
+        out += ("<p><b>To judge in these fits:</b></p><ul>"
+                + "".join(f"<li>{tables.esc(u.annotate(x))}</li>" for x in standing) + "</ul>")
+    return out
+
+
+NEXT_STEPS = {"draft": ("checked",), "checked": ("approved", "draft"), "approved": ("draft",)}
+
+
+class SignOffPanel:
+    """The sign-off where the work is: its state and history, and the next step recorded by the author."""
+
+    def __init__(self, wb: LiveWorkbook) -> None:
+        self.wb = wb
+        self.history = W.HTML()
+        self.history.add_class("sb-signoff-history")
+        self.state = W.Dropdown(description="next step", options=[], style={"description_width": "80px"},
+                                layout=W.Layout(width="220px"))
+        self.state.add_class("sb-signoff-state")
+        self.note = W.Text(placeholder="remark (optional)", layout=W.Layout(width="260px"))
+        self.note.add_class("sb-signoff-note")
+        self.button = W.Button(description="record this step", icon="check", layout=W.Layout(width="170px"))
+        self.button.add_class("sb-signoff-record")
+        self.button.on_click(lambda _: self.record())
+        hint = W.HTML("<small>Recorded with your name and the time, like every decision. To sign a step with your "
+                      "OpenSSH key, use <code>shearbook signoff --sign KEY --principal EMAIL</code>.</small>")
+        self.widget = W.VBox([self.history, W.HBox([self.state, self.note, self.button]), hint])
+        self.update()
+
+    def update(self) -> None:
+        so = self.wb.controller.interpretation.signoff
+        self.history.value = tables.signoff_table(so)
+        options = NEXT_STEPS[so.state]
+        self.wb.guard.run(lambda: setattr(self.state, "options", list(options)))
+        self.wb.guard.run(lambda: setattr(self.state, "value", options[0]))
+
+    def record(self) -> None:
+        if self.wb.act(lambda c: c.sign_off(self.state.value, self.note.value.strip())):
+            self.note.value = ""
+        self.update()
 
 
 def _pairs(figures: list[Any]) -> Any:

@@ -1,0 +1,58 @@
+"""The live screen says what an edit changed in the fits, and carries the sign-off (same rules as the command).
+
+The fit facts are checked against the results themselves (interpret on the file as saved): the
+through-origin fallback when fewer than three stages are left (common practice: a straight line with
+c' free needs at least three points for any statistics), and the sign of c'.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from kernels_helpers import interpret
+from kernels_helpers.interpretation import load_interpretation
+from kernels_helpers.notices import fit_changes, standing_notices
+from kernels_helpers.views.widgets import live_workbook
+
+
+def test_excluding_a_stage_says_the_fit_fell_back_to_c_zero_and_why(example_copy: Path) -> None:
+    wb = live_workbook(example_copy, author="T. Tester")
+    before = wb.controller.results
+    assert wb.controller.exclude("BH03-D2", "disturbed on trimming (test)")
+    after = wb.controller.results
+    env = after.envelope("BH03 dense", "critical_state")
+    assert env.reported == "zero" and before.envelope("BH03 dense", "critical_state").reported == "free"
+    changes = fit_changes(before, after)
+    assert any(c.startswith("BH03 dense, critical state: now c' = 0 (through the origin): ") for c in changes)
+    assert "BH03 dense, peak: BH03-D2 left the fit (excluded: disturbed on trimming (test))" in changes
+    assert wb.last_changes == changes  # the screen shows the same sentences
+    assert "The last edit changed the fits" in wb.notices.value and "BH03-D2 left the fit" in wb.notices.value
+    wb.act(lambda c: c.restore("BH03-D2"))
+    assert any("now c' free" in c for c in wb.last_changes)
+
+
+def test_standing_notices_name_negative_c_and_fits_not_made(example_copy: Path) -> None:
+    res = interpret(example_copy)
+    notes = standing_notices(res)
+    for e in res.envelopes:
+        if e.chosen is not None and e.chosen.negative_cohesion:
+            assert any(n.startswith(f"{e.group}, {e.kind.replace('_', ' ')}: negative c'") for n in notes)
+        if e.chosen is None:
+            assert any(n.startswith(f"{e.group}, {e.kind.replace('_', ' ')}: not fitted") for n in notes)
+    assert fit_changes(res, res) == []
+
+
+def test_the_sign_off_is_recorded_on_the_live_screen_with_the_command_s_rules(example_copy: Path) -> None:
+    wb = live_workbook(example_copy, author="")
+    panel = wb.signoff
+    assert list(panel.state.options) == ["checked"]  # from draft only to checked
+    panel.record()
+    assert "type your name in the author box first" in wb.status.value  # refused without a name
+    wb.controller.author = "B. Checker"
+    panel.note.value = "picks checked against the sheets"
+    panel.record()
+    saved = load_interpretation(example_copy / "interpretation.json").signoff
+    assert saved.state == "checked" and saved.history[-1]["who"] == "B. Checker"
+    assert saved.history[-1]["note"] == "picks checked against the sheets"
+    assert list(panel.state.options) == ["approved", "draft"] and "checked, not yet approved" in panel.history.value
+    assert "B. Checker" in panel.history.value and "unsigned (a name only)" in panel.history.value
