@@ -227,6 +227,12 @@ class DisplayTable(_Table):
     units: Literal["SI", "US"] = "SI"  # "US": US customary (psf, in, lbf); stored values stay SI
 
 
+class PolicyTable(_Table):
+    """``[policy]``: what the project asks of the people interpreting it."""
+
+    manual_pick_reason: Literal["prompt", "require"] = "prompt"  # "require": a manual pick without a reason is refused
+
+
 class ProjectFile(_Table):
     """The project file ``project.toml``."""
 
@@ -234,6 +240,7 @@ class ProjectFile(_Table):
     project: ProjectMeta = ProjectMeta()
     design: DesignTable = DesignTable()
     display: DisplayTable = DisplayTable()
+    policy: PolicyTable = PolicyTable()
     calibration: dict[str, CalibrationEntry] = {}
     stage_defaults: StageTable = StageTable()
     stage: Annotated[list[StageTable], Field(min_length=1)]

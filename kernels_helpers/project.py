@@ -204,6 +204,7 @@ class Project:
     design_stress_range_kpa: tuple[float, float] | None = None
     raw: Mapping[str, Any] = field(default_factory=dict, repr=False)
     calibrations: Mapping[str, CalibrationSpec] = field(default_factory=dict)  # [calibration.NAME]
+    manual_pick_reason: str = "prompt"  # [policy]: "require" refuses a manual pick without a reason
     display_units: str = "SI"  # [display] units: "SI" or "US" (US customary); what is shown, never what is stored
 
     @property
@@ -624,4 +625,5 @@ def load_project(folder: str | Path) -> Project:
     stress_range = (float(rng[0]), float(rng[1])) if rng else None
     units = str(raw.get("display", {}).get("units", "SI"))
     return Project(root=root, meta=raw.get("project", {}), stages=stages, design_stress_range_kpa=stress_range, raw=raw,
-                   display_units=units, calibrations=calibrations)
+                   display_units=units, calibrations=calibrations,
+                   manual_pick_reason=str(raw.get("policy", {}).get("manual_pick_reason", "prompt")))

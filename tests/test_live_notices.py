@@ -56,3 +56,40 @@ def test_the_sign_off_is_recorded_on_the_live_screen_with_the_command_s_rules(ex
     assert saved.history[-1]["note"] == "picks checked against the sheets"
     assert list(panel.state.options) == ["approved", "draft"] and "checked, not yet approved" in panel.history.value
     assert "B. Checker" in panel.history.value and "unsigned (a name only)" in panel.history.value
+
+
+def test_a_manual_pick_asks_for_its_reason_and_a_project_can_require_one(example_copy: Path) -> None:
+    wb = live_workbook(example_copy, author="T. Tester")
+    c = wb.controller
+    x = c.stage("BH03-D3").peak.x_mm + 1.0
+    assert wb.act(lambda c: c.move_peak("BH03-D3", x))
+    assert "give its reason in the stage&#x27;s reason box" in wb.status.value  # prompted, not refused
+    wb.panels["BH03-D3"].reason.value = "crest flat over 1 mm; the middle taken"
+    saved = load_interpretation(example_copy / "interpretation.json").decision("BH03-D3").peak
+    assert saved.source == "manual" and saved.note == "crest flat over 1 mm; the middle taken"
+    # the project can make the reason a condition of the pick, as for an exclusion
+    toml = example_copy / "project.toml"
+    toml.write_text(toml.read_text(encoding="utf-8") + '\n[policy]\nmanual_pick_reason = "require"\n',
+                    encoding="utf-8")
+    strict = live_workbook(example_copy, author="T. Tester")
+    before = (example_copy / "interpretation.json").read_bytes()
+    assert not strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.x_mm + 1.0))
+    assert "this project requires a reason for every manual pick" in strict.status.value
+    assert (example_copy / "interpretation.json").read_bytes() == before
+    strict.panels["BH03-D1"].reason.value = "second crest is the true peak (see sheet)"
+    assert strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.x_mm + 1.0))
+    assert load_interpretation(example_copy / "interpretation.json").decision("BH03-D1").peak.note == (
+        "second crest is the true peak (see sheet)")
+
+
+def test_picks_are_named_on_the_plot_and_envelope_points_by_their_stage(example_copy: Path) -> None:
+    from bokeh.models import LabelSet
+
+    wb = live_workbook(example_copy, author="T. Tester")
+    plots = wb.panels["BH03-D2"].plots
+    assert plots.peak_label.text == "manual peak"  # the example's interpretation moved BH03-D2's peak by hand
+    assert wb.panels["BH03-D1"].plots.peak_label.text == "suggested peak"
+    assert wb.panels["BH03-L1"].plots.peak_label.text == "no distinct peak"
+    labels = [r for e in wb.envelope_plots for r in e.figure.center if isinstance(r, LabelSet)]
+    assert labels and all(getattr(lab.text, "field", lab.text) == "stage" for lab in labels)
+    assert "BH03-D1" in wb.envelope_plots[0].sources["peak"]["in"].data["stage"]

@@ -63,6 +63,7 @@ class Controller:
         self.author = author
         self.unsaved = ""  # an edit refused because the file changed on disk, shown until a reload
         self.message = ""  # the last refusal or confirmation, in words
+        self.reasons: dict[str, str] = {}  # per stage: the reason the engineer typed for a manual pick
         self.history: list[Interpretation] = []
         self.last_refresh_s = 0.0  # time of the last edit: analysis + refit + save + redraw
         self._listeners: list[Listener] = []
@@ -120,13 +121,27 @@ class Controller:
 
     # --- the edits (each returns True when it changed and saved the interpretation) ------------
 
+    def _reason_check(self, stage_id: str) -> str | None:
+        """None when a manual pick may be made now; else why not ([policy] manual_pick_reason = "require")."""
+        if self.project.manual_pick_reason == "require" and not self.reasons.get(stage_id, "").strip():
+            return (f"{stage_id}: this project requires a reason for every manual pick ([policy] manual_pick_reason); "
+                    "type it in the stage's reason box first, then move the pick again.")
+        return None
+
+    def _asked(self, stage_id: str, message: str) -> str:
+        return message if self.reasons.get(stage_id, "").strip() else (
+            f"{message} - give its reason in the stage's reason box (a manual pick needs one)")
+
     def move_peak(self, stage_id: str, x_mm: float) -> bool:
         """A manual peak at the reading nearest ``x_mm``; no change if that is the current peak."""
         x = self._snap(stage_id, float(x_mm))
         if x == self.stage(stage_id).peak.x_mm:
             return self._unchanged(f"{stage_id}: the peak is already at {x:.3f} mm")
-        return self._edit(lambda i: i.with_peak(stage_id, x, self.author), stage_id,
-                          f"{stage_id}: peak moved to {x:.3f} mm")
+        if (why := self._reason_check(stage_id)) is not None:
+            return self._refuse(why)
+        reason = self.reasons.get(stage_id, "").strip()
+        return self._edit(lambda i: i.with_peak(stage_id, x, self.author, reason), stage_id,
+                          self._asked(stage_id, f"{stage_id}: peak moved to {x:.3f} mm"))
 
     def set_window(self, stage_id: str, x_from_mm: float, x_to_mm: float) -> bool:
         """A manual critical-state window, its ends snapped to the nearest readings."""
@@ -134,8 +149,22 @@ class Controller:
         cs = self.stage(stage_id).cs
         if (lo, hi) == (cs.x_from_mm, cs.x_to_mm):
             return self._unchanged(f"{stage_id}: the critical-state window is already {lo:.3f}-{hi:.3f} mm")
-        return self._edit(lambda i: i.with_critical_state(stage_id, lo, hi, self.author), stage_id,
-                          f"{stage_id}: critical-state window set to {lo:.3f}-{hi:.3f} mm")
+        if (why := self._reason_check(stage_id)) is not None:
+            return self._refuse(why)
+        reason = self.reasons.get(stage_id, "").strip()
+        return self._edit(lambda i: i.with_critical_state(stage_id, lo, hi, self.author, reason), stage_id,
+                          self._asked(stage_id, f"{stage_id}: critical-state window set to {lo:.3f}-{hi:.3f} mm"))
+
+    def set_pick_reason(self, stage_id: str, reason: str) -> bool:
+        """The reason for the stage's manual picks: kept for the next pick and written on those already made."""
+        self.reasons[stage_id] = reason
+        d = self.interpretation.decision(stage_id)
+        manual = {k: getattr(d, k) for k in ("peak", "critical_state") if getattr(d, k).source == "manual"}
+        if not manual or all(c.note == reason.strip() for c in manual.values()):
+            return self._unchanged(f"{stage_id}: reason kept for the next manual pick")
+        return self._edit(lambda i: i._edit(stage_id, **{k: dataclasses.replace(c, note=reason.strip())
+                                                        for k, c in manual.items()}),
+                          stage_id, f"{stage_id}: reason for the manual pick(s) saved")
 
     def set_residual(self, stage_id: str, pass_no: int, x_from_mm: float, x_to_mm: float) -> bool:
         """A manual residual pick (reversal tests): the window ``x_from_mm``-``x_to_mm`` on forward pass ``pass_no``."""

@@ -14,7 +14,17 @@ from typing import Any
 
 import numpy as np
 from bokeh.layouts import column, row
-from bokeh.models import BoxAnnotation, ColumnDataSource, HoverTool, Label, Legend, LegendItem, PointDrawTool, Span
+from bokeh.models import (
+    BoxAnnotation,
+    ColumnDataSource,
+    HoverTool,
+    Label,
+    LabelSet,
+    Legend,
+    LegendItem,
+    PointDrawTool,
+    Span,
+)
 from bokeh.plotting import figure
 
 from ..display_units import SI, Display
@@ -118,6 +128,10 @@ class StagePlots:
                             line_color=SUGGESTED, line_width=2)
         win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
         mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
+        # which pick is which, in words on the plot (not only by the marker's fill)
+        self.peak_label = Label(x=0.0, y=0.0, text="", text_font_size="10px", text_color=PEAK, x_offset=8, y_offset=6,
+                                background_fill_color="white", background_fill_alpha=0.8)
+        tau.add_layout(self.peak_label)
         draggable, items = [mark, win], [
             LegendItem(label="readings", renderers=[tau.renderers[0]]),
             LegendItem(label="suggested peak", renderers=[ghost]),
@@ -197,6 +211,10 @@ class StagePlots:
             span.location = s.peak.x_mm * k
         _set(self.peak, marker_data(s, u))
         _set(self.window, window_data(s, u))
+        shown = marker_data(s, u)
+        words = ("no distinct peak" if s.no_distinct_peak and s.peak_source == "suggested"
+                 else "manual peak" if s.peak_source == "manual" else "suggested peak")
+        self.peak_label.update(x=shown["x"][0], y=shown["y"][0], text=words)
         _set(self.peak_suggested, _xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
         in_set = f" ({s.test_set})" if s.test_set else ""
         self.plots[0].title.text = (f"{s.stage_id}{in_set} - shear stress, sigma'n "
@@ -269,6 +287,8 @@ class EnvelopePlot:
             line = p.line("x", "y", source=src["line"], color=colour, line_width=2)
             curve = p.line("x", "y", source=src["curve"], color=colour, line_width=2, line_dash="dotdash")
             pts = p.scatter("x", "y", source=src["in"], size=10, color=colour, marker=marker)
+            p.add_layout(LabelSet(x="x", y="y", text="stage", source=src["in"], text_font_size="9px", x_offset=6,
+                                  y_offset=-4, text_color=colour))  # each point named by its stage
             out = p.scatter("x", "y", source=src["out"], size=9, fill_color=GREY, line_color="#6d747a", marker=marker,
                             alpha=0.8)
             items += [LegendItem(label=f"{name}: stages, envelope, 95 % band of the mean line",

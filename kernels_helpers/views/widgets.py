@@ -70,6 +70,15 @@ class StagePanel:
         self.peak_x = _float_text("peak at x", s.peak.x_mm, f"sb-peak-x-{dom_key(self.sid)}", u)
         self.cs_from = _float_text("window from", s.cs.x_from_mm, f"sb-cs-from-{dom_key(self.sid)}", u)
         self.cs_to = _float_text("window to", s.cs.x_to_mm, f"sb-cs-to-{dom_key(self.sid)}", u)
+        d = wb.controller.interpretation.decision(self.sid)
+        known = d.peak.note or d.critical_state.note
+        wb.controller.reasons[self.sid] = known
+        required = wb.controller.project.manual_pick_reason == "require"
+        self.reason = W.Text(value=known, continuous_update=False, layout=W.Layout(width="265px"),
+                             placeholder="reason for a manual pick" + (" (required)" if required else ""))
+        self.reason.add_class(f"sb-pick-reason-{dom_key(self.sid)}")
+        self.reason.observe(lambda ch: None if self.wb.guard.active else self.wb.act(
+            lambda c: c.set_pick_reason(self.sid, ch["new"])), "value")
         self.peak_reset = W.Button(description="peak: back to suggestion", layout=W.Layout(width="260px"))
         self.cs_reset = W.Button(description="window: back to suggestion", layout=W.Layout(width="260px"))
         self.info = W.HTML()
@@ -94,7 +103,8 @@ class StagePanel:
             self.res_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "residual")))
             residual = [W.HTML("<small>residual window (mean |tau| over it)</small>"), self.residual_pass,
                         self.res_from, self.res_to, self.res_reset]
-        side = W.VBox([W.HTML(f"<b>{tables.esc(self.sid)}</b>: type a displacement and press Enter"), self.peak_x,
+        side = W.VBox([W.HTML(f"<b>{tables.esc(self.sid)}</b>: type a displacement and press Enter"), self.reason,
+                       self.peak_x,
                        self.peak_reset, W.HTML("<small>critical-state window</small>"), self.cs_from, self.cs_to,
                        self.cs_reset, *residual, self.info], layout=W.Layout(width="280px"))
         self.widget = W.HBox([BokehModel(self.plots.layout), side])
