@@ -68,7 +68,9 @@ CELLS = [
         "views.setup_notebook()"
     ),
     *INTERACTIVE_CELLS,
-    new_markdown_cell("# The record\nWhat the exported record shows, computed from the interpretation file as saved.",
+    new_markdown_cell("# The record\nWhat the exported record shows, computed from the interpretation file as saved "
+                      "when these cells last ran (the revision is stated in the summary below). After edits on the "
+                      "live screen, run them again (Run > Run All Cells) or export with `shearbook record`.",
                       metadata=LIVE),
     new_code_cell(
         "project = load_project(project_dir)\n"

@@ -91,6 +91,14 @@ def _signoff(interpretation: Interpretation | None, checks: Sequence[Check]) -> 
             + (": " + "; ".join(steps) if steps else "") + ".</p>")
 
 
+def _as_saved(results: Results, interpretation: Interpretation | None) -> str:
+    """Which saved interpretation these numbers come from (the live screen may have moved on since)."""
+    sha = results.provenance.get("interpretation_sha256") or ""
+    revision = f"revision {interpretation.revision}" if interpretation is not None else "as given"
+    return (f"<p><b>Interpretation:</b> as saved, {revision}, SHA-256 <span class=\"sb-mono\">{esc(sha[:16])}"
+            "...</span></p>" if sha else "")
+
+
 def first_page_html(results: Results, interpretation: Interpretation | None, checks: Sequence[Check],
                     digest: str, u: Display = SI) -> str:
     """The summary at the head of the record."""
@@ -112,6 +120,7 @@ def first_page_html(results: Results, interpretation: Interpretation | None, che
         + _design(results, u)
         + "<h3>Envelopes (Mohr-Coulomb, reported fit)</h3>" + envelopes
         + _flags(results, u) + _signoff(interpretation, checks)
+        + _as_saved(results, interpretation)
         + f'<p><b>Record digest</b> (SHA-256 of the embedded results): <span class="sb-mono">{esc(digest)}</span></p>'
         + f'<div class="sb-caution"><b>Caution.</b> {esc(CAUTION)}</div></div>'
     )
