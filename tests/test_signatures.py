@@ -270,3 +270,12 @@ def test_signoff_options_are_checked_before_anything_is_written(example_copy: Pa
                  "--sign", str(keys["checker"]), "--principal", "b@x.invented"]) == 2
     assert "a step back to draft is not signed" in capsys.readouterr().err
     assert (example_copy / "interpretation.json").read_bytes() == before
+
+
+def test_a_principal_edited_after_signing_breaks_the_signature(keys: dict[str, Path], tmp_path: Path) -> None:
+    """A hostile editor renames the signer to another allowed principal holding the same key: still invalid."""
+    step = _signed(keys["checker"], "b.checker@fernholt.invented")
+    renamed = {**step, "signature": {**step["signature"], "principal": "c.approver@fernholt.invented"}}
+    allowed = read_allowed_signers(_allowed(tmp_path, [_line("*@fernholt.invented", keys["checker"])]))
+    check = check_step(renamed, DIGESTS, allowed)
+    assert check.status == "invalid" and "does not verify" in check.detail
