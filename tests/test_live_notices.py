@@ -93,3 +93,20 @@ def test_picks_are_named_on_the_plot_and_envelope_points_by_their_stage(example_
     labels = [r for e in wb.envelope_plots for r in e.figure.center if isinstance(r, LabelSet)]
     assert labels and all(getattr(lab.text, "field", lab.text) == "stage" for lab in labels)
     assert "BH03-D1" in wb.envelope_plots[0].sources["peak"]["in"].data["stage"]
+
+
+def test_a_flagged_reading_is_drawn_where_it_is_and_the_stage_lists_its_flags(example_copy: Path) -> None:
+    raw = example_copy / "readings" / "BH03-D3.csv"
+    lines = raw.read_text(encoding="utf-8").split("\n")
+    cols = lines[2000].split(",")
+    cols[-1] = f"{float(cols[-1]) * 1.5:.5f}"  # one shear load reading half as large again: an isolated spike
+    lines[2000] = ",".join(cols)
+    raw.write_text("\n".join(lines), encoding="utf-8")
+    wb = live_workbook(example_copy, author="T. Tester")
+    panel = wb.panels["BH03-D3"]
+    s = wb.controller.stage("BH03-D3")
+    spiked = s.reduced.curve[s.reduced.curve["spike"]]
+    assert len(spiked) >= 1 and panel.plots.flagged.data["x"] == spiked["x_mm"].tolist()
+    assert panel.plots.flagged.data["text"][0].startswith("isolated spike (Hampel filter)")
+    assert f"{len(s.flags)} flag(s) on this stage" in panel.info.value
+    assert all(f.split(":")[0] in panel.info.value for f in s.flags)  # listed in full, not folded

@@ -67,6 +67,15 @@ def residual_data(s: StageResult, pick: ResidualPick, u: Display = SI) -> dict[s
     return _xy(u, [lo, hi], [tau, tau])
 
 
+def _flagged_data(s: StageResult, u: Display = SI) -> dict[str, list]:
+    """The shearing readings a check flagged (spikes), at their place on the shear-stress curve."""
+    c = s.reduced.curve
+    sel = c[c["in_shear"].to_numpy() & c["spike"].to_numpy()]
+    xs, ys = sel["x_mm"].tolist(), sel["tau_kpa"].tolist()
+    return {**_xy(u, xs, ys), "text": ["isolated spike (Hampel filter): kept as read, left out of the smoothing "
+                                       "and the suggestions"] * len(xs)}
+
+
 def _scaled(data: dict[str, np.ndarray], u: Display) -> dict[str, np.ndarray]:
     return {k: v * u.factor(QUANTITY[k]) if k in QUANTITY else v for k, v in data.items()}  # type: ignore[arg-type]
 
@@ -127,6 +136,10 @@ class StagePlots:
         ghost = tau.scatter("x", "y", source=self.peak_suggested, size=13, marker="diamond", fill_color=None,
                             line_color=SUGGESTED, line_width=2)
         win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
+        # readings a check flagged, drawn where they are (hover for the flag): isolated spikes (Hampel filter)
+        self.flagged = ColumnDataSource(_flagged_data(s, u))
+        spikes = tau.scatter("x", "y", source=self.flagged, size=9, marker="x", line_color="#b3261e", line_width=2)
+        tau.add_tools(HoverTool(renderers=[spikes], tooltips=[("flag", "@text"), ("x", "@x")]))
         mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
         # which pick is which, in words on the plot (not only by the marker's fill)
         self.peak_label = Label(x=0.0, y=0.0, text="", text_font_size="10px", text_color=PEAK, x_offset=8, y_offset=6,
@@ -137,6 +150,7 @@ class StagePlots:
             LegendItem(label="suggested peak", renderers=[ghost]),
             LegendItem(label="peak (drag it)", renderers=[mark]),
             LegendItem(label="critical-state window ends (drag them)", renderers=[win]),
+            LegendItem(label="flagged readings (hover)", renderers=[spikes]),
         ]
         self.residual: ColumnDataSource | None = None
         if residual is not None:
@@ -211,6 +225,7 @@ class StagePlots:
             span.location = s.peak.x_mm * k
         _set(self.peak, marker_data(s, u))
         _set(self.window, window_data(s, u))
+        _set(self.flagged, _flagged_data(s, u))
         shown = marker_data(s, u)
         words = ("no distinct peak" if s.no_distinct_peak and s.peak_source == "suggested"
                  else "manual peak" if s.peak_source == "manual" else "suggested peak")

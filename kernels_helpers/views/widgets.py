@@ -173,7 +173,16 @@ class StagePanel:
         residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick, u))}"
         self.info.value = (f"<small>peak: {tables.esc(peak)}, tau {u.with_unit('stress', s.peak.tau_kpa, 1)}"
                            f"{distinct}<br>critical state: {tables.esc(cs)}, tau "
-                           f"{u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}</small>")
+                           f"{u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}</small>" + stage_flags_html(s, u))
+
+
+def stage_flags_html(s: StageResult, u: Display = SI) -> str:
+    """Every flag of a stage, listed in full beside its plots (the table shows them folded)."""
+    if not s.flags:
+        return '<div class="sb-stage-flags"><small>no flags on this stage</small></div>'
+    items = "".join(f"<li>{tables.esc(u.annotate(f))}</li>" for f in s.flags)
+    return (f'<div class="sb-stage-flags"><b class="sb-flag">{len(s.flags)} flag(s) on this stage:</b>'
+            f'<ul style="font-size: 11px; margin: 2px 0; padding-left: 14px">{items}</ul></div>')
 
 
 def residual_words(s: StageResult, pick: tuple[int, float, float], u: Display = SI) -> str:
