@@ -28,6 +28,7 @@ import pandas as pd
 
 from .calibration import evaluate, range_note
 from .project import G_N, ApparatusSpec, StageSpec
+from .units import to_canonical_factor
 
 __all__ = ["CORRECTION_PREFIX", "MEASURED_PREFIX", "Correction", "apply_corrections", "compliance_at",
            "correction_flags", "corrections_at"]
@@ -99,24 +100,19 @@ def apply_corrections(spec: StageSpec, table: pd.DataFrame) -> tuple[pd.DataFram
 
 
 def _to_newton(app: ApparatusSpec) -> float:
-    from .units import to_canonical_factor
-
     assert app.box_friction is not None
     return to_canonical_factor(app.box_friction.output_unit, "shear_force", "box friction")
 
 
 def compliance_at(app: ApparatusSpec, normal_force_n: np.ndarray) -> np.ndarray:
     """The apparatus deflection (mm) at the normal forces given (N), from its steel-dummy calibration."""
-    from .units import to_canonical_factor
-
     assert app.vertical_compliance is not None
     mm = to_canonical_factor(app.vertical_compliance.output_unit, "vertical_displacement", "vertical compliance")
     return evaluate(app.vertical_compliance, np.asarray(normal_force_n, dtype=float)) * mm
 
 
-MEASURED = {"proving ring deflection": ("x_mm", "mm", "horizontal displacement at the drive"),
-            "box friction": ("shear_force_n", "N", "shear force"),
-            "vertical compliance (change during shearing)": ("y_mm", "mm", "vertical displacement")}
+MEASURED = {"proving ring deflection": ("x_mm", "mm"), "box friction": ("shear_force_n", "N"),
+            "vertical compliance (change during shearing)": ("y_mm", "mm")}  # the column each corrects, its unit
 METHOD = {"proving ring deflection": "ring dial divisions x {mm:g} mm/div, taken out of the drive displacement",
           "box friction": "empty-box calibration {cal}, subtracted from the shear force",
           "vertical compliance (change during shearing)": "steel-dummy calibration {cal}: the change of apparatus "
@@ -136,7 +132,7 @@ def corrections_at(spec: StageSpec, table: pd.DataFrame, row: int,
     out: list[Correction] = []
     for key in [c for c in table.columns if c.startswith(CORRECTION_PREFIX)]:
         name = key[len(CORRECTION_PREFIX):]
-        column, unit, _ = MEASURED[name]
+        column, unit = MEASURED[name]
         measured_all = table[MEASURED_PREFIX + column].to_numpy()
         measured = float(measured_all[row])
         if column in ("x_mm", "y_mm"):  # a displacement is judged against the movement, not its position

@@ -23,7 +23,7 @@ import json
 import shlex
 import shutil
 import subprocess
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
@@ -32,7 +32,8 @@ from typing_extensions import TypedDict  # pydantic reads typing_extensions' Typ
 
 from .errors import ShearbookError
 
-__all__ = ["NAMESPACE", "AllowedSigner", "Check", "Digests", "StepSignature", "check_step", "digests_of",
+__all__ = ["NAMESPACE", "AllowedSigner", "Check", "Digests", "StepSignature", "check_history", "check_step",
+           "digests_of",
            "read_allowed_signers", "sign_message", "signed_message"]
 
 NAMESPACE = "shearbook-signoff"  # the SSHSIG namespace: a signature made for another purpose never passes here
@@ -253,6 +254,14 @@ class Check:
     @property
     def text(self) -> str:
         return f"{self.status}: {self.detail}"
+
+
+def check_history(history: Sequence[Mapping[str, Any]], raw_files: Mapping[str, Any],
+                  interpretation: Mapping[str, Any], results: Mapping[str, Any],
+                  allowed: list[AllowedSigner] | None) -> list[Check]:
+    """Every step of a sign-off history checked against these raw files, interpretation and results (JSON)."""
+    now = digests_of(raw_files, interpretation, results)
+    return [check_step(step, now, allowed) for step in history]
 
 
 def check_step(step: Mapping[str, Any], now: Digests, allowed: list[AllowedSigner] | None) -> Check:

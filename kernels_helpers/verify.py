@@ -31,7 +31,7 @@ from .interpretation import from_dict
 from .pipeline import interpret
 from .project import load_project
 from .readings import sha256_of
-from .signatures import AllowedSigner, Check, check_step, digests_of, read_allowed_signers
+from .signatures import AllowedSigner, Check, check_history, read_allowed_signers
 
 __all__ = ["ABS_TOL", "REL_TOL", "Runner", "Verification", "read_record", "verify_folder", "verify_record"]
 
@@ -159,10 +159,10 @@ class Verification:
 def signature_checks(recorded: dict[str, Any], interp_json: dict[str, Any],
                      allowed: list[AllowedSigner] | None) -> tuple[tuple[str, Check], ...]:
     """Every sign-off step of the record's interpretation, checked against the record's own data."""
-    now = digests_of(recorded.get("provenance", {}).get("raw_files", {}), interp_json, recorded)
     steps = interp_json.get("signoff", {}).get("history", [])
-    return tuple((f"{s.get('state')} by {s.get('who')} at {s.get('time_utc')}", check_step(s, now, allowed))
-                 for s in steps if s.get("state") != "draft")
+    checks = check_history(steps, recorded.get("provenance", {}).get("raw_files", {}), interp_json, recorded, allowed)
+    return tuple((f"{s.get('state')} by {s.get('who')} at {s.get('time_utc')}", c)
+                 for s, c in zip(steps, checks, strict=True) if s.get("state") != "draft")
 
 
 def verify_record(record: str | Path, project_dir: str | Path, allowed_signers: str | Path | None = None,

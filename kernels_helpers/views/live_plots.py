@@ -138,6 +138,7 @@ class StagePlots:
         win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
         # readings a check flagged, drawn where they are (hover for the flag): isolated spikes (Hampel filter)
         self.flagged = ColumnDataSource(_flagged_data(s, u))
+        self._flagged_for = s.reduced  # spikes depend on the reduction only: redrawn when it changes, not per pick
         spikes = tau.scatter("x", "y", source=self.flagged, size=9, marker="x", line_color="#b3261e", line_width=2)
         tau.add_tools(HoverTool(renderers=[spikes], tooltips=[("flag", "@text"), ("x", "@x")]))
         mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
@@ -225,7 +226,9 @@ class StagePlots:
             span.location = s.peak.x_mm * k
         _set(self.peak, marker_data(s, u))
         _set(self.window, window_data(s, u))
-        _set(self.flagged, _flagged_data(s, u))
+        if s.reduced is not self._flagged_for:
+            self._flagged_for = s.reduced
+            _set(self.flagged, _flagged_data(s, u))
         shown = marker_data(s, u)
         words = ("no distinct peak" if s.no_distinct_peak and s.peak_source == "suggested"
                  else "manual peak" if s.peak_source == "manual" else "suggested peak")

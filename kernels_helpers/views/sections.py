@@ -11,6 +11,7 @@ its time of making) is shown but not compared: it depends on more than the resul
 
 from __future__ import annotations
 
+import functools
 import json
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -27,7 +28,7 @@ from ..interpretation import Interpretation
 from ..mime import digest_of
 from ..project import Project
 from ..results import Results
-from ..signatures import Check, check_step, digests_of
+from ..signatures import Check, check_history
 from . import design_views as dv
 from . import tables
 from .consolidation_views import consolidation_figure, rate_table
@@ -51,6 +52,11 @@ class Context:
     project: Project | None = None
     interpretation: Interpretation | None = None
     extra: dict[str, Any] = field(default_factory=dict)
+
+    @functools.cached_property
+    def results_json(self) -> dict[str, Any]:
+        """The results as their JSON form (what the record embeds), made once per section."""
+        return json.loads(self.results.to_json())
 
     @property
     def u(self) -> Display:
@@ -163,13 +169,13 @@ def _design(ctx: Context) -> list[Part]:
 def signature_checks(ctx: Context) -> list[Check]:
     """Each sign-off step's signature checked against these results and this interpretation (signers not judged)."""
     assert ctx.interpretation is not None
-    results = json.loads(ctx.results.to_json())
-    now = digests_of(results["provenance"]["raw_files"], json.loads(ctx.interpretation.to_json()), results)
-    return [check_step(step, now, None) for step in ctx.interpretation.signoff.history]
+    results = ctx.results_json
+    return check_history(ctx.interpretation.signoff.history, results["provenance"]["raw_files"],
+                         json.loads(ctx.interpretation.to_json()), results, None)
 
 
 def _summary(ctx: Context) -> list[Part]:
-    digest = digest_of(json.loads(ctx.results.to_json()))
+    digest = digest_of(ctx.results_json)
     checks = signature_checks(ctx) if ctx.interpretation is not None else []
     return [first_page_html(ctx.results, ctx.interpretation, checks, digest, ctx.u)]
 
