@@ -236,13 +236,13 @@ def workbook_in_project(project_dir: Path) -> Path:
     """The project's own copy of the template workbook, made on first use (never overwritten)."""
     import nbformat
 
-    from .record import inject_parameters
+    from .record import set_parameters
     from .resources import WORKBOOK_NAME, workbook_template
 
     target = project_dir / WORKBOOK_NAME
     if not target.exists():
         nb = nbformat.read(workbook_template(), as_version=4)
-        nb = inject_parameters(nb, {"project_dir": ".", "interpretation_file": None})
+        nb = set_parameters(nb, {"project_dir": ".", "interpretation_file": None})  # one parameters cell
         nbformat.write(nb, target)
     return target
 

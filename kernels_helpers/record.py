@@ -58,6 +58,21 @@ def inject_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> n
     return nb
 
 
+def set_parameters(nb: nbformat.NotebookNode, params: dict[str, object]) -> nbformat.NotebookNode:
+    """Give the parameters new values in the cell tagged ``parameters`` itself (the notebook keeps one such cell)."""
+    cell = next((c for c in nb.cells if "parameters" in c.get("metadata", {}).get("tags", [])), None)
+    if cell is None:
+        raise RecordError("the workbook template has no cell tagged 'parameters'; use the template Shearbook ships.")
+    source = cell.source
+    for key, value in params.items():
+        line = re.compile(rf"^{re.escape(key)}\s*=.*$", re.M)
+        if not line.search(source):
+            raise RecordError(f"the workbook's parameters cell does not set {key!r}; use the template Shearbook ships.")
+        source = line.sub(lambda _m, k=key, v=value: f"{k} = {v!r}", source, count=1)
+    cell.source = source
+    return nb
+
+
 def start_kernel(cwd: Path) -> AsyncKernelManager:
     """Launch a kernel in ``cwd`` that imports the package while it starts; returns at once."""
     from jupyter_client.kernelspec import KernelSpecManager

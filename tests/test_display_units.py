@@ -152,7 +152,7 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
 
     wb = live_workbook(_us_project(example_copy), author="T. Tester")
     assert wb.u is US
-    panel = wb.panels["BH03-D3"]
+    panel = wb.select("BH03-D3")
     assert panel.peak_x.description == "peak at x (in)"
     before = wb.controller.stage("BH03-D3")
     typed_in = round(before.peak.x_mm / 25.4 + 0.02, 4)  # about half a millimetre further on
@@ -165,7 +165,7 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
     assert math.isclose(panel.plots.peak.data["x"][0], saved["x_mm"] / 25.4, rel_tol=1e-12)
     tau = wb.controller.stage("BH03-D3").peak.tau_kpa
     assert math.isclose(panel.plots.peak.data["y"][0], tau / PSF_KPA, rel_tol=1e-12)
-    bokeh_model = panel.widget.children[0]
+    bokeh_model = wb.bokeh
     target_in = (saved["x_mm"] + 0.5) / 25.4
     content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": panel.plots.peak.id}, "attr": "data",
                "new": Serializer().encode({"x": [target_in], "y": panel.plots.peak.data["y"]})}

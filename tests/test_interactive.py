@@ -32,7 +32,7 @@ def _file(wb: LiveWorkbook) -> dict:
 
 def _from_page(wb: LiveWorkbook, source, data: dict[str, list[float]]) -> None:
     """Deliver a change of ``source.data`` exactly as jupyter_bokeh receives it from the page."""
-    bokeh_model = next(p for p in wb.panels.values() if source in (p.plots.peak, p.plots.window)).widget.children[0]
+    bokeh_model = wb.bokeh  # the live screen's one Bokeh document
     content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": source.id}, "attr": "data",
                "new": Serializer().encode(data)}
     bokeh_model._sync_model(bokeh_model, content, [])
@@ -48,8 +48,8 @@ def test_opening_restores_every_decision_and_writes_nothing(example_copy: Path) 
     wb = live_workbook(example_copy)
     assert (example_copy / "interpretation.json").read_bytes() == before
     d2 = wb.controller.stage("BH03-D2")
-    assert d2.peak_source == "manual" and wb.panels["BH03-D2"].plots.peak.data["x"] == [d2.peak.x_mm]
-    assert wb.panels["BH03-D2"].peak_x.value == round(d2.peak.x_mm, 3)
+    assert d2.peak_source == "manual" and wb.select("BH03-D2").plots.peak.data["x"] == [d2.peak.x_mm]
+    assert wb.select("BH03-D2").peak_x.value == round(d2.peak.x_mm, 3)
     assert wb.stage_table.rows["BH03-L2"]["include"].value is False
     assert wb.stage_table.rows["BH03-L2"]["reason"].value == wb.controller.stage("BH03-L2").exclusion_reason
     assert wb.controller.results.to_json() == interpret(example_copy).to_json()
@@ -58,7 +58,7 @@ def test_opening_restores_every_decision_and_writes_nothing(example_copy: Path) 
 def test_edits_without_an_author_are_refused_visibly(example_copy: Path) -> None:
     wb = live_workbook(example_copy)
     before = wb.controller.path.read_bytes()
-    panel = wb.panels[STAGE]
+    panel = wb.select(STAGE)
     drawn = dict(panel.plots.peak.data)
     _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})
     assert wb.controller.path.read_bytes() == before
@@ -72,7 +72,7 @@ def test_edits_without_an_author_are_refused_visibly(example_copy: Path) -> None
 
 
 def test_peak_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
-    panel = wb.panels[STAGE]
+    panel = wb.select(STAGE)
     _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})  # jupyter_bokeh calls the callback twice
     saved = _file(wb)["stages"][STAGE]["peak"]
     s = wb.controller.stage(STAGE)
@@ -90,12 +90,12 @@ def test_peak_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
 
 
 def test_window_drag_and_a_refused_window(wb: LiveWorkbook) -> None:
-    panel = wb.panels[STAGE]
+    panel = wb.select(STAGE)
     _from_page(wb, panel.plots.window, {"x": [10.5, 8.0], "y": [150.0, 150.0]})  # ends may cross over
     cs = _file(wb)["stages"][STAGE]["critical_state"]
     assert cs["source"] == "manual" and abs(cs["x_from_mm"] - 8.0) < 0.01 and abs(cs["x_to_mm"] - 10.5) < 0.01
     s = wb.controller.stage(STAGE)
-    assert wb.panels[STAGE].plots.boxes[0].left == s.cs.x_from_mm and panel.cs_to.value == round(s.cs.x_to_mm, 3)
+    assert wb.select(STAGE).plots.boxes[0].left == s.cs.x_from_mm and panel.cs_to.value == round(s.cs.x_to_mm, 3)
     text = wb.controller.path.read_text(encoding="utf-8")
     _from_page(wb, panel.plots.window, {"x": [9.0, 9.001], "y": [150.0, 150.0]})  # too few readings
     assert wb.controller.path.read_text(encoding="utf-8") == text
@@ -105,7 +105,7 @@ def test_window_drag_and_a_refused_window(wb: LiveWorkbook) -> None:
 
 
 def test_number_twins_and_back_to_suggestion(wb: LiveWorkbook) -> None:
-    panel = wb.panels[STAGE]
+    panel = wb.select(STAGE)
     panel.peak_x.value = 5.0
     assert abs(_file(wb)["stages"][STAGE]["peak"]["x_mm"] - 5.0) < 0.01
     panel.cs_from.value = 7.0
@@ -136,7 +136,9 @@ def test_exclusion_needs_a_reason_and_greys_the_point(wb: LiveWorkbook) -> None:
             and d["author"] == "T. Tester")
     loose = wb.controller.results.envelope("BH03 loose", "critical_state")
     assert OTHER not in loose.stage_ids
-    plot = next(e for e in wb.envelope_plots if e.group == "BH03 loose")
+    wb.select(OTHER)
+    plot = wb.envelope_plot
+    assert plot.group == "BH03 loose"
     assert OTHER in plot.sources["critical_state"]["out"].data["stage"]
     assert OTHER not in plot.sources["critical_state"]["in"].data["stage"]
     row["reason"].value = "specimen disturbed"  # a new reason for an excluded stage is saved
@@ -158,7 +160,8 @@ def test_cohesion_toggle_parameters_and_summary(wb: LiveWorkbook) -> None:
     assert f'data-kind="critical_state">{fit.phi_deg:.1f}<' in wb.parameters.value
     assert "Sign-off:</b> draft" in wb.summary.value and "Open flags" in wb.summary.value
     wb.curved.value = True  # display only: nothing saved
-    plot = next(e for e in wb.envelope_plots if e.group == "BH03 dense")
+    plot = wb.envelope_plot
+    assert plot.group == "BH03 dense"
     assert len(plot.sources["peak"]["curve"].data["x"]) == 40
     assert len(wb.controller.history) == 1
     _matches_interpret(wb)
@@ -166,7 +169,7 @@ def test_cohesion_toggle_parameters_and_summary(wb: LiveWorkbook) -> None:
 
 def test_undo_goes_back_one_change_at_a_time(wb: LiveWorkbook) -> None:
     original = wb.controller.interpretation
-    wb.panels[STAGE].peak_x.value = 5.0
+    wb.select(STAGE).peak_x.value = 5.0
     wb.stage_table.rows[OTHER]["reason"].value = "bad data"
     wb.stage_table.rows[OTHER]["include"].value = False
     wb.undo.click()
@@ -183,12 +186,12 @@ def test_undo_goes_back_one_change_at_a_time(wb: LiveWorkbook) -> None:
 
 def test_reopening_finds_the_decisions(example_copy: Path) -> None:
     wb = live_workbook(example_copy, author="T. Tester")
-    wb.panels[STAGE].peak_x.value = 4.5
+    wb.select(STAGE).peak_x.value = 4.5
     wb.stage_table.rows[OTHER]["reason"].value = "bad data"
     wb.stage_table.rows[OTHER]["include"].value = False
     again = live_workbook(example_copy)
     assert again.controller.interpretation == wb.controller.interpretation
-    assert again.panels[STAGE].plots.peak.data == wb.panels[STAGE].plots.peak.data
+    assert again.select(STAGE).plots.peak.data == wb.select(STAGE).plots.peak.data
     assert again.stage_table.rows[OTHER]["include"].value is False
 
 
@@ -204,8 +207,36 @@ def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) 
                for c in live for o in c.get("outputs", []))
     html_text = export_html(nb, "audit")
     assert "live_workbook" not in html_text and "live-envelope" not in html_text and "widget-state" not in html_text
-    assert '"name":"envelope-BH03 dense"' in html_text  # the static record is still there
+    # with a live screen open, the record cells wait to be asked (the kernel stays free for the drags)
+    assert '"name":"envelope-BH03 dense"' not in json.dumps([c.get("outputs") for c in nb.cells])
+    record_cells = [c for c in nb.cells if c.cell_type == "code" and c not in live and "views.show_" in c.source]
+    assert record_cells and all(any("application/vnd.jupyter.widget-view+json" in o.get("data", {})
+                                    for o in c.get("outputs", [])) for c in record_cells)  # a placeholder each
     assert (example_copy / "interpretation.json").read_bytes() == before  # opening the live screen writes nothing
+
+
+@pytest.mark.notebook
+def test_the_record_part_is_computed_on_request_from_the_live_state(example_copy: Path, tmp_path: Path) -> None:
+    import nbformat
+
+    from kernels_helpers.record import execute_workbook
+    from kernels_helpers.resources import workbook_template
+
+    nb = nbformat.read(workbook_template(), as_version=4)
+    nb.cells.append(nbformat.v4.new_code_cell(  # what the button does, then an edit on the live screen
+        "live.record_part.compute()\nprint(live.record_part.stamp.value)\n"
+        "live.controller.author = 'T. Tester'\nlive.controller.exclude('BH03-L3', 'disturbed')\n"
+        "print(live.record_part.stamp.value)"))
+    template = tmp_path / "with_request.ipynb"
+    nbformat.write(nb, template)
+    run = execute_workbook(example_copy, template=template, live=True)
+    printed = "".join(o.get("text", "") for o in run.cells[-1].outputs)
+    assert "record part computed" in printed and "from revision 0 of the interpretation file" in printed
+    assert "out of date: the record part below shows revision 0, the file is now at revision 1" in printed
+    state = json.dumps(run.metadata["widgets"]["application/vnd.jupyter.widget-state+json"]["state"])
+    for section in ("summary", "header", "stages", "statistics", "design", "signoff"):  # built into their places
+        assert f'data-sb-section=\\"{section}\\"' in state, section
+    assert "application/vnd.bokehjs_exec.v0+json" in state  # the figures too
 
 
 def test_a_clash_with_another_writer_is_shown_and_reload_brings_the_file_in(wb: LiveWorkbook) -> None:

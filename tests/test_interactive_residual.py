@@ -38,7 +38,7 @@ def _from_page(panel: StagePanel, data: dict[str, list[float]]) -> None:
     """Deliver a change of the residual window ends exactly as jupyter_bokeh receives it from the page."""
     source = panel.plots.residual
     assert source is not None
-    bokeh_model = panel.widget.children[0]
+    bokeh_model = panel.wb.bokeh
     content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": source.id}, "attr": "data",
                "new": Serializer().encode(data)}
     bokeh_model._sync_model(bokeh_model, content, [])
@@ -54,7 +54,7 @@ def _matches_interpret(wb: LiveWorkbook) -> None:
 
 
 def test_only_reversal_stages_get_a_residual_pick(wb: LiveWorkbook) -> None:
-    r1, s1 = wb.panels["R1"], wb.panels["S1"]
+    r1 = wb.select("R1")
     s = wb.controller.stage("R1")
     assert s.residual is not None and not s.residual.reached and s.residual_source == "suggested"
     pick = wb.controller.residual_pick("R1")
@@ -70,7 +70,10 @@ def test_only_reversal_stages_get_a_residual_pick(wb: LiveWorkbook) -> None:
     assert max(r1.plots.residual_curve.data["abs_tau"]) > 0  # |tau| of the pass, reverse passes being negative
     assert "(suggested)" in wb.stage_table.rows["R1"]["residual"].value
     assert "upper bound" in wb.stage_table.rows["R1"]["residual"].value
-    assert s1.residual_pass is None and s1.plots.residual is None  # other stages unchanged
+    assert r1.residual_box.layout.display == ""
+    s1 = wb.select("S1")  # the same panel, now on a stage that is not a reversal test: no residual pick shown
+    assert s1.residual_box.layout.display == "none" and s1.plots.residual.data == {"x": [], "y": []}
+    assert s1.plots.residual_box.visible is False and s1.plots.residual_label.text == ""
     assert wb.stage_table.rows["S1"]["residual"].value == "&ndash;"
     assert not wb.controller.set_residual("S1", 1, 4.0, 6.0)
     assert "not a reversal test" in wb.controller.message
@@ -78,7 +81,7 @@ def test_only_reversal_stages_get_a_residual_pick(wb: LiveWorkbook) -> None:
 
 
 def test_residual_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
-    panel = wb.panels["R1"]
+    panel = wb.select("R1")
     before = wb.controller.results.envelope("synthetic", "residual")
     assert before.chosen is None  # neither stage reached the residual
     _from_page(panel, {"x": [7.7, 5.95], "y": [40.0, 40.0]})  # ends may cross over; called twice
@@ -101,11 +104,12 @@ def test_residual_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
     _from_page(panel, {"x": [7.7, 5.95], "y": [40.0, 40.0]})  # the same drop again
     _from_page(panel, dict(panel.plots.residual.data))  # the page echoing our snapped ends
     assert wb.controller.path.read_text(encoding="utf-8") == text and len(wb.controller.history) == 1
-    _from_page(wb.panels["R2"], {"x": [5.9, 7.8], "y": [90.0, 90.0]})
+    _from_page(wb.select("R2"), {"x": [5.9, 7.8], "y": [90.0, 90.0]})
     after = wb.controller.results.envelope("synthetic", "residual")
     assert after.stage_ids == ("R1", "R2") and after.chosen is not None  # both picked: the envelope is fitted
     assert 'data-kind="residual"' in wb.parameters.value
-    plot = next(e for e in wb.envelope_plots if e.group == "synthetic")  # the live envelope plot draws it too
+    plot = wb.envelope_plot  # the live envelope plot draws it too
+    assert plot.group == "synthetic"
     drawn = plot.sources["residual"]
     assert drawn["in"].data["stage"] == ["R1", "R2"] and drawn["in"].data["y"] == list(after.tau_kpa)
     fit = after.chosen
@@ -115,15 +119,15 @@ def test_residual_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
 
 def test_the_live_envelope_plot_has_a_residual_envelope_only_with_reversal_tests(wb: LiveWorkbook,
                                                                                 tmp_path: Path) -> None:
-    assert [k for k, _, _ in wb.envelope_plots[0].kinds] == ["peak", "critical_state", "residual"]
+    assert [k for k, _, _ in wb.envelope_plot.kinds] == ["peak", "critical_state", "residual"]
     plain = write_project(tmp_path / "plain", {f"S{k}": (readings(Model(normal_n=n, seed=k)), n, "single-stage")
                                                for k, n in enumerate((180.0, 360.0, 720.0), start=1)})
     other = live_workbook(plain, author="T. Tester")
-    assert all([k for k, _, _ in e.kinds] == ["peak", "critical_state"] for e in other.envelope_plots)
+    assert [k for k, _, _ in other.envelope_plot.kinds] == ["peak", "critical_state"]
 
 
 def test_refused_residual_picks_leave_the_file_alone(wb: LiveWorkbook) -> None:
-    panel = wb.panels["R1"]
+    panel = wb.select("R1")
     panel.res_from.value = 6.0  # a first, accepted pick
     text = wb.controller.path.read_text(encoding="utf-8")
     drawn = dict(panel.plots.residual.data)
@@ -143,7 +147,7 @@ def test_refused_residual_picks_leave_the_file_alone(wb: LiveWorkbook) -> None:
 
 
 def test_number_twins_pass_choice_back_to_suggestion_and_undo(wb: LiveWorkbook) -> None:
-    panel = wb.panels["R1"]
+    panel = wb.select("R1")
     assert panel.residual_pass is not None
     suggested = wb.controller.stage("R1").residual
     panel.res_from.value = 6.5
@@ -183,10 +187,10 @@ def test_the_drawn_suggestion_is_the_window_the_rule_averages(wb: LiveWorkbook) 
 
 def test_reopening_restores_the_residual_pick(folder: Path) -> None:
     wb = live_workbook(folder, author="T. Tester")
-    wb.panels["R2"].res_to.value = 7.0
+    wb.select("R2").res_to.value = 7.0
     again = live_workbook(folder)
     assert again.controller.interpretation == wb.controller.interpretation
-    a, b = again.panels["R2"], wb.panels["R2"]
+    a, b = again.select("R2"), wb.select("R2")
     assert a.plots.residual is not None and b.plots.residual is not None
     assert a.plots.residual.data == b.plots.residual.data
     assert (a.res_from.value, a.res_to.value) == (b.res_from.value, b.res_to.value)

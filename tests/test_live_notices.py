@@ -64,7 +64,7 @@ def test_a_manual_pick_asks_for_its_reason_and_a_project_can_require_one(example
     x = c.stage("BH03-D3").peak.x_mm + 1.0
     assert wb.act(lambda c: c.move_peak("BH03-D3", x))
     assert "give its reason in the stage&#x27;s reason box" in wb.status.value  # prompted, not refused
-    wb.panels["BH03-D3"].reason.value = "crest flat over 1 mm; the middle taken"
+    wb.select("BH03-D3").reason.value = "crest flat over 1 mm; the middle taken"
     saved = load_interpretation(example_copy / "interpretation.json").decision("BH03-D3").peak
     assert saved.source == "manual" and saved.note == "crest flat over 1 mm; the middle taken"
     # the project can make the reason a condition of the pick, as for an exclusion
@@ -76,7 +76,7 @@ def test_a_manual_pick_asks_for_its_reason_and_a_project_can_require_one(example
     assert not strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.x_mm + 1.0))
     assert "this project requires a reason for every manual pick" in strict.status.value
     assert (example_copy / "interpretation.json").read_bytes() == before
-    strict.panels["BH03-D1"].reason.value = "second crest is the true peak (see sheet)"
+    strict.select("BH03-D1").reason.value = "second crest is the true peak (see sheet)"
     assert strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.x_mm + 1.0))
     assert load_interpretation(example_copy / "interpretation.json").decision("BH03-D1").peak.note == (
         "second crest is the true peak (see sheet)")
@@ -86,13 +86,14 @@ def test_picks_are_named_on_the_plot_and_envelope_points_by_their_stage(example_
     from bokeh.models import LabelSet
 
     wb = live_workbook(example_copy, author="T. Tester")
-    plots = wb.panels["BH03-D2"].plots
+    plots = wb.select("BH03-D2").plots
     assert plots.peak_label.text == "manual peak"  # the example's interpretation moved BH03-D2's peak by hand
-    assert wb.panels["BH03-D1"].plots.peak_label.text == "suggested peak"
-    assert wb.panels["BH03-L1"].plots.peak_label.text == "no distinct peak"
-    labels = [r for e in wb.envelope_plots for r in e.figure.center if isinstance(r, LabelSet)]
+    assert wb.select("BH03-D1").plots.peak_label.text == "suggested peak"
+    assert wb.select("BH03-L1").plots.peak_label.text == "no distinct peak"
+    labels = [r for r in wb.envelope_plot.figure.center if isinstance(r, LabelSet)]
     assert labels and all(getattr(lab.text, "field", lab.text) == "stage" for lab in labels)
-    assert "BH03-D1" in wb.envelope_plots[0].sources["peak"]["in"].data["stage"]
+    wb.select("BH03-D1")
+    assert "BH03-D1" in wb.envelope_plot.sources["peak"]["in"].data["stage"]
 
 
 def test_a_flagged_reading_is_drawn_where_it_is_and_the_stage_lists_its_flags(example_copy: Path) -> None:
@@ -103,7 +104,7 @@ def test_a_flagged_reading_is_drawn_where_it_is_and_the_stage_lists_its_flags(ex
     lines[2000] = ",".join(cols)
     raw.write_text("\n".join(lines), encoding="utf-8")
     wb = live_workbook(example_copy, author="T. Tester")
-    panel = wb.panels["BH03-D3"]
+    panel = wb.select("BH03-D3")
     s = wb.controller.stage("BH03-D3")
     spiked = s.reduced.curve[s.reduced.curve["spike"]]
     assert len(spiked) >= 1 and panel.plots.flagged.data["x"] == spiked["x_mm"].tolist()

@@ -13,6 +13,17 @@ from nbformat.v4 import new_code_cell, new_markdown_cell, new_notebook
 
 LIVE = {"tags": ["interactive"]}  # the live screen: executed headless too, dropped from the exported record
 INTERACTIVE_CELLS = [
+    new_code_cell(
+        "# The live screen: type your name, choose a stage, drag its picks; every decision is saved at once.\n"
+        "from kernels_helpers.views.widgets import live_workbook\n\n"
+        "live = live_workbook(project_dir, interpretation_file, units=display_units)\n"
+        "live.screen",
+        metadata=LIVE,
+    ),
+]
+READY = new_code_cell("live.ready()  # the live screen says it is ready and comes into view", metadata=LIVE)
+
+CELLS = [
     new_markdown_cell(
         "## Live interpretation\n"
         "Type your name first: every decision records who made it and when, and is saved at once to the\n"
@@ -43,9 +54,10 @@ INTERACTIVE_CELLS = [
 
 CELLS = [
     new_markdown_cell(
-        "# Direct shear interpretation\n\n"
-        "Readings are reduced, peak and critical-state strengths picked and Mohr-Coulomb envelopes fitted by\n"
-        "`kernels_helpers`; every decision lives in the project's interpretation file. Run all cells.",
+        "# Direct shear interpretation\n"
+        "Run all cells (Run > Run All Cells). The live screen below shows one stage at a time beside its envelope:\n"
+        "type your name, choose a stage, drag its peak or critical-state window and watch the envelope refit.\n"
+        "Every decision is saved at once to the project's interpretation file; reopening restores them all.",
         metadata=LIVE,  # words for the notebook: the record opens with its summary instead
     ),
     new_code_cell(
@@ -68,9 +80,9 @@ CELLS = [
         "views.setup_notebook()"
     ),
     *INTERACTIVE_CELLS,
-    new_markdown_cell("# The record\nWhat the exported record shows, computed from the interpretation file as saved "
-                      "when these cells last ran (the revision is stated in the summary below). After edits on the "
-                      "live screen, run them again (Run > Run All Cells) or export with `shearbook record`.",
+    new_markdown_cell("# The record\nWhat the exported record shows. With the live screen open it is computed on "
+                      "request (the button on the live screen, which also says which revision of the interpretation "
+                      "file it shows and when it is out of date); `shearbook record` exports it.",
                       metadata=LIVE),
     new_code_cell(
         "project = load_project(project_dir)\n"
@@ -124,6 +136,7 @@ CELLS = [
     new_code_cell("views.show_changes_since_record(project, interpretation_path)"),
     new_markdown_cell("## Sign-off and provenance"),
     new_code_cell("views.show_provenance(results, str(interpretation_path))"),
+    READY,
 ]
 
 

@@ -91,6 +91,18 @@ class Controller:
         """The stage as the results show it (with the flags that compare stages)."""
         return self.results.stage(stage_id)
 
+    def row_of_line(self, stage_id: str) -> Callable[[int], int | None]:
+        """For the stage's readings: the row of a file line its flags name (None: not one of its rows)."""
+        part = self._units[stage_id][1]
+
+        def row(line: int) -> int | None:
+            if part.lines is None:
+                r = line - part.first_data_line
+                return r if 0 <= r < len(part.table) else None
+            hits = np.flatnonzero(np.asarray(part.lines) == line)
+            return int(hits[0]) if hits.size else None
+        return row
+
     def subscribe(self, listener: Listener) -> None:
         """Call ``listener(results, changed_stage_ids)`` after every edit that changed something."""
         self._listeners.append(listener)

@@ -21,7 +21,7 @@ from ..interpretation import load_interpretation
 from ..project import Project
 from ..results import INTERPRETATION_MIME, RESULTS_MIME, Results
 from . import tables
-from .sections import show_section, show_static, use_units
+from .sections import deferred, show_section, show_static, use_units
 
 __all__ = ["setup_notebook", "show_changes_since_record", "show_consolidation", "show_critical_state_line",
            "show_design", "show_dilatancy", "show_envelope_statistics", "show_envelopes", "show_header",
@@ -117,6 +117,8 @@ def show_changes_since_record(project: Project, interpretation_path: str | Path)
     from ..interpretation import from_dict
     from ..verify import read_record
 
+    if deferred(lambda r, i: show_changes_since_record(project, interpretation_path)):  # read when asked for
+        return
     records = sorted((project.root / "records").glob("*.html"), key=lambda p: p.stat().st_mtime)
     if not records:
         display(HTML("<p>No earlier record in this project's records/ folder: nothing to compare with.</p>"))
@@ -129,6 +131,8 @@ def show_changes_since_record(project: Project, interpretation_path: str | Path)
 
 
 def show_provenance(results: Results, interpretation_path: str) -> None:
+    if deferred(lambda r, i: show_provenance(r, interpretation_path)):  # a live screen is open: when asked for
+        return
     made = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
     extra = {}
     for name in RECORD_PACKAGES:

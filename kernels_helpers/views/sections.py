@@ -223,16 +223,43 @@ def use_units(units: str | Display | None) -> Display:
     return _UNITS[0]
 
 
+# Where the record's sections go while a live screen is open in this kernel: computed on request, from the
+# live state, into placeholders (see views.record_part); None (the record, a notebook without a live screen): now.
+Job = Callable[[Results, Interpretation], None]
+_DEFERRED: list[Callable[[Job], None] | None] = [None]
+
+
+def defer_sections(to: Callable[[Job], None] | None) -> None:
+    """From now on, hand each section to ``to`` (a job to run later with the live results) instead of showing it."""
+    _DEFERRED[0] = to
+
+
+def deferred(job: Job) -> bool:
+    """True when ``job`` was handed on to run later (a live screen is open); False: the caller shows it now."""
+    if _DEFERRED[0] is None:
+        return False
+    _DEFERRED[0](job)
+    return True
+
+
 def show_section(name: str, results: Results, project: Project | None = None,
                  interpretation: Interpretation | None = None, **args: Any) -> None:
     """Display every part of section ``name`` (HTML parts marked, figures tagged) for the record.
 
     Outside SI the display units join the section's arguments, so that verify rebuilds it alike.
+    With a live screen open, the section is shown when asked for, from the live results.
     """
     args = {k: list(v) if isinstance(v, Sequence) and not isinstance(v, str) else v for k, v in args.items()}
     if not _UNITS[0].is_si:
         args["units"] = _UNITS[0].system
-    ctx = Context(results, project, interpretation, args)
+    wants_interpretation = interpretation is not None
+    if deferred(lambda r, i: _show_parts(name, Context(r, project, i if wants_interpretation else None, args))):
+        return
+    _show_parts(name, Context(results, project, interpretation, args))
+
+
+def _show_parts(name: str, ctx: Context) -> None:
+    args = ctx.extra
     for i, part in enumerate(build_section(name, ctx)):
         if isinstance(part, str):
             display(HTML(part_html(name, i, part, args)))

@@ -14,7 +14,6 @@ from pathlib import Path
 from typing import Any
 
 import ipywidgets as W
-from bokeh.layouts import column, row
 from jupyter_bokeh.widgets import BokehModel
 
 from ..display_units import SI, Display, display_for
@@ -24,13 +23,10 @@ from ..notices import fit_changes, standing_notices
 from ..results import Results, StageResult
 from . import tables
 from .interactive import Controller
-from .live_plots import EnvelopePlot, StagePlots, marker_data, residual_data, window_data
+from .live_plots import EnvelopePlot, LivePlots, StagePlots, marker_data, residual_data, window_data
+from .record_part import RecordPart
 
 __all__ = ["LiveWorkbook", "live_workbook"]
-
-PICK_HELP = ("Drag the amber diamond (peak) or the teal squares (ends of the critical-state window) on the shear "
-             "stress plot; they snap to the nearest reading. Or type the displacement below.")
-
 
 def _float_text(description: str, value: float, css: str, u: Display = SI) -> W.FloatText:
     """A displacement typed in display units: ``value`` is canonical (mm)."""
@@ -61,53 +57,66 @@ class _Guard:
 
 
 class StagePanel:
-    """Plots, number twins and "back to suggestion" buttons of one stage."""
+    """The stage being interpreted: its plots (in the live screen's Bokeh document), number twins, resets."""
 
     def __init__(self, wb: LiveWorkbook, s: StageResult) -> None:
         self.wb, self.sid, u = wb, s.stage_id, wb.u
-        pick = wb.controller.residual_pick(self.sid)  # None unless a reversal test
-        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, pick, self.on_residual_drag, u)
-        self.peak_x = _float_text("peak at x", s.peak.x_mm, f"sb-peak-x-{dom_key(self.sid)}", u)
-        self.cs_from = _float_text("window from", s.cs.x_from_mm, f"sb-cs-from-{dom_key(self.sid)}", u)
-        self.cs_to = _float_text("window to", s.cs.x_to_mm, f"sb-cs-to-{dom_key(self.sid)}", u)
-        d = wb.controller.interpretation.decision(self.sid)
-        known = d.peak.note or d.critical_state.note
-        wb.controller.reasons[self.sid] = known
-        required = wb.controller.project.manual_pick_reason == "require"
-        self.reason = W.Text(value=known, continuous_update=False, layout=W.Layout(width="265px"),
+        c = wb.controller
+        reversal = any(c.stage(sid).residual is not None for sid in c.stage_ids)
+        self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, self.on_residual_drag, reversal, u,
+                                c.row_of_line(s.stage_id))
+        self.peak_x = _float_text("peak at x", s.peak.x_mm, "sb-peak-x", u)
+        self.cs_from = _float_text("window from", s.cs.x_from_mm, "sb-cs-from", u)
+        self.cs_to = _float_text("window to", s.cs.x_to_mm, "sb-cs-to", u)
+        required = c.project.manual_pick_reason == "require"
+        self.reason = W.Text(continuous_update=False, layout=W.Layout(width="265px"),
                              placeholder="reason for a manual pick" + (" (required)" if required else ""))
-        self.reason.add_class(f"sb-pick-reason-{dom_key(self.sid)}")
+        self.reason.add_class("sb-pick-reason")
         self.reason.observe(lambda ch: None if self.wb.guard.active else self.wb.act(
             lambda c: c.set_pick_reason(self.sid, ch["new"])), "value")
         self.peak_reset = W.Button(description="peak: back to suggestion", layout=W.Layout(width="260px"))
         self.cs_reset = W.Button(description="window: back to suggestion", layout=W.Layout(width="260px"))
         self.info = W.HTML()
+        self.info.add_class("sb-stage-info")
         self.peak_x.observe(self.on_peak_typed, "value")
         self.cs_from.observe(self.on_window_typed, "value")
         self.cs_to.observe(self.on_window_typed, "value")
         self.peak_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "peak")))
         self.cs_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "critical_state")))
-        residual: list[W.Widget] = []
+        columns: list[W.Widget] = [
+            W.VBox([W.HTML("<small>peak</small>"), self.peak_x, self.peak_reset, self.reason]),
+            W.VBox([W.HTML("<small>critical-state window</small>"), self.cs_from, self.cs_to, self.cs_reset])]
         self.residual_pass: W.Dropdown | None = None
-        if pick is not None:  # reversal tests: the residual window on one forward pass
-            forward = [p.pass_no for p in s.passes if p.forward]
-            self.residual_pass = W.Dropdown(options=[(f"pass {n}", n) for n in forward], value=pick[0],
-                                            description="forward pass", style={"description_width": "125px"},
-                                            layout=W.Layout(width="265px"))
-            self.residual_pass.add_class(f"sb-res-pass-{dom_key(self.sid)}")
-            self.res_from = _float_text("residual from", pick[1], f"sb-res-from-{dom_key(self.sid)}", u)
-            self.res_to = _float_text("residual to", pick[2], f"sb-res-to-{dom_key(self.sid)}", u)
+        if reversal:  # reversal tests: the residual window on one forward pass (hidden for other stages)
+            self.residual_pass = W.Dropdown(options=[("pass 1", 1)], value=1, description="forward pass",
+                                            style={"description_width": "125px"}, layout=W.Layout(width="265px"))
+            self.residual_pass.add_class("sb-res-pass")
+            self.res_from = _float_text("residual from", 0.0, "sb-res-from", u)
+            self.res_to = _float_text("residual to", 0.0, "sb-res-to", u)
             self.res_reset = W.Button(description="residual: back to suggestion", layout=W.Layout(width="260px"))
             for w in (self.residual_pass, self.res_from, self.res_to):
                 w.observe(self.on_residual_typed, "value")
             self.res_reset.on_click(lambda _: self.wb.act(lambda c: c.back_to_suggestion(self.sid, "residual")))
-            residual = [W.HTML("<small>residual window (mean |tau| over it)</small>"), self.residual_pass,
-                        self.res_from, self.res_to, self.res_reset]
-        side = W.VBox([W.HTML(f"<b>{tables.esc(self.sid)}</b>: type a displacement and press Enter"), self.reason,
-                       self.peak_x,
-                       self.peak_reset, W.HTML("<small>critical-state window</small>"), self.cs_from, self.cs_to,
-                       self.cs_reset, *residual, self.info], layout=W.Layout(width="280px"))
-        self.widget = W.HBox([BokehModel(self.plots.layout), side])
+            self.residual_box = W.VBox([W.HTML("<small>residual window (mean |tau| over it)</small>"),
+                                        self.residual_pass, self.res_from, self.res_to, self.res_reset])
+            columns.append(self.residual_box)
+        self.controls = W.VBox([
+            W.HTML("<small>Drag the amber diamond (peak) or the teal squares (window ends) on the shear-stress plot, "
+                   "or type a displacement and press Enter; picks snap to the nearest reading.</small>"),
+            W.HBox(columns, layout=W.Layout(flex_flow="row wrap", grid_gap="0 12px")), self.info],
+            layout=W.Layout(flex="1 1 560px", min_width="0"))
+        self.controls.add_class("sb-stage-controls")
+        self.show(s)
+
+    def show(self, s: StageResult) -> None:
+        """Interpret stage ``s`` in this panel (its curves, picks, reason and flags)."""
+        c = self.wb.controller
+        if s.stage_id != self.sid:
+            self.sid = s.stage_id
+            self.plots.row_of_line = c.row_of_line(s.stage_id)
+        d = c.interpretation.decision(self.sid)
+        c.reasons.setdefault(self.sid, d.peak.note or d.critical_state.note)
+        self.wb.guard.run(lambda: setattr(self.reason, "value", c.reasons[self.sid]))
         self.update(s)
 
     # Bokeh callbacks: (attr, old, new) as jupyter_bokeh calls them, twice, and with our own echo. The page
@@ -118,51 +127,54 @@ class StagePanel:
     def on_peak_drag(self, attr: str, old: Any, new: Any) -> None:
         if not new.get("x") or _same(new, marker_data(self.wb.controller.stage(self.sid), self.wb.u)):
             return  # our own write coming back, or the second call of one change
-        self.wb.act(lambda c: c.move_peak(self.sid, self.mm(new["x"][0])), redraw=self.sid)
+        self.wb.act(lambda c: c.move_peak(self.sid, self.mm(new["x"][0])), redraw=True)
 
     def on_window_drag(self, attr: str, old: Any, new: Any) -> None:
         xs = list(new.get("x", []))
         if len(xs) != 2 or _same(new, window_data(self.wb.controller.stage(self.sid), self.wb.u)):
             return
-        self.wb.act(lambda c: c.set_window(self.sid, self.mm(min(xs)), self.mm(max(xs))), redraw=self.sid)
+        self.wb.act(lambda c: c.set_window(self.sid, self.mm(min(xs)), self.mm(max(xs))), redraw=True)
 
     def on_peak_typed(self, change: dict[str, Any]) -> None:
         if not self.wb.guard.active:
-            self.wb.act(lambda c: c.move_peak(self.sid, self.mm(change["new"])), redraw=self.sid)
+            self.wb.act(lambda c: c.move_peak(self.sid, self.mm(change["new"])), redraw=True)
 
     def on_window_typed(self, change: dict[str, Any]) -> None:
         if not self.wb.guard.active:
             self.wb.act(lambda c: c.set_window(self.sid, self.mm(self.cs_from.value), self.mm(self.cs_to.value)),
-                        redraw=self.sid)
+                        redraw=True)
 
     def on_residual_drag(self, attr: str, old: Any, new: Any) -> None:
         xs = list(new.get("x", []))
         c = self.wb.controller
         pick = c.residual_pick(self.sid)
         if len(xs) != 2 or pick is None or _same(new, residual_data(c.stage(self.sid), pick, self.wb.u)):
-            return  # our own write coming back, or the second call of one change
-        self.wb.act(lambda c: c.set_residual(self.sid, pick[0], self.mm(min(xs)), self.mm(max(xs))),
-                    redraw=self.sid)
+            return  # our own write coming back, the second call of one change, or a stage without a residual
+        self.wb.act(lambda c: c.set_residual(self.sid, pick[0], self.mm(min(xs)), self.mm(max(xs))), redraw=True)
 
     def on_residual_typed(self, change: dict[str, Any]) -> None:
         if not self.wb.guard.active and self.residual_pass is not None:
             self.wb.act(lambda c: c.set_residual(self.sid, self.residual_pass.value, self.mm(self.res_from.value),
-                                                 self.mm(self.res_to.value)), redraw=self.sid)
+                                                 self.mm(self.res_to.value)), redraw=True)
 
     def update(self, s: StageResult) -> None:
         pick = self.wb.controller.residual_pick(self.sid)
         self.plots.update(s, pick)
-
         u = self.wb.u
 
         def write() -> None:
             self.peak_x.value = _shown_mm(u, s.peak.x_mm)
             self.cs_from.value = _shown_mm(u, s.cs.x_from_mm)
             self.cs_to.value = _shown_mm(u, s.cs.x_to_mm)
-            if self.residual_pass is not None and pick is not None:
-                self.residual_pass.value = pick[0]
-                self.res_from.value = _shown_mm(u, pick[1])
-                self.res_to.value = _shown_mm(u, pick[2])
+            if self.residual_pass is not None:
+                self.residual_box.layout.display = "none" if pick is None else ""
+                if pick is not None:
+                    forward = [(f"pass {p.pass_no}", p.pass_no) for p in s.passes if p.forward]
+                    if list(self.residual_pass.options) != forward:
+                        self.residual_pass.options = forward
+                    self.residual_pass.value = pick[0]
+                    self.res_from.value = _shown_mm(u, pick[1])
+                    self.res_to.value = _shown_mm(u, pick[2])
         self.wb.guard.run(write)
         peak = "suggested" if s.peak_source == "suggested" else (
             f"manual (suggested {u.with_unit('length', s.peak_suggested.x_mm, 2)})")
@@ -171,9 +183,12 @@ class StagePanel:
             f"{u.with_unit('length', s.cs_suggested.x_to_mm, 2)})")
         distinct = f"<br><i>{tables.esc(u.annotate(s.no_distinct_peak))}</i>" if s.no_distinct_peak else ""
         residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick, u))}"
-        self.info.value = (f"<small>peak: {tables.esc(peak)}, tau {u.with_unit('stress', s.peak.tau_kpa, 1)}"
-                           f"{distinct}<br>critical state: {tables.esc(cs)}, tau "
-                           f"{u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}</small>" + stage_flags_html(s, u))
+        excluded = ("" if s.included else
+                    f'<br><span class="sb-flag">excluded: {tables.esc(s.exclusion_reason)}</span>')
+        self.info.value = (f"<small><b>{tables.esc(s.stage_id)}</b>: peak {tables.esc(peak)}, tau "
+                           f"{u.with_unit('stress', s.peak.tau_kpa, 1)}{distinct}<br>critical state: {tables.esc(cs)}, "
+                           f"tau {u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}{excluded}</small>"
+                           + stage_flags_html(s, u))
 
 
 def stage_flags_html(s: StageResult, u: Display = SI) -> str:
@@ -221,30 +236,38 @@ class StageTable:
         head = (self.HEAD[0], *(f"{h} ({S})" for h in self.HEAD[1:4]), *self.HEAD[4:])
         if self.reversal:
             head = (*head[:4], f"residual tau ({S})", *head[4:])
-        cells: list[W.Widget] = [W.HTML(f"<b>{tables.esc(h)}</b>") for h in head]
+        cells: list[W.Widget] = [W.HTML(f"<b>{tables.esc(h)}</b>", layout=W.Layout(width="auto", min_width="0"))
+                                 for h in head]
         for sid in wb.controller.stage_ids:
-            r = {"sigma": W.HTML(), "peak": W.HTML(), "cs": W.HTML(), "residual": W.HTML(), "flags": W.HTML(),
-                 "include": W.Checkbox(description="", indent=False),
+            cell = W.Layout(width="auto", min_width="0")
+            r = {"show": W.Button(description=sid, tooltip=f"interpret {sid} on the live screen",
+                                  layout=W.Layout(width="auto")),
+                 "sigma": W.HTML(layout=cell), "peak": W.HTML(layout=cell), "cs": W.HTML(layout=cell),
+                 "residual": W.HTML(layout=cell), "flags": W.HTML(layout=cell),
+                 "include": W.Checkbox(description="", indent=False, layout=W.Layout(width="auto")),
                  "reason": W.Text(placeholder="required to exclude", continuous_update=False),
                  "note": W.Text(placeholder="note", continuous_update=False)}
-            for key in ("include", "reason", "note"):
+            for key in ("show", "include", "reason", "note"):
                 r[key].add_class(f"sb-{key}-{dom_key(sid)}")
+            r["show"].on_click(lambda _, sid=sid: wb.select(sid))
             r["include"].observe(lambda ch, sid=sid: self.on_include(sid, ch["new"]), "value")
             r["reason"].observe(lambda ch, sid=sid: self.on_reason(sid, ch["new"]), "value")
             r["note"].observe(lambda ch, sid=sid: self.on_note(sid, ch["new"]), "value")
             self.rows[sid] = r
             for key in ("reason", "note"):
-                r[key].layout = W.Layout(width="210px")
+                r[key].layout = W.Layout(width="180px")
             r["residual"].add_class(f"sb-residual-{dom_key(sid)}")
-            cells += [W.HTML(f"<b>{tables.esc(sid)}</b>"), r["sigma"], r["peak"], r["cs"],
+            cells += [r["show"], r["sigma"], r["peak"], r["cs"],
                       *([r["residual"]] if self.reversal else []), r["flags"], r["include"],
-                      W.VBox([r["reason"], r["note"]])]
+                      W.VBox([r["reason"], r["note"]], layout=W.Layout(min_width="0"))]
         self.message = W.HTML()
         self.message.add_class("sb-table-message")
-        columns = "70px 60px 130px 150px " + ("170px " if self.reversal else "") + "minmax(160px, 1fr) 60px 215px"
+        columns = ("max-content 55px minmax(100px, 1fr) minmax(110px, 1fr) "
+                   + ("minmax(110px, 1fr) " if self.reversal else "") + "minmax(110px, 1.2fr) 55px 184px")
         grid = W.GridBox(cells, layout=W.Layout(grid_template_columns=columns,
-                                                grid_gap="2px 8px", align_items="center"))
-        self.widget = W.VBox([grid, self.message])
+                                                grid_gap="2px 8px", align_items="center", width="100%"))
+        self.widget = W.VBox([grid, self.message], layout=W.Layout(width="100%"))
+        self.widget.add_class("sb-stage-table")
         self.update(wb.controller.results)
 
     def on_include(self, sid: str, included: bool) -> None:
@@ -294,64 +317,164 @@ class StageTable:
                 if not s.included:
                     r["reason"].value = s.exclusion_reason
                 r["note"].value = s.note
+                r["show"].button_style = "info" if s.stage_id == self.wb.panel.sid else ""
         self.wb.guard.run(write)
 
 
+# The live screen fits the width it is given: text wraps, grid cells may shrink below their content's width.
+LIVE_STYLE = """<style>
+.sb-screen .widget-html-content {white-space: normal; overflow-wrap: break-word; line-height: 1.35;}
+.sb-screen .widget-html, .sb-screen .widget-gridbox > * {min-width: 0;}
+.sb-screen .sb-live td:not(:last-child), .sb-screen .sb-live th {white-space: nowrap;}
+.sb-screen table.sb-table {max-width: 100%;}
+</style>"""
+STARTING = ("starting: the cells below are still running. An edit made now waits for them and is then applied "
+            "(the status line says when it is saved).")
+READY = "ready: drag a pick on the shear-stress plot, or type it below; the envelope follows. "
+
+
 class LiveWorkbook:
-    """The whole live screen; display its parts in separate cells (``top``, stages, ``table``...)."""
+    """The whole live screen, :attr:`screen`: choose a stage, drag its picks, watch the envelope refit.
+
+    One working screen, from top to bottom: who is working and what happened last; the stage being
+    interpreted (chosen from a list or from the stage table); its curves beside the envelope plot of
+    one of its groups (one Bokeh document, so that the envelope follows a drag in the browser); the
+    pick controls and flags beside the fitted parameters and notices; the stage table; the summary
+    and the sign-off; the button that computes the record part below.
+    """
 
     def __init__(self, controller: Controller, u: Display = SI) -> None:
         self.controller = controller
         self.u = u  # display units: what the screen shows and what is typed; the controller keeps mm and kPa
         self.guard = _Guard()
         self.last_message = ""
+        self.is_ready = False
         self.author = W.Text(value=controller.author, description="author", placeholder="your name (recorded)",
-                             continuous_update=True)
+                             continuous_update=True, layout=W.Layout(width="300px"))
         self.author.add_class("sb-author")
         self.author.observe(self.on_author, "value")
-        self.undo = W.Button(description="undo last change", icon="undo", layout=W.Layout(width="180px"))
+        self.undo = W.Button(description="undo last change", icon="undo", layout=W.Layout(width="170px"))
         self.undo.on_click(lambda _: self.act(lambda c: c.undo()))
-        self.reload = W.Button(description="reload from file", icon="refresh", layout=W.Layout(width="180px"),
+        self.reload = W.Button(description="reload from file", icon="refresh", layout=W.Layout(width="170px"),
                                tooltip="read the interpretation file again (another writer saved it)")
         self.reload.on_click(lambda _: self.on_reload())
+        self.ready_state = W.HTML()
+        self.ready_state.add_class("sb-ready-state")
         self.status = W.HTML()
         self.status.add_class("sb-status")
-        self.top = W.VBox([W.HBox([self.author, self.undo, self.reload]), self.status])
-        self.panels = {s.stage_id: StagePanel(self, s) for s in controller.results.stages}
-        self.stage_table = StageTable(self)
-        self.table = self.stage_table.widget
-        groups = dict.fromkeys(e.group for e in controller.results.envelopes)
-        self.envelope_plots = [EnvelopePlot(controller.results, g, u) for g in groups]
+        self.top = W.VBox([W.HBox([self.author, self.undo, self.reload, self.ready_state],
+                                  layout=W.Layout(flex_flow="row wrap", align_items="center")), self.status])
+        results = controller.results
+        first = results.stages[0]
+        self.panel = StagePanel(self, first)
+        self.envelope_plot = EnvelopePlot(results, self._groups(first.stage_id)[0], u)
+        self.live_plots = LivePlots(self.panel.plots, self.envelope_plot, u)
+        # the document goes to the page as it is when the widget is made: its state must be complete by then
+        self.live_plots.record_state(first, results)
+        self.bokeh = BokehModel(self.live_plots.layout, layout=W.Layout(width="100%"))
+        self.bokeh.add_class("sb-live-plots")
+        self.choice = W.Dropdown(options=self._choices(results), value=first.stage_id, description="stage",
+                                 style={"description_width": "45px"}, layout=W.Layout(width="360px"))
+        self.choice.add_class("sb-stage-choice")
+        self.choice.observe(lambda ch: None if self.guard.active else self.select(ch["new"]), "value")
+        self.previous = W.Button(icon="chevron-left", tooltip="previous stage", layout=W.Layout(width="36px"))
+        self.next = W.Button(icon="chevron-right", tooltip="next stage", layout=W.Layout(width="36px"))
+        self.previous.on_click(lambda _: self.step(-1))
+        self.next.on_click(lambda _: self.step(+1))
+        self.group = W.Dropdown(options=self._groups(first.stage_id), description="envelope of",
+                                style={"description_width": "80px"}, layout=W.Layout(width="300px"))
+        self.group.add_class("sb-group-choice")
+        self.group.observe(lambda ch: None if self.guard.active else self.show_group(ch["new"]), "value")
         self.cohesion = W.Checkbox(value=controller.interpretation.settings.fit.cohesion == "zero", indent=False,
-                                   description="c' = 0 (envelopes through the origin)")
-        self.curved = W.Checkbox(value=False, indent=False, description="show the curved envelope tau = a sigma'^b")
+                                   description="c' = 0 (through the origin)", layout=W.Layout(width="auto"))
+        self.curved = W.Checkbox(value=False, indent=False, description="curved envelope tau = a sigma'^b",
+                                 layout=W.Layout(width="auto"))
         self.cohesion.observe(self.on_cohesion, "value")
         self.curved.observe(self.on_curved, "value")
+        chooser = W.HBox([self.previous, self.choice, self.next, self.group, self.cohesion, self.curved],
+                         layout=W.Layout(flex_flow="row wrap", align_items="center", grid_gap="0 6px"))
+        chooser.add_class("sb-chooser")
+        self.stage_table = StageTable(self)
+        self.table = self.stage_table.widget
         self.parameters = W.HTML()
         self.parameters.add_class("sb-parameters")
-        self.envelopes = W.VBox([W.HBox([self.cohesion, self.curved]),
-                                 BokehModel(_pairs([e.figure for e in self.envelope_plots])), self.parameters])
-        self.summary = W.HTML()
-        self.summary.add_class("sb-summary")
         self.notices = W.HTML()
         self.notices.add_class("sb-notices")
+        self.fits = W.VBox([self.notices, self.parameters], layout=W.Layout(flex="1 1 420px", min_width="0"))
+        self.summary = W.HTML()
+        self.summary.add_class("sb-summary")
         self.last_changes: list[str] = []
         self._previous: Results | None = None
-        self.envelopes.children = (*self.envelopes.children, self.notices)
         self.signoff = SignOffPanel(self)
+        self.record_part = RecordPart(lambda: (self.controller.results, self.controller.interpretation))
+        work = W.HBox([self.panel.controls, self.fits], layout=W.Layout(flex_flow="row wrap", grid_gap="0 16px",
+                                                                        width="100%"))
+        self.screen = W.VBox([
+            W.HTML(LIVE_STYLE), self.top, chooser, self.bokeh, work,
+            W.HTML("<b>Stages</b> <small>(click a stage to interpret it; a reason is required to exclude one)</small>"),
+            self.table,
+            W.HBox([W.VBox([W.HTML("<b>Summary</b>"), self.summary], layout=W.Layout(flex="1 1 420px")),
+                    W.VBox([W.HTML("<b>Sign-off</b>"), self.signoff.widget], layout=W.Layout(flex="1 1 420px"))],
+                   layout=W.Layout(flex_flow="row wrap", grid_gap="0 16px", width="100%")),
+            self.record_part.widget,
+        ], layout=W.Layout(width="100%", overflow="hidden"))
+        self.screen.add_class("sb-screen")
         controller.subscribe(self.refresh)
-        self.refresh(controller.results, frozenset())
-        self.status.value = (f"<small>{tables.esc(PICK_HELP)} Decisions are saved at once to "
-                             f"{tables.esc(controller.path.name)}.</small>")
+        self.refresh(results, frozenset())
+        self.ready_state.value = f'<span class="sb-starting">{tables.esc(STARTING)}</span>'
+        self.status.value = f"<small>Decisions are saved at once to {tables.esc(controller.path.name)}.</small>"
 
-    def stage_panel(self, stage_id: str) -> W.Widget:
-        return self.panels[stage_id].widget
+    # --- choosing what to look at ----------------------------------------------------------------
 
-    @property
-    def stages(self) -> W.Widget:
-        return W.VBox([p.widget for p in self.panels.values()])
+    def _groups(self, stage_id: str) -> list[str]:
+        """The envelope groups the stage belongs to: its test set first, then its stratum pooled."""
+        s = self.controller.stage(stage_id)
+        return list(dict.fromkeys(e.group for e in self.controller.results.envelopes if s.in_group(e.group)))
 
-    def act(self, edit: Callable[[Controller], bool], redraw: str | None = None) -> bool:
+    def _choices(self, results: Results) -> list[tuple[str, str]]:
+        u = self.u
+        return [(f"{s.stage_id}{f' ({s.test_set})' if s.test_set else ''}, sigma'n "
+                 f"{u.with_unit('stress', s.sigma_nominal_kpa, 0)}{'' if s.included else ' - excluded'}", s.stage_id)
+                for s in results.stages]
+
+    def select(self, stage_id: str) -> StagePanel:
+        """Interpret ``stage_id``: its curves and picks on the screen, the envelope of one of its groups beside."""
+        if stage_id not in self.controller.stage_ids:
+            raise KeyError(f"no stage {stage_id!r} in this project")
+        s = self.controller.stage(stage_id)
+        self.panel.show(s)
+        groups = self._groups(stage_id)
+        group = self.envelope_plot.group if self.envelope_plot.group in groups else groups[0]
+
+        def write() -> None:
+            self.choice.value = stage_id
+            self.group.options = groups
+            self.group.value = group
+        self.guard.run(write)
+        self.envelope_plot.show(self.controller.results, group)
+        self.live_plots.record_state(s, self.controller.results)
+        self.stage_table.update(self.controller.results)
+        return self.panel
+
+    def step(self, by: int) -> None:
+        ids = self.controller.stage_ids
+        self.select(ids[(ids.index(self.panel.sid) + by) % len(ids)])
+
+    def show_group(self, group: str) -> None:
+        self.envelope_plot.show(self.controller.results, group)
+        self.live_plots.record_state(self.controller.stage(self.panel.sid), self.controller.results)
+
+    def ready(self) -> None:
+        """Say the screen is ready (the last cell of the workbook calls it) and bring it into view."""
+        self.is_ready = True
+        self.ready_state.value = f'<span class="sb-ready">{tables.esc(READY)}</span>'
+        from IPython.display import Javascript, display
+
+        display(Javascript("const s = document.querySelector('.sb-screen'); if (s) s.scrollIntoView({block: 'start'});"))
+
+    # --- edits -------------------------------------------------------------------------------------
+
+    def act(self, edit: Callable[[Controller], bool], redraw: bool = False) -> bool:
         """Run one controller edit; show its message; snap a dragged marker back when nothing changed."""
         ok = edit(self.controller)
         c = self.controller
@@ -365,7 +488,8 @@ class LiveWorkbook:
             self.status.value = f'<span class="sb-flag">{tables.esc(self.u.annotate(c.message))}</span>'
         self.last_message, c.message = c.message, ""
         if not ok and redraw:
-            self.panels[redraw].update(c.stage(redraw))
+            self.panel.update(c.stage(self.panel.sid))
+            self.live_plots.record_state(c.stage(self.panel.sid), c.results)
         return ok
 
     def on_reload(self) -> None:
@@ -387,18 +511,25 @@ class LiveWorkbook:
             self.guard.run(lambda: setattr(self.cohesion, "value", zero))
 
     def on_curved(self, change: dict[str, Any]) -> None:
-        for e in self.envelope_plots:
-            e.curved = bool(change["new"])
-            e.update(self.controller.results)
+        self.envelope_plot.curved = bool(change["new"])
+        self.envelope_plot.update(self.controller.results)
 
     def refresh(self, results: Results, changed: frozenset[str]) -> None:
-        for sid in changed:
-            self.panels[sid].update(results.stage(sid))
+        shown = results.stage(self.panel.sid)
+        if self.panel.sid in changed:
+            self.panel.update(shown)
+        self.envelope_plot.update(results)
+        self.live_plots.record_state(shown, results)
         self.stage_table.update(results)  # flags comparing stages may change on other rows
-        for e in self.envelope_plots:
-            e.update(results)
         zero = self.controller.interpretation.settings.fit.cohesion == "zero"
-        self.guard.run(lambda: setattr(self.cohesion, "value", zero))
+        choices = self._choices(results)
+
+        def write() -> None:
+            self.cohesion.value = zero
+            if list(self.choice.options) != choices:
+                self.choice.options = choices
+                self.choice.value = self.panel.sid
+        self.guard.run(write)
         self.parameters.value = parameters_html(results, self.u)
         self.summary.value = summary_html(results, self.controller, self.u)
         self.last_changes = fit_changes(self._previous, results) if self._previous is not None else []
@@ -406,6 +537,8 @@ class LiveWorkbook:
         self.notices.value = notices_html(self.last_changes, standing_notices(results), self.u)
         if hasattr(self, "signoff"):
             self.signoff.update()
+        if hasattr(self, "record_part"):
+            self.record_part.mark_stale(self.controller.interpretation.revision)
 
 
 def notices_html(changes: list[str], standing: list[str], u: Display = SI) -> str:
@@ -454,11 +587,6 @@ class SignOffPanel:
         if self.wb.act(lambda c: c.sign_off(self.state.value, self.note.value.strip())):
             self.note.value = ""
         self.update()
-
-
-def _pairs(figures: list[Any]) -> Any:
-    """Figures two to a row."""
-    return column(*(row(*figures[i : i + 2]) for i in range(0, len(figures), 2)))
 
 
 def parameters_html(results: Results, u: Display = SI) -> str:
