@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 from synthetic import reversal_project
-from test_workbook_browser import PLOT_BOX, _wait, drag_until_saved, open_and_run_all, running_lab
+from test_workbook_browser import PLOT_BOX, _wait, choose_stage, drag_until_saved, open_and_run_all, running_lab
 
 from kernels_helpers import interpret
 from kernels_helpers.views.figures import RESIDUAL
@@ -52,10 +52,11 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
     errors: list[str] = []
     page.on("pageerror", lambda e: errors.append(str(e)))
     try:
-        name = f"live-{STAGE}-tau"
-        open_and_run_all(page, lab, name)
+        name = "live-tau"
+        open_and_run_all(page, lab)
         page.locator(".sb-author input").fill("R. Browser")
         page.locator(".sb-author input").press("Tab")
+        choose_stage(page, STAGE)
         before = interpret(project).stage(STAGE)
         assert before.residual is not None and not before.residual.reached and before.residual_source == "suggested"
         ends = page.evaluate(f"""() => {{ const v = Bokeh.index.query_one(v => v.model.name === '{name}');
@@ -65,7 +66,7 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
             return [Array.from(r.data_source.data.x), Array.from(r.data_source.data.y)]; }}""")
         (x_from, x_to), (y, _) = ends
         target = x_to - 1.2  # pull the far end of the window back along the pass
-        envelope = "live-envelope-synthetic"
+        envelope = "live-envelope"
         shown_before = page.evaluate(RESIDUAL_POINTS, [envelope])
         saved = drag_until_saved(page, name, x_to, y, target,
                                  lambda: _residual(project).get("author") == "R. Browser" and _residual(project),

@@ -324,8 +324,8 @@ class StageTable:
 # The live screen fits the width it is given: text wraps, grid cells may shrink below their content's width.
 LIVE_STYLE = """<style>
 .sb-screen .widget-html-content {white-space: normal; overflow-wrap: break-word; line-height: 1.35;}
+.sb-screen .sb-summary .widget-html-content, .sb-screen .sb-status .widget-html-content {overflow-wrap: anywhere;}
 .sb-screen .widget-html, .sb-screen .widget-gridbox > * {min-width: 0;}
-.sb-screen .sb-live td:not(:last-child), .sb-screen .sb-live th {white-space: nowrap;}
 .sb-screen table.sb-table {max-width: 100%;}
 </style>"""
 STARTING = ("starting: the cells below are still running. An edit made now waits for them and is then applied "
@@ -401,20 +401,25 @@ class LiveWorkbook:
         self.notices = W.HTML()
         self.notices.add_class("sb-notices")
         self.fits = W.VBox([self.notices, self.parameters], layout=W.Layout(flex="1 1 420px", min_width="0"))
+        self.fits.add_class("sb-fits")
         self.summary = W.HTML()
         self.summary.add_class("sb-summary")
         self.last_changes: list[str] = []
         self._previous: Results | None = None
         self.signoff = SignOffPanel(self)
         self.record_part = RecordPart(lambda: (self.controller.results, self.controller.interpretation))
+        summary_box = W.VBox([W.HTML("<b>Summary</b>"), self.summary], layout=W.Layout(flex="1 1 420px", min_width="0"))
+        summary_box.add_class("sb-summary-box")
+        signoff_box = W.VBox([W.HTML("<b>Sign-off</b>"), self.signoff.widget],
+                             layout=W.Layout(flex="1 1 420px", min_width="0"))
+        signoff_box.add_class("sb-signoff-box")
         work = W.HBox([self.panel.controls, self.fits], layout=W.Layout(flex_flow="row wrap", grid_gap="0 16px",
                                                                         width="100%"))
         self.screen = W.VBox([
             W.HTML(LIVE_STYLE), self.top, chooser, self.bokeh, work,
             W.HTML("<b>Stages</b> <small>(click a stage to interpret it; a reason is required to exclude one)</small>"),
             self.table,
-            W.HBox([W.VBox([W.HTML("<b>Summary</b>"), self.summary], layout=W.Layout(flex="1 1 420px")),
-                    W.VBox([W.HTML("<b>Sign-off</b>"), self.signoff.widget], layout=W.Layout(flex="1 1 420px"))],
+            W.HBox([summary_box, signoff_box],
                    layout=W.Layout(flex_flow="row wrap", grid_gap="0 16px", width="100%")),
             self.record_part.widget,
         ], layout=W.Layout(width="100%", overflow="hidden"))
@@ -573,7 +578,9 @@ class SignOffPanel:
         self.button.on_click(lambda _: self.record())
         hint = W.HTML("<small>Recorded with your name and the time, like every decision. To sign a step with your "
                       "OpenSSH key, use <code>shearbook signoff --sign KEY --principal EMAIL</code>.</small>")
-        self.widget = W.VBox([self.history, W.HBox([self.state, self.note, self.button]), hint])
+        self.widget = W.VBox([self.history, W.HBox([self.state, self.note, self.button],
+                                                   layout=W.Layout(flex_flow="row wrap", grid_gap="4px 6px")), hint],
+                             layout=W.Layout(min_width="0"))
         self.update()
 
     def update(self) -> None:
@@ -612,7 +619,7 @@ def parameters_html(results: Results, u: Display = SI) -> str:
     return _NOWRAP + tables.table(head, rows, css="sb-table sb-live") + tables.caution_html()
 
 
-_NOWRAP = "<style>.sb-live td:not(:last-child), .sb-live th {white-space: nowrap;}</style>"
+_NOWRAP = "<style>.sb-live td:nth-child(4), .sb-live td:nth-child(5) {white-space: nowrap;}</style>"  # the numbers
 
 
 def summary_html(results: Results, controller: Controller, u: Display = SI) -> str:
