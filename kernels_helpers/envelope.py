@@ -12,6 +12,8 @@ side-by-side of straight-line and curved residuals, and the secant angle of each
 
 from __future__ import annotations
 
+import functools
+
 import math
 import warnings
 from collections.abc import Sequence
@@ -32,7 +34,14 @@ __all__ = [
     "mean_se",
     "prediction_band",
     "secant_phi_deg",
+    "t_quantile",
 ]
+
+
+@functools.lru_cache(maxsize=512)
+def t_quantile(p: float, dof: int) -> float:
+    """Student's t quantile (scipy.stats.t.ppf), remembered: a live refit asks for the same few many times."""
+    return float(stats.t.ppf(p, dof))
 
 
 @dataclass(frozen=True)
@@ -114,7 +123,7 @@ def fit_line(sigma: Sequence[float], tau: Sequence[float], level: float = 0.95) 
         r2_definition="1 - SSE/SST, SST about the mean",
         through_origin=False,
         level=level,
-        t_value=float(stats.t.ppf(0.5 + level / 2, dof)),
+        t_value=t_quantile(0.5 + level / 2, dof),
         residuals=tuple(float(r) for r in res),
         cov_intercept_slope=float(-xm * s**2 / sxx),
     )
@@ -144,7 +153,7 @@ def fit_through_origin(sigma: Sequence[float], tau: Sequence[float], level: floa
         r2_definition="1 - SSE/sum(tau^2), uncorrected (through the origin)",
         through_origin=True,
         level=level,
-        t_value=float(stats.t.ppf(0.5 + level / 2, dof)),
+        t_value=t_quantile(0.5 + level / 2, dof),
         residuals=tuple(float(r) for r in res),
     )
 
@@ -154,7 +163,7 @@ def fit_through_origin(sigma: Sequence[float], tau: Sequence[float], level: floa
 
 def _t_factor(dof: int, level: float, one_sided: bool) -> float:
     """Student t quantile: two-sided at ``level``, or the one-sided lower/upper bound at ``level``."""
-    return float(stats.t.ppf(level if one_sided else 0.5 + level / 2, dof))
+    return t_quantile(level if one_sided else 0.5 + level / 2, dof)
 
 
 def mean_se(fit: LineFit, sigma: Sequence[float] | np.ndarray) -> np.ndarray:

@@ -14,9 +14,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
-from .envelope import fit_line, fit_through_origin
+from .envelope import fit_line, fit_through_origin, t_quantile
 from .results import EnvelopeResult
 
 __all__ = ["Outlier", "envelope_outliers", "studentised_external"]
@@ -78,7 +77,7 @@ def envelope_outliers(env: EnvelopeResult, level: float) -> list[Outlier]:
     if fit is None or n - p - 1 < 1 or (not origin and len(set(env.sigma_kpa)) < 3):
         return []  # without the stage the rest must still give a line with a scatter
     t_ext = studentised_external(x, y, origin)
-    limit = float(stats.t.ppf((1 + level) / 2, n - p - 1))
+    limit = t_quantile((1 + level) / 2, n - p - 1)
     out = []
     for i in np.flatnonzero(np.abs(t_ext) > limit):
         keep = np.arange(n) != i

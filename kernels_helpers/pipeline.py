@@ -13,7 +13,7 @@ import platform
 import sys
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
-from typing import TypeVar
+from typing import Literal, TypeVar
 
 import numpy as np
 
@@ -39,7 +39,7 @@ from .readings import StageReadings, read_stage, sha256_of
 from .reduce import ReducedStage, reduce_stage, settlement_of
 from .results import EnvelopeResult, Results, StageResult
 from .sensitivity import leave_one_out
-from .stage_checks import check_stage, consolidation_of
+from .stage_checks import Consolidation, check_stage, consolidation_of
 
 __all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance",
            "raw_file_hashes", "read_all", "stage_units"]
@@ -93,15 +93,19 @@ def _manual(spec: StageSpec, what: str, evaluate: Callable[[], T]) -> T:
 
 def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecision, settings: Settings,
                   saved_sha256: str | None = None, origin_mm: float | None = None,
-                  reduced: ReducedStage | None = None, saved_files: Mapping[str, str] | None = None) -> StageResult:
+                  reduced: ReducedStage | None = None, saved_files: Mapping[str, str] | None = None,
+                  consolidation: Consolidation | None | Literal["read"] = "read") -> StageResult:
     """Reduce one stage, suggest its picks and evaluate the picks the engineer chose.
 
     ``reduced``: this stage's reduction under ``settings.reduction`` when the caller already has it
     (the live workbook: a pick does not change the reduction); computed here otherwise.
+    ``consolidation``: the stage's consolidation readings and analysis (:func:`consolidation_of`) when
+    the caller already has them (None: the stage has none); "read": read and analysed here.
     """
     # in the order the data needs: the consolidation stage first, then the reduction from the height at the
     # start of shearing it gives, then suggestions and checks
-    consolidation = consolidation_of(spec)
+    if consolidation == "read":
+        consolidation = consolidation_of(spec)
     final = consolidation.result.final_settlement_mm if consolidation is not None else None
     compliance = _compliance_of_settlement(spec, final)  # (taken out, as measured) or None
     if compliance is not None and final is not None:

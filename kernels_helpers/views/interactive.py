@@ -33,6 +33,7 @@ from ..project import load_project
 from ..readings import sha256_of
 from ..results import Results, StageResult
 from ..revisions import ConcurrentEditError, Saved, save_checked
+from ..stage_checks import consolidation_of
 
 __all__ = ["Controller"]
 
@@ -70,6 +71,8 @@ class Controller:
         self.readings = read_all(self.project)
         units = stage_units(self.project, self.readings)
         self._units = {spec.id: (spec, part, continued) for spec, part, continued in units}
+        # each stage's consolidation readings, read and analysed once like the shearing readings
+        self._consolidation = {sid: consolidation_of(spec) for sid, (spec, _, _) in self._units.items()}
         self._origin: dict[str, float | None] = {}
         self._analysed: dict[str, StageResult] = {}
         self._snapped: dict[tuple[str, float], float] = {}
@@ -397,7 +400,7 @@ class Controller:
         same = known is not None and interp.settings.reduction == self.interpretation.settings.reduction
         return analyse_stage(spec, part, interp.decision(stage_id), interp.settings, interp.raw_files.get(spec.relpath),
                              self._origin[stage_id], known.reduced if same and known else None,
-                             saved_files=interp.raw_files)
+                             saved_files=interp.raw_files, consolidation=self._consolidation[stage_id])
 
     def _assemble(self, interp: Interpretation) -> Results:
         return assemble_results(self.project, self.readings, interp, tuple(self._analysed.values()))

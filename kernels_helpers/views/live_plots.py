@@ -32,7 +32,6 @@ from bokeh.models import (
     LegendItem,
     PointDrawTool,
     Span,
-    Title,
 )
 from bokeh.plotting import figure
 
@@ -400,7 +399,7 @@ class EnvelopePlot:
         p.title.text_font_size = "11px"
         p.axis.axis_label_text_font_size = "10px"
         self.sources: dict[str, dict[str, ColumnDataSource]] = {}
-        self.labels: dict[str, Title] = {}
+        self.labels: dict[str, Label] = {}
         self._drawn: dict[str, tuple[EnvelopeResult, float, bool]] = {}
         items = []
         present = {e.kind for e in results.envelopes}
@@ -421,13 +420,17 @@ class EnvelopePlot:
                                   y_offset=-4, text_color=colour))  # each point named by its stage
             out = p.scatter("x", "y", source=src["out"], size=9, fill_color=GREY, line_color="#6d747a", marker=marker,
                             alpha=0.8)
-            self.labels[kind] = Title(text="", text_font_size="10.5px", text_color=colour, text_font_style="bold")
+            # the fit in words at the top left of the plot; a Label, not a Title: its text changes on every
+            # refit (and on every mouse move of a preview) without laying the whole screen out again
+            self.labels[kind] = Label(x=6, y=6 + 16 * len(self.labels), x_units="screen", y_units="screen",
+                                      text_baseline="top", text="", text_font_size="10.5px", text_color=colour,
+                                      text_font_style="bold", background_fill_color="white",
+                                      background_fill_alpha=0.85, name=f"fit-{kind}")
+            p.add_layout(self.labels[kind])
             items += [LegendItem(label=f"{name} (95 % band)", renderers=[pts, line, band]),
                       LegendItem(label=f"{name}: preview while dragging", renderers=[preview]),
                       LegendItem(label=f"{name}: excluded", renderers=[out]),
                       LegendItem(label=f"{name}: curved (when shown)", renderers=[curve])]
-        for fit_label in reversed(self.labels.values()):  # the fits in words over the plot (a preview rewrites them)
-            p.add_layout(fit_label, "above")
         sf = "0.0" if u.is_si else "0"
         p.add_tools(HoverTool(tooltips=[("stage", "@stage"), ("sigma'", f"@x{{{sf}}} {u.unit('stress')}"),
                                         ("tau", f"@y{{{sf}}} {u.unit('stress')}")]))

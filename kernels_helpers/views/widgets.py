@@ -8,12 +8,15 @@ return early when the incoming data is what the current pick already draws.
 
 from __future__ import annotations
 
+import contextlib
+import json
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
 import ipywidgets as W
+from bokeh.protocol import Protocol
 from jupyter_bokeh.widgets import BokehModel
 
 from ..display_units import SI, Display, display_for
@@ -189,6 +192,54 @@ class StagePanel:
                            f"{u.with_unit('stress', s.peak.tau_kpa, 1)}{distinct}<br>critical state: {tables.esc(cs)}, "
                            f"tau {u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}{excluded}</small>"
                            + stage_flags_html(s, u))
+
+
+class BatchedBokehModel(BokehModel):
+    """A BokehModel that, inside :meth:`batch`, sends every change of the document as one patch.
+
+    jupyter_bokeh sends each Python change as a patch of its own (three comm messages each), and the
+    page applies and lays out each one by itself: an edit that redraws a stage and its envelope made
+    some thirty. Held and sent together they arrive in one message and are applied in one pass.
+    """
+
+    def __init__(self, model: Any, **kwargs: Any) -> None:
+        self._held: list[Any] | None = None
+        super().__init__(model, **kwargs)
+
+    @contextlib.contextmanager
+    def batch(self) -> Iterator[None]:
+        if self._held is not None:  # already batching: the outer batch sends
+            yield
+            return
+        self._held = []
+        try:
+            yield
+        finally:
+            events, self._held = self._held, None
+            if events:
+                self._send_patch(events)
+
+    def flush(self) -> None:
+        """Send what the batch holds so far (the batch goes on)."""
+        if self._held:
+            events, self._held = self._held, []
+            self._send_patch(events)
+
+    def _document_patched(self, event: Any) -> None:
+        if event.setter is self:  # the page's own change coming in: nothing to send back
+            return
+        if self._held is not None:
+            self._held.append(event)
+        else:
+            self._send_patch([event])
+
+    def _send_patch(self, events: list[Any]) -> None:
+        msg = Protocol().create("PATCH-DOC", events)
+        for part in (msg.header_json, msg.metadata_json, msg.content_json):
+            self.send({"msg": "patch", "payload": part})
+        for buffer in msg.buffers:
+            self.send({"msg": "patch", "payload": json.dumps(buffer.ref)})
+            self.send({"msg": "patch"}, [buffer.to_bytes()])
 
 
 def stage_flags_html(s: StageResult, u: Display = SI) -> str:
@@ -371,7 +422,7 @@ class LiveWorkbook:
         self.live_plots = LivePlots(self.panel.plots, self.envelope_plot, u)
         # the document goes to the page as it is when the widget is made: its state must be complete by then
         self.live_plots.record_state(first, results)
-        self.bokeh = BokehModel(self.live_plots.layout, layout=W.Layout(width="100%"))
+        self.bokeh = BatchedBokehModel(self.live_plots.layout, layout=W.Layout(width="100%"))
         self.bokeh.add_class("sb-live-plots")
         self.choice = W.Dropdown(options=self._choices(results), value=first.stage_id, description="stage",
                                  style={"description_width": "45px"}, layout=W.Layout(width="360px"))
@@ -446,6 +497,10 @@ class LiveWorkbook:
         """Interpret ``stage_id``: its curves and picks on the screen, the envelope of one of its groups beside."""
         if stage_id not in self.controller.stage_ids:
             raise KeyError(f"no stage {stage_id!r} in this project")
+        with self.bokeh.batch():
+            return self._select(stage_id)
+
+    def _select(self, stage_id: str) -> StagePanel:
         s = self.controller.stage(stage_id)
         self.panel.show(s)
         groups = self._groups(stage_id)
@@ -466,8 +521,9 @@ class LiveWorkbook:
         self.select(ids[(ids.index(self.panel.sid) + by) % len(ids)])
 
     def show_group(self, group: str) -> None:
-        self.envelope_plot.show(self.controller.results, group)
-        self.live_plots.record_state(self.controller.stage(self.panel.sid), self.controller.results)
+        with self.bokeh.batch():
+            self.envelope_plot.show(self.controller.results, group)
+            self.live_plots.record_state(self.controller.stage(self.panel.sid), self.controller.results)
 
     def ready(self) -> None:
         """Say the screen is ready (the last cell of the workbook calls it) and bring it into view."""
@@ -480,7 +536,14 @@ class LiveWorkbook:
     # --- edits -------------------------------------------------------------------------------------
 
     def act(self, edit: Callable[[Controller], bool], redraw: bool = False) -> bool:
-        """Run one controller edit; show its message; snap a dragged marker back when nothing changed."""
+        """Run one controller edit; show its message; snap a dragged marker back when nothing changed.
+
+        The plots' changes go to the page as one patch (:class:`BatchedBokehModel`).
+        """
+        with self.bokeh.batch():
+            return self._act(edit, redraw)
+
+    def _act(self, edit: Callable[[Controller], bool], redraw: bool) -> bool:
         ok = edit(self.controller)
         c = self.controller
         if ok:
@@ -500,7 +563,8 @@ class LiveWorkbook:
     def on_reload(self) -> None:
         """Read the file again (another writer saved it); not a save, so said as information."""
         c = self.controller
-        ok = c.reload()
+        with self.bokeh.batch():
+            ok = c.reload()
         css = "sb-info" if ok else "sb-flag"
         self.status.value = f'<span class="{css}">{tables.esc(c.message)}</span>'
         self.last_message, c.message = c.message, ""
@@ -517,14 +581,17 @@ class LiveWorkbook:
 
     def on_curved(self, change: dict[str, Any]) -> None:
         self.envelope_plot.curved = bool(change["new"])
-        self.envelope_plot.update(self.controller.results)
+        with self.bokeh.batch():
+            self.envelope_plot.update(self.controller.results)
 
     def refresh(self, results: Results, changed: frozenset[str]) -> None:
         shown = results.stage(self.panel.sid)
+        self.envelope_plot.update(results)  # the new numbers first, then the stage's plots, then the rest
+        self.live_plots.record_state(shown, results)
         if self.panel.sid in changed:
             self.panel.update(shown)
-        self.envelope_plot.update(results)
-        self.live_plots.record_state(shown, results)
+        if hasattr(self, "bokeh"):
+            self.bokeh.flush()  # the plots reach the page before the tables and texts below
         self.stage_table.update(results)  # flags comparing stages may change on other rows
         zero = self.controller.interpretation.settings.fit.cohesion == "zero"
         choices = self._choices(results)

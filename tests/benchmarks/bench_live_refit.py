@@ -4,8 +4,9 @@
 
 Python side: a peak drop delivered as jupyter_bokeh delivers it (the callback path, called twice),
 through re-analysis of that stage, the refit of every envelope, the atomic save and the push of new
-data into the Bokeh sources and widgets. Browser side (JupyterLab + Debian chromium): from the
-mouse-up of a real drag to the next frame after the envelope's data changed. Not collected by pytest.
+data into the Bokeh sources and widgets. Browser side (JupyterLab + Debian chromium, 1366 x 768): from
+the mouse-up of a real drag to the frame where the kernel's phi' and c' replace the browser's preview
+over the envelope plot. Not collected by pytest.
 """
 
 from __future__ import annotations
@@ -46,10 +47,10 @@ def python_side(root: Path, repeats: int) -> None:
     totals, analyse, assemble, save = [], [], [], []
     for k in range(repeats):
         sid = c.stage_ids[k % len(c.stage_ids)]
-        panel = wb.panels[sid]
+        panel = wb.select(sid)
         s = c.stage(sid)
         x = 3.0 if abs(s.peak.x_mm - 3.0) > 0.1 else 3.6  # always a real move
-        bm = panel.widget.children[0]
+        bm = wb.bokeh
         content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": panel.plots.peak.id}, "attr": "data",
                    "new": Serializer().encode({"x": [x], "y": [s.peak.tau_kpa]})}
         start = time.perf_counter()
@@ -86,39 +87,26 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
     from kernels_helpers import interpret
 
     results = interpret(root)
-    sid = results.stages[0].stage_id
-    group = results.stages[0].test_set
-    # the envelope's data as text; the time of the last pointer-up in the page
-    snap = """([name]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
-      return v.model.renderers.map(r => JSON.stringify(Object.values(r.data_source.data).map(c => Array.from(c))))
-        .join('|'); }"""
+    sid = results.stages[0].stage_id  # the stage the live screen opens on
+    # the fits in words over the envelope plot (a preview while dragging, the kernel's refit after)
+    titles = "() => Bokeh.index.query_one(v => v.model.name === 'live-envelope').model.center.filter(a => (a.name || '').startsWith('fit-')).map(a => a.text).join('|')"
     listen = """() => document.addEventListener('pointerup', () => { window.__sb_up = performance.now(); }, true)"""
-    changed = """([name, before]) => { const v = Bokeh.index.query_one(v => v.model.name === name);
-      const now = v.model.renderers.map(r => JSON.stringify(Object.values(r.data_source.data).map(c => Array.from(c))))
-        .join('|');
-      if (now === before) return false;
-      window.__sb_env = performance.now(); return true; }"""
+    refitted = f"""([before]) => {{ const now = ({titles})();
+      if (now === before || now.includes('preview')) return false;
+      window.__sb_env = performance.now(); return true; }}"""
     with mod.running_lab(root, scratch) as url, sync_playwright() as pw, tempfile.TemporaryDirectory() as profile:
         ctx = pw.chromium.launch_persistent_context(profile, executable_path="/usr/bin/chromium", headless=True,
-                                                    args=CHROMIUM_ARGS, viewport={"width": 1400, "height": 1000})
+                                                    args=CHROMIUM_ARGS, viewport={"width": 1366, "height": 768})
         page = ctx.new_page()
-        page.goto(url)
-        page.wait_for_function(mod.KERNEL_IDLE, timeout=120_000)
-        page.evaluate("() => window.jupyterapp.commands.execute('notebook:run-all-cells')")
-        env_name = f"live-envelope-{group.replace(' ', '_')}"
-        page.wait_for_function(f"() => window.Bokeh && Bokeh.index.query_one(v => v.model.name === '{env_name}')",
-                               timeout=300_000)
-        page.wait_for_function(mod.KERNEL_IDLE, timeout=300_000)
+        mod.open_and_run_all(page, url)
         page.evaluate(listen)
         page.locator(".sb-author input").fill("benchmark")
         page.locator(".sb-author input").press("Tab")
-        name = f"live-{sid}-tau"
+        name = "live-tau"
         times = []
         x, tau = results.stage(sid).peak.x_mm, results.stage(sid).peak.tau_kpa
 
         def drag(x_from: float, y: float, x_to: float) -> None:
-            page.evaluate(mod.PLOT_BOX, [name, x_from, y])  # scroll the plot into view, then let the page settle
-            page.wait_for_timeout(1000)
             a = page.evaluate(mod.PLOT_BOX, [name, x_from, y])
             b = page.evaluate(mod.PLOT_BOX, [name, x_to, y])
             page.mouse.move(a["x"], a["y"])
@@ -127,9 +115,9 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
             page.mouse.move(b["x"], b["y"], steps=10)
             page.mouse.up()
 
-        # Untimed: the first drags after the outputs appear can be lost while the page's Bokeh models
-        # finish connecting to the kernel; drag until the kernel takes one, then time the next ones.
-        for _ in range(10):
+        page.evaluate(mod.PLOT_BOX, [name, x, tau])  # scroll the plot into view, then let the page settle
+        page.wait_for_timeout(500)
+        for attempt in range(1, 11):  # a drag the kernel never answers would be an edit lost: count them
             drag(x, tau, x + 1.5)
             deadline = time.monotonic() + 5
             while time.monotonic() < deadline and abs(interpret(root).stage(sid).peak.x_mm - x) < 0.5:
@@ -137,33 +125,29 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
             moved = interpret(root).stage(sid)
             if abs(moved.peak.x_mm - x) >= 0.5:
                 x, tau = moved.peak.x_mm, moved.peak.tau_kpa
+                print(f"first drag after ready answered at attempt {attempt}")
                 break
         else:
             raise SystemExit("the page never delivered a drag to the kernel")
         page.wait_for_function(mod.KERNEL_IDLE, timeout=30_000)
         for k in range(repeats):
             x_new = x + (-1.5 if k % 2 == 0 else 1.5)  # a drag of under ~15 px is taken for a tap
-            before = page.evaluate(snap, [env_name])
+            before = page.evaluate(titles)
             drag(x, tau, x_new)
             try:
-                page.wait_for_function(changed, arg=[env_name, before], polling="raf", timeout=60_000)
+                page.wait_for_function(refitted, arg=[before], polling="raf", timeout=60_000)
             except Exception:
                 shot = HERE.parents[1] / "test-artifacts" / "bench-timeout.png"
                 shot.parent.mkdir(exist_ok=True)
                 page.screenshot(path=str(shot))
-                print(f"repeat {k}: no redraw seen; screenshot {shot}", page.evaluate(
-                    "() => [window.__sb_up, window.__sb_env]"), interpret(root).stage(sid).peak_source)
-                print(page.evaluate(f"""() => Bokeh.index.query_one(v => v.model.name === '{env_name}').model.renderers
-                    .map(r => JSON.stringify(r.data_source.data.y
-                                             ? Array.from(r.data_source.data.y).slice(0, 4) : null))"""))
-                env = interpret(root).envelope(group, "peak")
-                print("python:", env.stage_ids, env.tau_kpa)
+                print(f"repeat {k}: no refit seen; screenshot {shot}", page.evaluate(titles))
                 raise
             times.append(page.evaluate("() => (window.__sb_env - window.__sb_up) / 1000"))
             page.wait_for_function(mod.KERNEL_IDLE, timeout=30_000)
             page.wait_for_timeout(300)
             x, tau = x_new, interpret(root).stage(sid).peak.tau_kpa
-        print(f"Browser side, mouse-up -> envelope redrawn ({repeats} drags): {_ms(times)}   budget 250 ms")
+        print(f"Browser side, mouse-up -> the kernel's phi' and c' over the envelope ({repeats} drags): {_ms(times)}"
+              "   aim: median under 100 ms")
         ctx.close()
 
 
