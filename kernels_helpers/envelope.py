@@ -13,7 +13,6 @@ side-by-side of straight-line and curved residuals, and the secant angle of each
 from __future__ import annotations
 
 import functools
-
 import math
 import warnings
 from collections.abc import Sequence

@@ -94,7 +94,7 @@ def _manual(spec: StageSpec, what: str, evaluate: Callable[[], T]) -> T:
 def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecision, settings: Settings,
                   saved_sha256: str | None = None, origin_mm: float | None = None,
                   reduced: ReducedStage | None = None, saved_files: Mapping[str, str] | None = None,
-                  consolidation: Consolidation | None | Literal["read"] = "read") -> StageResult:
+                  consolidation: Consolidation | Literal["read"] | None = "read") -> StageResult:
     """Reduce one stage, suggest its picks and evaluate the picks the engineer chose.
 
     ``reduced``: this stage's reduction under ``settings.reduction`` when the caller already has it

@@ -42,6 +42,41 @@ def test_workbook_copy_points_at_its_own_project(example_copy: Path) -> None:
     assert workbook_in_project(example_copy).read_text(encoding="utf-8").endswith(" ")  # never overwritten
 
 
+def test_the_project_workbook_has_one_parameters_cell_set_to_its_project(example_copy: Path) -> None:
+    import nbformat
+
+    from kernels_helpers.record import RecordError, set_parameters
+
+    nb = nbformat.read(workbook_in_project(example_copy), as_version=4)
+    tagged = [c for c in nb.cells if set(c.metadata.get("tags", [])) & {"parameters", "injected-parameters"}]
+    assert len(tagged) == 1 and "parameters" in tagged[0].metadata["tags"]
+    source = tagged[0].source
+    assert "project_dir = '.'" in source and "interpretation_file = None" in source
+    assert "../example_project" not in source and "display_units = None" in source  # the rest as shipped
+    with pytest.raises(RecordError, match="does not set 'no_such_parameter'"):
+        set_parameters(nb, {"no_such_parameter": 1})
+
+
+def test_shearbook_open_gives_its_server_a_kernel_that_imports_shearbook_as_it_starts() -> None:
+    import json
+    import shutil
+    import sys
+
+    from kernels_helpers.cli import _warm_kernel_spec
+
+    folder = _warm_kernel_spec()
+    try:
+        spec = json.loads((folder / "kernels" / "python3" / "kernel.json").read_text(encoding="utf-8"))
+        assert spec["argv"][:3] == [sys.executable, "-m", "ipykernel_launcher"] and "{connection_file}" in spec["argv"]
+        warm = next(a for a in spec["argv"] if a.startswith("--IPKernelApp.exec_lines="))
+        names = [n.strip() for n in warm.split("=", 1)[1].removeprefix("import ").split(",")]
+        assert "kernels_helpers.views.widgets" in names
+        for name in names:  # every name it imports exists
+            __import__(name)
+    finally:
+        shutil.rmtree(folder)
+
+
 def test_a_normal_run_prints_the_result_and_the_flags_and_q_only_errors(example_copy: Path,
                                                                        capsys: pytest.CaptureFixture[str]) -> None:
     results = interpret(example_copy)

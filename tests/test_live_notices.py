@@ -111,3 +111,53 @@ def test_a_flagged_reading_is_drawn_where_it_is_and_the_stage_lists_its_flags(ex
     assert panel.plots.flagged.data["text"][0].startswith("isolated spike (Hampel filter)")
     assert f"{len(s.flags)} flag(s) on this stage" in panel.info.value
     assert all(f.split(":")[0] in panel.info.value for f in s.flags)  # listed in full, not folded
+
+
+def test_flags_are_placed_where_they_apply_on_the_curve(example_copy: Path) -> None:
+    """Each flag producer's own words give its place: lines, a displacement range, a failure point."""
+    import dataclasses
+
+    from kernels_helpers.views.live_plots import flag_places
+
+    wb = live_workbook(example_copy, author="T. Tester")
+    s = wb.controller.stage("BH03-D3")
+    rows = wb.controller.row_of_line("BH03-D3")
+    places = {text.split(":")[0]: (lo, hi) for lo, hi, text in flag_places(s, rows)}
+    x = s.reduced.curve["x_mm"].to_numpy()
+    first = float(x[s.reduced.curve["in_shear"].to_numpy()][0])
+    fast = next(f for f in s.flags if f.startswith("too fast"))
+    lo, hi = places["too fast for drained conditions"]  # the shearing up to failure, as the flag says
+    assert lo == first and abs(hi - float(fast.split(" mm (sheared")[0].rsplit(" ", 1)[1])) < 0.05
+    lo, hi = places["void ratio at critical state 0.613 differs from 0.748 of BH03-L3 (BH03 loose) by 0.135"]
+    assert (lo, hi) == (s.cs.x_from_mm, s.cs.x_to_mm)  # a critical-state flag: its window
+    line = 5 + 100  # line 105 of the file is row 100 (the first data row is on line 5)
+    worded = dataclasses.replace(s, flags=(
+        "transducer fault: the vertical gauge does not move: 0.1 um over 2.0 mm of shearing "
+        f"(lines {line}-{line + 1000})",
+        "normal load not constant: 51.0 N at line 205 against 50.0 N declared",
+        "stick-slip near the peak over 2.10-2.60 mm",
+        "3 isolated spike(s) in shear stress (Hampel filter) at line(s) 7, 9, 11: kept and shown",
+        "specimen height 10 mm is below 12.5 mm"))
+    got = flag_places(worded, rows)
+    assert [t.split(":")[0] for _, _, t in got] == ["transducer fault", "normal load not constant",
+                                                     "stick-slip near the peak over 2.10-2.60 mm"]
+    (a, b, _), (c, d, _), (e, f, _) = got
+    assert (a, b) == (x[100], x[1100])  # file lines to readings
+    assert c < x[200] < d and d - c < 0.2  # one line: a narrow band around its reading
+    assert (e, f) == (2.10, 2.60)
+    assert rows(4) is None and rows(5) == 0  # the header line is no reading
+    wb.select("BH03-D3")
+    shaded = wb.panel.plots.places.data
+    assert len(shaded["left"]) == 2 and all(t in s.flags for t in shaded["text"])
+
+
+def test_the_screen_says_when_it_is_ready_and_an_edit_before_then_is_applied(example_copy: Path) -> None:
+    from kernels_helpers.views.widgets import READY, STARTING
+
+    wb = live_workbook(example_copy, author="T. Tester")
+    assert "starting" in wb.ready_state.value and not wb.is_ready
+    assert STARTING.split(":")[0] in wb.ready_state.value
+    wb.select("BH03-D3").peak_x.value = 4.0  # before ready: applied and saved, never dropped
+    assert load_interpretation(wb.controller.path).decision("BH03-D3").peak.source == "manual"
+    wb.ready()
+    assert wb.is_ready and READY.split(":")[0] in wb.ready_state.value and "sb-ready" in wb.ready_state.value

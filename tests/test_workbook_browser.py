@@ -128,7 +128,8 @@ def open_and_run_all(page, url: str, plot_name: str = "live-tau") -> None:
 
 
 TAU_TITLE = "() => Bokeh.index.query_one(v => v.model.name === 'live-tau').model.title.text"
-FIT_TITLES = "() => Bokeh.index.query_one(v => v.model.name === 'live-envelope').model.center.filter(a => (a.name || '').startsWith('fit-')).map(a => a.text)"
+FIT_TITLES = ("() => Bokeh.index.query_one(v => v.model.name === 'live-envelope').model.center"
+              ".filter(a => (a.name || '').startsWith('fit-')).map(a => a.text)")
 
 
 def choose_stage(page, stage_id: str) -> None:

@@ -531,7 +531,8 @@ class LiveWorkbook:
         self.ready_state.value = f'<span class="sb-ready">{tables.esc(READY)}</span>'
         from IPython.display import Javascript, display
 
-        display(Javascript("const s = document.querySelector('.sb-screen'); if (s) s.scrollIntoView({block: 'start'});"))
+        display(Javascript("const s = document.querySelector('.sb-screen');\n"
+                           "if (s) s.scrollIntoView({block: 'start'});"))
 
     # --- edits -------------------------------------------------------------------------------------
 

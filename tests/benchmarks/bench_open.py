@@ -3,11 +3,12 @@
     .venv/bin/python tests/benchmarks/bench_open.py [--repeats 3]
 
 On a copy of the example project: ``shearbook open --no-browser`` starts JupyterLab (with fresh
-Jupyter configuration folders), Debian chromium opens the workbook it names at 1366 x 768, runs all cells, waits for the live screen's "ready", and
-drags the first stage's peak until the interpretation file holds the drag. Prints, per run and as a
-median: server start -> notebook shown (kernel idle), notebook shown -> ready, and the two totals to
-the first drag answered (saved). Also how many drags that took: more than one would mean an edit
-was lost. Not collected by pytest; the aim for "notebook shown -> first drag answered" is under 4 s.
+Jupyter configuration folders), Debian chromium opens the workbook it names at 1366 x 768, runs all
+cells, waits for the live screen's "ready", and drags the first stage's peak until the
+interpretation file holds the drag. Prints, per run and as a median: server start -> notebook shown
+(kernel idle), notebook shown -> ready, and the two totals to the first drag answered (saved). Also
+how many drags that took: more than one would mean an edit was lost. Not collected by pytest; the
+aim for "notebook shown -> first drag answered" is under 4 s.
 """
 
 from __future__ import annotations
