@@ -9,9 +9,11 @@ python3 -m venv .venv
 .venv/bin/python -m pip install --quiet --upgrade pip
 .venv/bin/python -m pip install --quiet -e '.[test]'
 
-if ! command -v chromium >/dev/null 2>&1; then
-  echo "tests/run.sh: installing Debian chromium for the browser tests"
-  if [ "$(id -u)" -eq 0 ]; then apt-get update -qq && apt-get install -y -qq chromium; else sudo apt-get update -qq && sudo apt-get install -y -qq chromium; fi
+# Debian chromium for the browser tests, poppler-utils (pdftotext, pdfinfo) to read the printed record back
+if ! command -v chromium >/dev/null 2>&1 || ! command -v pdftotext >/dev/null 2>&1; then
+  echo "tests/run.sh: installing Debian chromium and poppler-utils for the browser and print tests"
+  if [ "$(id -u)" -eq 0 ]; then apt-get update -qq && apt-get install -y -qq chromium poppler-utils
+  else sudo apt-get update -qq && sudo apt-get install -y -qq chromium poppler-utils; fi
 fi
 
 set +e

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import json
+import os
 import re
 import shutil
 from pathlib import Path
@@ -133,11 +134,14 @@ def _pdf_pages(pdf: Path) -> list[str]:
                            text=True, check=True).stdout for i in range(1, n + 1)]
 
 
-@pytest.mark.skipif(shutil.which("pdftotext") is None, reason="poppler-utils (pdftotext) not installed")
 @pytest.mark.parametrize("paper, size", [("a4", "595.92 x 842.88|594.96 x 841.92"), ("letter", "612 x 792")])
 def test_record_pdf_has_the_numbers_digest_and_every_stage_on_paper(example_copy: Path, artifacts: Path,
                                                                    paper: str, size: str) -> None:
     """Printed with Debian chromium; read back with pdftotext (poppler-utils)."""
+    if shutil.which("pdftotext") is None:  # in CI a missing tool fails, never skips (tests/run.sh installs it)
+        if os.environ.get("CI"):
+            pytest.fail("poppler-utils (pdftotext) is missing in CI: tests/run.sh installs it with apt-get")
+        pytest.skip("poppler-utils (pdftotext) not installed (tests/run.sh installs it)")
     import subprocess
 
     from kernels_helpers.cli import main

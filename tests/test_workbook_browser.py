@@ -129,7 +129,7 @@ def open_and_run_all(page, url: str, plot_name: str = "live-tau") -> None:
 
 TAU_TITLE = "() => Bokeh.index.query_one(v => v.model.name === 'live-tau').model.title.text"
 FIT_TITLES = ("() => Bokeh.index.query_one(v => v.model.name === 'live-envelope').model.center"
-              ".filter(a => (a.name || '').startsWith('fit-')).map(a => a.text)")
+              ".filter(a => (a.name || '').startsWith('fit-')).map(a => a.source.data.text[0])")
 
 
 def choose_stage(page, stage_id: str) -> None:

@@ -399,7 +399,7 @@ class EnvelopePlot:
         p.title.text_font_size = "11px"
         p.axis.axis_label_text_font_size = "10px"
         self.sources: dict[str, dict[str, ColumnDataSource]] = {}
-        self.labels: dict[str, Label] = {}
+        self.labels: dict[str, ColumnDataSource] = {}  # the fit in words, per kind
         self._drawn: dict[str, tuple[EnvelopeResult, float, bool]] = {}
         items = []
         present = {e.kind for e in results.envelopes}
@@ -420,13 +420,14 @@ class EnvelopePlot:
                                   y_offset=-4, text_color=colour))  # each point named by its stage
             out = p.scatter("x", "y", source=src["out"], size=9, fill_color=GREY, line_color="#6d747a", marker=marker,
                             alpha=0.8)
-            # the fit in words at the top left of the plot; a Label, not a Title: its text changes on every
-            # refit (and on every mouse move of a preview) without laying the whole screen out again
-            self.labels[kind] = Label(x=6, y=6 + 16 * len(self.labels), x_units="screen", y_units="screen",
-                                      text_baseline="top", text="", text_font_size="10.5px", text_color=colour,
-                                      text_font_style="bold", background_fill_color="white",
-                                      background_fill_alpha=0.85, name=f"fit-{kind}")
-            p.add_layout(self.labels[kind])
+            # the fit in words at the top left of the plot, from a one-row source: the preview rewrites its text
+            # in place (no change of a model property, so nothing goes to the kernel while dragging), and it is
+            # inside the plot (a title's change would lay the whole screen out again)
+            self.labels[kind] = ColumnDataSource({"x": [6], "y": [6 + 16 * len(self.labels)], "text": [""]})
+            p.add_layout(LabelSet(x="x", y="y", text="text", source=self.labels[kind], x_units="screen",
+                                  y_units="screen", text_baseline="top", text_font_size="10.5px", text_color=colour,
+                                  text_font_style="bold", background_fill_color="white", background_fill_alpha=0.85,
+                                  name=f"fit-{kind}"))
             items += [LegendItem(label=f"{name} (95 % band)", renderers=[pts, line, band]),
                       LegendItem(label=f"{name}: preview while dragging", renderers=[preview]),
                       LegendItem(label=f"{name}: excluded", renderers=[out]),
@@ -460,7 +461,7 @@ class EnvelopePlot:
             if env is None:  # e.g. no residual in this group
                 for name in ("in", "out", "line", "curve", "preview"):
                     _set(src[name], {c: [] for c in src[name].data})
-                self.labels[kind].text = ""
+                _set(self.labels[kind], {"text": [""]})
                 continue
             out = {s.stage_id: p for s in members
                    if not s.included and (p := s.strength(kind)) is not None and p.tau_kpa is not None}
@@ -469,7 +470,7 @@ class EnvelopePlot:
             _set(src["out"], {"x": [p.sigma_kpa * k for p in out.values()], "y": [p.tau_kpa * k for p in out.values()],
                               "stage": list(out)})
             _set(src["preview"], {"x": [], "y": []})  # the kernel's refit replaces any preview
-            self.labels[kind].text = fit_words(env, self.u)
+            _set(self.labels[kind], {"text": [fit_words(env, self.u)]})
             drawn = (env, sigma_max, self.curved)
             if self._drawn.get(kind) != drawn:  # the band needs t quantiles: only when the fit changed
                 self._drawn[kind] = drawn
@@ -517,6 +518,12 @@ function point(kind) {
   for (let i = 0; i < cx.length; i++) { if (cx[i] >= lo && cx[i] <= hi) { n++; st += ctau[i]; ss += csig[i]; } }
   return n < 2 ? null : [ss / n, st / n];
 }
+// Write columns in place and redraw, as the drag tool itself does: no property changes, so jupyter_bokeh sends
+// nothing to the kernel on each mouse move (the kernel never needs a preview, and would queue them before the drop).
+function put(src, cols) {
+  for (const [k, v] of Object.entries(cols)) src.data[k] = v;
+  src.change.emit();
+}
 function fit(xs, ys, origin) {
   const n = xs.length;
   if (origin) {
@@ -542,18 +549,17 @@ for (const [kind, pts, prev, label, origin, words] of [
   const line = moved === null || at < 0 || origin === null ? null : (sx[at] = moved[0], sy[at] = moved[1],
                                                                      fit(sx, sy, origin));
   if (line === null) {
-    if (prev.data.x.length) prev.setv({data: {x: [], y: []}}, {sync: false});
-    if (label.text !== words) label.setv({text: words}, {sync: false});
+    if (prev.data.x.length) put(prev, {x: [], y: []});
+    if (label.data.text[0] !== words) put(label, {text: [words]});
     continue;
   }
   const [c, b] = line;
   const xmax = Math.max(1, ...sx) * 1.15;
-  prev.setv({data: {x: [0, xmax], y: [c, c + b * xmax]}}, {sync: false});  // the kernel never sees a preview
+  put(prev, {x: [0, xmax], y: [c, c + b * xmax]});
   const phi = Math.atan(b) * 180 / Math.PI;
   const name = kind === "peak" ? "peak" : "critical state";
   const cw = origin ? "c' = 0 (fixed)" : "c' " + c.toFixed(unit_digits) + " " + stress_unit;
-  label.setv({text: name + " preview (browser, release to refit): phi' " + phi.toFixed(1) + " deg, " + cw},
-             {sync: false});
+  put(label, {text: [name + " preview (browser, release to refit): phi' " + phi.toFixed(1) + " deg, " + cw]});
 }
 """
 
@@ -592,9 +598,8 @@ class LivePlots:
 
         def chosen(kind: str) -> tuple[bool | None, str]:
             env = next((e for e in results.envelopes if e.group == self.envelope.group and e.kind == kind), None)
-            if env is None or env.chosen is None:
-                return None, self.envelope.labels[kind].text
-            return env.chosen.through_origin, self.envelope.labels[kind].text
+            words = self.envelope.labels[kind].data["text"][0]
+            return (None if env is None or env.chosen is None else env.chosen.through_origin), words
 
         (po, pw), (co, cw) = chosen("peak"), chosen("critical_state")
         _set(self.state, {"stage": [s.stage_id], "peak_x": [s.peak.x_mm * k], "cs_from": [s.cs.x_from_mm * k],

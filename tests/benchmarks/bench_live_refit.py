@@ -90,7 +90,7 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
     sid = results.stages[0].stage_id  # the stage the live screen opens on
     # the fits in words over the envelope plot (a preview while dragging, the kernel's refit after)
     titles = ("() => Bokeh.index.query_one(v => v.model.name === 'live-envelope').model.center"
-              ".filter(a => (a.name || '').startsWith('fit-')).map(a => a.text).join('|')")
+              ".filter(a => (a.name || '').startsWith('fit-')).map(a => a.source.data.text[0]).join('|')")
     listen = """() => document.addEventListener('pointerup', () => { window.__sb_up = performance.now(); }, true)"""
     refitted = f"""([before]) => {{ const now = ({titles})();
       if (now === before || now.includes('preview')) return false;
