@@ -13,6 +13,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import ipywidgets as W
+from IPython import get_ipython
 from IPython.display import display
 
 from ..interpretation import utc_now
@@ -40,7 +41,10 @@ class RecordPart:
         self.stamp = W.HTML(WAITING)
         self.stamp.add_class("sb-record-stamp")
         self.widget = W.HBox([self.button, self.stamp], layout=W.Layout(align_items="center", flex_flow="row wrap"))
-        defer_sections(self.add)
+        # only in a kernel (a notebook): a script or a test that makes a live screen keeps showing sections at once
+        self.active = get_ipython() is not None
+        if self.active:
+            defer_sections(self.add)
 
     def add(self, job: Job) -> None:
         """A record cell's section: a placeholder shown in that cell, filled by :meth:`compute`."""
@@ -62,7 +66,8 @@ class RecordPart:
                 with out:
                     job(results, interpretation)  # type: ignore[arg-type]
         finally:
-            defer_sections(self.add)
+            if self.active:
+                defer_sections(self.add)
         self.computed_revision = interpretation.revision  # type: ignore[attr-defined]
         self.stamp.value = (f'<small class="sb-info">record part computed {tables.esc(utc_now())} from revision '
                             f"{self.computed_revision} of the interpretation file (the live screen's state).</small>")

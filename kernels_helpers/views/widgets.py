@@ -591,8 +591,7 @@ class LiveWorkbook:
         self.live_plots.record_state(shown, results)
         if self.panel.sid in changed:
             self.panel.update(shown)
-        if hasattr(self, "bokeh"):
-            self.bokeh.flush()  # the plots reach the page before the tables and texts below
+        self.bokeh.flush()  # the plots reach the page before the tables and texts below
         self.stage_table.update(results)  # flags comparing stages may change on other rows
         zero = self.controller.interpretation.settings.fit.cohesion == "zero"
         choices = self._choices(results)
@@ -608,10 +607,8 @@ class LiveWorkbook:
         self.last_changes = fit_changes(self._previous, results) if self._previous is not None else []
         self._previous = results
         self.notices.value = notices_html(self.last_changes, standing_notices(results), self.u)
-        if hasattr(self, "signoff"):
-            self.signoff.update()
-        if hasattr(self, "record_part"):
-            self.record_part.mark_stale(self.controller.interpretation.revision)
+        self.signoff.update()
+        self.record_part.mark_stale(self.controller.interpretation.revision)
 
 
 def notices_html(changes: list[str], standing: list[str], u: Display = SI) -> str:
