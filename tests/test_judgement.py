@@ -217,8 +217,8 @@ def test_the_engineer_puts_it_back_with_a_reason_shown_in_the_diff(tmp_path: Pat
 
 
 def test_the_workbook_puts_a_critical_state_back_and_saves_who_and_why(tmp_path: Path) -> None:
+    from kernels_helpers.controller import Controller
     from kernels_helpers.interpretation import load_interpretation
-    from kernels_helpers.views.interactive import Controller
 
     live = Controller(_with_one_unreached(tmp_path), author="A. Engineer")
     assert live.stage("S2").critical_state_left_out is not None

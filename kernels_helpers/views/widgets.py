@@ -19,13 +19,13 @@ import ipywidgets as W
 from bokeh.protocol import Protocol
 from jupyter_bokeh.widgets import BokehModel
 
+from ..controller import Controller
 from ..display_units import SI, Display, display_for
 from ..escaping import dom_key
 from ..interpretation import utc_now
 from ..notices import fit_changes, standing_notices
 from ..results import Results, StageResult
 from . import tables
-from .interactive import Controller
 from .live_plots import EnvelopePlot, LivePlots, StagePlots, marker_data, residual_data, window_data
 from .record_part import RecordPart
 
