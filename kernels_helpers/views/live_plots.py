@@ -459,7 +459,7 @@ class EnvelopePlot:
             src = self.sources[kind]
             env = next((e for e in results.envelopes if e.group == self.group and e.kind == kind), None)
             if env is None:  # e.g. no residual in this group
-                for name in ("in", "out", "line", "curve", "preview"):
+                for name in ("in", "out", "line", "curve"):  # the preview is the page's own (PREVIEW_JS)
                     _set(src[name], {c: [] for c in src[name].data})
                 _set(self.labels[kind], {"text": [""]})
                 continue
@@ -469,7 +469,6 @@ class EnvelopePlot:
                              "stage": list(env.stage_ids)})
             _set(src["out"], {"x": [p.sigma_kpa * k for p in out.values()], "y": [p.tau_kpa * k for p in out.values()],
                               "stage": list(out)})
-            _set(src["preview"], {"x": [], "y": []})  # the kernel's refit replaces any preview
             _set(self.labels[kind], {"text": [fit_words(env, self.u)]})
             drawn = (env, sigma_max, self.curved)
             if self._drawn.get(kind) != drawn:  # the band needs t quantiles: only when the fit changed

@@ -368,8 +368,13 @@ class StageTable:
                 if not s.included:
                     r["reason"].value = s.exclusion_reason
                 r["note"].value = s.note
-                r["show"].button_style = "info" if s.stage_id == self.wb.panel.sid else ""
         self.wb.guard.run(write)
+        self.mark_shown(self.wb.panel.sid)
+
+    def mark_shown(self, stage_id: str) -> None:
+        """Highlight the button of the stage on the screen."""
+        for sid, r in self.rows.items():
+            r["show"].button_style = "info" if sid == stage_id else ""
 
 
 # The live screen fits the width it is given: text wraps, grid cells may shrink below their content's width.
@@ -513,7 +518,7 @@ class LiveWorkbook:
         self.guard.run(write)
         self.envelope_plot.show(self.controller.results, group)
         self.live_plots.record_state(s, self.controller.results)
-        self.stage_table.update(self.controller.results)
+        self.stage_table.mark_shown(stage_id)
         return self.panel
 
     def step(self, by: int) -> None:
@@ -556,9 +561,8 @@ class LiveWorkbook:
         elif c.message:
             self.status.value = f'<span class="sb-flag">{tables.esc(self.u.annotate(c.message))}</span>'
         self.last_message, c.message = c.message, ""
-        if not ok and redraw:
+        if not ok and redraw:  # the marker goes back where the kernel has it (which also clears the preview)
             self.panel.update(c.stage(self.panel.sid))
-            self.live_plots.record_state(c.stage(self.panel.sid), c.results)
         return ok
 
     def on_reload(self) -> None:
