@@ -28,7 +28,7 @@ from .errors import ShearbookError
 from .interpretation import INTERPRETATION_FILE, Interpretation, check_stage_ids, load_interpretation
 from .passes import end_of_pass_window
 from .picks import at_point
-from .pipeline import analyse_stage, assemble_results, read_all, stage_units
+from .pipeline import analyse_stage, assemble_results, provenance, read_all, stage_units
 from .project import load_project
 from .readings import sha256_of
 from .results import Results, StageResult
@@ -68,6 +68,7 @@ class Controller:
         self.history: list[Interpretation] = []
         self.last_refresh_s = 0.0  # time of the last edit: analysis + refit + save + redraw
         self._listeners: list[Listener] = []
+        self._early: list[Listener] = []  # shown before the save (the plots), see :meth:`show_before_save`
         self.readings = read_all(self.project)
         units = stage_units(self.project, self.readings)
         self._units = {spec.id: (spec, part, continued) for spec, part, continued in units}
@@ -109,6 +110,16 @@ class Controller:
     def subscribe(self, listener: Listener) -> None:
         """Call ``listener(results, changed_stage_ids)`` after every edit that changed something."""
         self._listeners.append(listener)
+
+    def show_before_save(self, listener: Listener) -> None:
+        """Call ``listener(results, changed_stage_ids)`` with an edit's results before its save.
+
+        The plots can then reach the page while the file is written. When the save is refused, the
+        listener is called again with the results as they stand (what the file holds); after a save
+        that took other writers' decisions in, again with the results of the merged file. Listeners
+        given to :meth:`subscribe` are called only after a save succeeded.
+        """
+        self._early.append(listener)
 
     def residual_pick(self, stage_id: str) -> tuple[int, float, float] | None:
         """The residual window in use (pass number, from mm, to mm); None for a stage that is not a reversal test.
@@ -296,9 +307,12 @@ class Controller:
             fresh = {sid: self._analyse(sid, new) for sid in changed}
         except ValueError as exc:  # e.g. a window holding too few readings: nothing is saved
             return self._refuse(f"refused: {exc}")
+        shown = self._assemble(new, {**self._analysed, **fresh})
+        self._show_early(new, shown, changed)  # the plots go to the page while the file is written
         # every edit is a change of what this screen last read or saved: that is the base of the save
         saved = self._save(dataclasses.replace(new, revision=old.revision, loaded=old.loaded), message)
         if saved is None:
+            self._tell(self._early, self.results, changed)  # back to what the file holds
             return False
         new = saved.interpretation
         also = self._merged_stages(saved.merged) - changed
@@ -310,12 +324,29 @@ class Controller:
             self.history.append(self.interpretation)
         self.interpretation = new
         self._analysed.update(fresh)
-        self.results = self._assemble(new)
+        if saved.merged:
+            self.results = self._assemble(new)
+            self._tell(self._early, self.results, changed)
+        else:  # the same decisions: only the saved file's hash in the provenance is new
+            self.results = dataclasses.replace(shown, provenance=provenance(self.project, self.readings, new))
         self.message = message
-        for listener in self._listeners:
-            listener(self.results, frozenset(changed))
+        self._tell(self._listeners, self.results, changed)
         self.last_refresh_s = time.perf_counter() - start
         return True
+
+    def _show_early(self, interp: Interpretation, results: Results, changed: set[str]) -> None:
+        """Call the listeners shown before a save, with the controller reading as the edit will leave it."""
+        before = self.interpretation, self.results
+        self.interpretation, self.results = interp, results
+        try:
+            self._tell(self._early, results, changed)
+        finally:
+            self.interpretation, self.results = before
+
+    @staticmethod
+    def _tell(listeners: list[Listener], results: Results, changed: set[str]) -> None:
+        for listener in listeners:
+            listener(results, frozenset(changed))
 
     def _save(self, new: Interpretation, message: str) -> Saved | None:
         """Save against the revision this screen read; on a clash keep the edit unsaved and say so."""
@@ -355,8 +386,7 @@ class Controller:
         lost, self.unsaved = self.unsaved, ""
         lost_text = f"; your edit (\"{lost}\") was not saved: make it again if it still applies" if lost else ""
         self.message = f"reloaded {self.path.name} (revision {fresh.revision}){lost_text}"
-        for listener in self._listeners:
-            listener(self.results, frozenset(self._units))
+        self._tell(self._listeners, self.results, set(self._units))
         return True
 
     def _hashes(self, new: Interpretation, changed: set[str]) -> dict[str, str]:
@@ -402,5 +432,7 @@ class Controller:
                              self._origin[stage_id], known.reduced if same and known else None,
                              saved_files=interp.raw_files, consolidation=self._consolidation[stage_id])
 
-    def _assemble(self, interp: Interpretation) -> Results:
-        return assemble_results(self.project, self.readings, interp, tuple(self._analysed.values()))
+    def _assemble(self, interp: Interpretation, analysed: dict[str, StageResult] | None = None) -> Results:
+        """Results of ``interp`` from the stages analysed (those of this screen unless given), in project order."""
+        stages = analysed if analysed is not None else self._analysed
+        return assemble_results(self.project, self.readings, interp, tuple(stages[sid] for sid in self._units))

@@ -258,3 +258,36 @@ def test_a_clash_with_another_writer_is_shown_and_reload_brings_the_file_in(wb: 
     assert not wb.controller.interpretation.decision(STAGE).included
     assert wb.stage_table.rows[STAGE]["include"].value is False  # the table shows the file as it is now
     _matches_interpret(wb)
+
+
+def test_the_refit_is_drawn_before_the_save_and_taken_back_when_the_save_is_refused(wb: LiveWorkbook) -> None:
+    """The plots of an edit go to the page while the file is written; a refused save draws the file's state again."""
+    from kernels_helpers.interpretation import load_interpretation
+    from kernels_helpers.revisions import save_checked
+
+    path = wb.controller.path
+    seen: list[tuple[bytes, float, str]] = []  # what the file held and the plot showed each time the plots were sent
+    wb.bokeh.flush = lambda: seen.append((path.read_bytes(), wb.panel.plots.peak.data["x"][0],  # type: ignore
+                                          wb.envelope_plot.labels["peak"].data["text"][0]))
+    panel = wb.select(STAGE)
+    before, label_before = path.read_bytes(), wb.envelope_plot.labels["peak"].data["text"][0]
+    seen.clear()
+    _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})
+    moved = wb.controller.stage(STAGE).peak.x_mm
+    assert abs(moved - 4.0) < 0.01
+    assert seen[0][0] == before and seen[0][1] == moved  # drawn while the file still held the old pick
+    assert seen[0][2] != label_before and seen[0][2] == wb.envelope_plot.labels["peak"].data["text"][0]
+    assert _file(wb)["stages"][STAGE]["peak"]["source"] == "manual"  # and then saved
+    _matches_interpret(wb)
+    label_saved = wb.envelope_plot.labels["peak"].data["text"][0]
+
+    other = load_interpretation(path)  # another writer decides the same stage meanwhile: our next save is refused
+    save_checked(other.excluded(STAGE, "disturbed during trimming", "B. Checker"), path)
+    on_disk, seen[:] = path.read_bytes(), []
+    _from_page(wb, panel.plots.peak, {"x": [5.0], "y": [150.0]})
+    assert path.read_bytes() == on_disk and "not saved: " in wb.status.value
+    assert len(seen) >= 2 and abs(seen[0][1] - 5.0) < 0.01  # drawn first, then taken back
+    assert panel.plots.peak.data["x"] == [moved] and wb.controller.stage(STAGE).peak.x_mm == moved
+    assert seen[0][2] != label_saved  # the refused edit's refit was drawn ...
+    assert seen[-1][1:] == (moved, label_saved) == (panel.plots.peak.data["x"][0],  # ... and taken back
+                                                    wb.envelope_plot.labels["peak"].data["text"][0])

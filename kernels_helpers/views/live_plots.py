@@ -106,11 +106,11 @@ def flag_places(s: StageResult, row_of_line: RowOfLine | None = None) -> list[tu
     listed beside the stage only.
     """
     c = s.reduced.curve
-    shear = c[c["in_shear"].to_numpy()]
     x_all = c["x_mm"].to_numpy()
-    if shear.empty:
+    x_shear = x_all[c["in_shear"].to_numpy()]
+    if not x_shear.size:
         return []
-    x0, x1 = float(shear["x_mm"].iloc[0]), float(shear["x_mm"].iloc[-1])
+    x0, x1 = float(x_shear[0]), float(x_shear[-1])
     half = max((x1 - x0) * 0.004, 1e-3)  # a flag at one reading is drawn this wide each side
 
     def at_row(line: int) -> float | None:
@@ -225,6 +225,7 @@ class StagePlots:
         win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
         self.flagged = ColumnDataSource(_spike_data(s, u))
         self._flagged_for = s.reduced  # flags depend on the reduction only: redrawn when it changes, not per pick
+        self._placed_for: tuple[object, ...] = ()
         spikes = tau.scatter("x", "y", source=self.flagged, size=9, marker="x", line_color=FLAG, line_width=2)
         tau.add_tools(HoverTool(renderers=[spikes, shaded], tooltips=[("flag", "@text")]))
         mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
@@ -300,12 +301,16 @@ class StagePlots:
 
     def update(self, s: StageResult, residual: ResidualPick | None = None) -> None:
         """Draw stage ``s`` (only what differs is sent to the page); ``residual``: its residual window in use."""
-        if s.stage_id != self.stage_id or s.reduced is not self._flagged_for:
+        new_curve = s.stage_id != self.stage_id or s.reduced is not self._flagged_for
+        if new_curve:
             self.stage_id = s.stage_id
             self._flagged_for = s.reduced
             self.curve.data = _scaled(_curve_data(s), self.u)
             _set(self.flagged, _spike_data(s, self.u))
-        _set(self.places, _places_data(s, self.u, self.row_of_line))
+        placed = (s.flags, s.cs.x_from_mm, s.cs.x_to_mm)  # what the shaded places are read from, with the curve
+        if new_curve or placed != self._placed_for:
+            self._placed_for = placed
+            _set(self.places, _places_data(s, self.u, self.row_of_line))
         colour = INK if s.included else GREY
         for p in self.plots:
             p.renderers[0].glyph.line_color = colour
@@ -519,7 +524,13 @@ function point(kind) {
 }
 // Write columns in place and redraw, as the drag tool itself does: no property changes, so jupyter_bokeh sends
 // nothing to the kernel on each mouse move (the kernel never needs a preview, and would queue them before the drop).
+// Unchanged columns are not written: the release repeats the last move, and a redraw costs the page tens of ms.
 function put(src, cols) {
+  const same = Object.entries(cols).every(([k, v]) => {
+    const old = src.data[k];
+    return old !== undefined && old.length === v.length && v.every((e, i) => old[i] === e);
+  });
+  if (same) return;
   for (const [k, v] of Object.entries(cols)) src.data[k] = v;
   src.change.emit();
 }

@@ -9,6 +9,7 @@ return early when the incoming data is what the current pick already draws.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import json
 import math
 from collections.abc import Callable, Iterator
@@ -20,9 +21,9 @@ from bokeh.protocol import Protocol
 from jupyter_bokeh.widgets import BokehModel
 
 from ..controller import Controller
+from ..decisions import utc_now
 from ..display_units import SI, Display, display_for
 from ..escaping import dom_key
-from ..interpretation import utc_now
 from ..notices import fit_changes, standing_notices
 from ..results import Results, StageResult
 from . import tables
@@ -128,13 +129,16 @@ class StagePanel:
         return self.wb.u.canonical("length", float(shown))
 
     def on_peak_drag(self, attr: str, old: Any, new: Any) -> None:
-        if not new.get("x") or _same(new, marker_data(self.wb.controller.stage(self.sid), self.wb.u)):
+        if self.wb.guard.active or not new.get("x"):
+            return  # our own write
+        if _same(new, marker_data(self.wb.controller.stage(self.sid), self.wb.u)):
             return  # our own write coming back, or the second call of one change
         self.wb.act(lambda c: c.move_peak(self.sid, self.mm(new["x"][0])), redraw=True)
 
     def on_window_drag(self, attr: str, old: Any, new: Any) -> None:
         xs = list(new.get("x", []))
-        if len(xs) != 2 or _same(new, window_data(self.wb.controller.stage(self.sid), self.wb.u)):
+        if self.wb.guard.active or len(xs) != 2 or _same(new, window_data(self.wb.controller.stage(self.sid),
+                                                                           self.wb.u)):
             return
         self.wb.act(lambda c: c.set_window(self.sid, self.mm(min(xs)), self.mm(max(xs))), redraw=True)
 
@@ -151,7 +155,8 @@ class StagePanel:
         xs = list(new.get("x", []))
         c = self.wb.controller
         pick = c.residual_pick(self.sid)
-        if len(xs) != 2 or pick is None or _same(new, residual_data(c.stage(self.sid), pick, self.wb.u)):
+        if self.wb.guard.active or len(xs) != 2 or pick is None or _same(new, residual_data(c.stage(self.sid), pick,
+                                                                                           self.wb.u)):
             return  # our own write coming back, the second call of one change, or a stage without a residual
         self.wb.act(lambda c: c.set_residual(self.sid, pick[0], self.mm(min(xs)), self.mm(max(xs))), redraw=True)
 
@@ -480,6 +485,8 @@ class LiveWorkbook:
             self.record_part.widget,
         ], layout=W.Layout(width="100%", overflow="hidden"))
         self.screen.add_class("sb-screen")
+        self._plotted: Results | None = None  # the results the plots show
+        controller.show_before_save(self.show_plots)
         controller.subscribe(self.refresh)
         self.refresh(results, frozenset())
         self.ready_state.value = f'<span class="sb-starting">{tables.esc(STARTING)}</span>'
@@ -589,13 +596,28 @@ class LiveWorkbook:
         with self.bokeh.batch():
             self.envelope_plot.update(self.controller.results)
 
-    def refresh(self, results: Results, changed: frozenset[str]) -> None:
+    def show_plots(self, results: Results, changed: frozenset[str]) -> None:
+        """The envelope's new numbers first, then the stage's plots: sent to the page at once.
+
+        The controller calls this before it saves an edit (and again when the save is refused), so the
+        refit reaches the page while the file is written.
+        """
         shown = results.stage(self.panel.sid)
-        self.envelope_plot.update(results)  # the new numbers first, then the stage's plots, then the rest
-        self.live_plots.record_state(shown, results)
-        if self.panel.sid in changed:
-            self.panel.update(shown)
-        self.bokeh.flush()  # the plots reach the page before the tables and texts below
+
+        def draw() -> None:  # our own writes: the drag callbacks they trigger do nothing
+            self.envelope_plot.update(results)
+            self.live_plots.record_state(shown, results)
+            if self.panel.sid in changed:
+                self.panel.update(shown)
+        self.guard.run(draw)
+        self.bokeh.flush()
+        self._plotted = results
+
+    def refresh(self, results: Results, changed: frozenset[str]) -> None:
+        plotted = self._plotted
+        if plotted is None or any(getattr(results, f.name) is not getattr(plotted, f.name)
+                                  for f in dataclasses.fields(results) if f.name != "provenance"):
+            self.show_plots(results, changed)  # not shown before the save (a reload, the first view)
         self.stage_table.update(results)  # flags comparing stages may change on other rows
         zero = self.controller.interpretation.settings.fit.cohesion == "zero"
         choices = self._choices(results)
