@@ -14,10 +14,11 @@ from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from .errors import ShearbookError
-    from .interpretation import Interpretation, load_interpretation, save_interpretation
+    from .interpretation import Interpretation, load_interpretation
     from .pipeline import interpret
     from .project import Project, load_project
     from .results import Results
+    from .revisions import save_interpretation
 
 _EXPORTS = {
     "Interpretation": ".interpretation",
@@ -27,7 +28,7 @@ _EXPORTS = {
     "interpret": ".pipeline",
     "load_interpretation": ".interpretation",
     "load_project": ".project",
-    "save_interpretation": ".interpretation",
+    "save_interpretation": ".revisions",
 }
 
 __all__ = [

@@ -25,8 +25,8 @@ from typing import Any, Final
 import numpy as np
 import pandas as pd
 
+from .decisions import Interpretation
 from .errors import ProjectFileError, ShearbookError
-from .interpretation import Interpretation
 from .project import PROJECT_FILE, Project, SampleSpec, StageSpec
 from .results import EnvelopeResult, Results, StageResult
 

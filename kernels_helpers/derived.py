@@ -8,39 +8,33 @@ the envelopes are fitted and returns the extra fields of :class:`~kernels_helper
 from __future__ import annotations
 
 import dataclasses
-import math
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from .compare import SetComparison, compare_sets
 from .critical_state import CriticalStateLine, fit_critical_state_line
+from .decisions import DesignChoices
 from .design import (
-    DESIGN_CAUTION,
     PARTIAL_FACTOR_SETS,
     DesignValues,
-    RegressionCharacteristic,
-    TanPhiStatistics,
     design_values,
     regression_characteristic,
     tan_phi_statistics,
 )
 from .dilatancy import StageDilatancy, stage_dilatancy
 from .envelope import (
-    CurvatureComparison,
     LineFit,
-    PowerLawFit,
     compare_linear_curved,
     confidence_band,
     fit_power_law,
     prediction_band,
     secant_phi_deg,
 )
-from .interpretation import DesignChoices
-from .results import EnvelopeResult, StageResult
+from .results import DesignResult, EnvelopeBands, EnvelopeResult, EnvelopeStatistics, StageResult, plain
 
+# the records it fills (DesignResult, EnvelopeBands, EnvelopeStatistics) and plain() live in results.py
 __all__ = ["DesignResult", "EnvelopeBands", "EnvelopeStatistics", "derive", "plain"]
 
 PARAMETER_SET_NOTES = {
@@ -49,81 +43,6 @@ PARAMETER_SET_NOTES = {
     "critical_state": ("critical-state parameters: for large deformations, or where strain softening, progressive "
                        "failure or loosening of the ground can occur; the cautious choice when in doubt"),
 }
-
-
-def plain(obj: Any) -> Any:
-    """A dataclass (with its numeric properties) as JSON-ready data; NaN becomes None."""
-    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        out = {f.name: plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
-        for name in dir(type(obj)):
-            if isinstance(getattr(type(obj), name, None), property):
-                out[name.rstrip("_")] = plain(getattr(obj, name))
-        return out
-    if isinstance(obj, Mapping):
-        return {str(k): plain(v) for k, v in obj.items()}
-    if isinstance(obj, tuple | list | np.ndarray):
-        return [plain(v) for v in obj]
-    if isinstance(obj, float | np.floating):
-        return float(obj) if math.isfinite(obj) else None
-    if isinstance(obj, np.integer):
-        return int(obj)
-    return obj
-
-
-@dataclass(frozen=True)
-class EnvelopeBands:
-    """Two-sided bands of one fit on a grid of normal stress (kPa), at ``level``."""
-
-    fit: str  # "free" or "origin"
-    level: float
-    sigma_kpa: tuple[float, ...]
-    line_kpa: tuple[float, ...]
-    mean_lower_kpa: tuple[float, ...]
-    mean_upper_kpa: tuple[float, ...]
-    prediction_lower_kpa: tuple[float, ...]
-    prediction_upper_kpa: tuple[float, ...]
-
-
-@dataclass(frozen=True)
-class EnvelopeStatistics:
-    """Extra statistics of one envelope: secant angles, bands, the power law and the curvature check."""
-
-    group: str
-    kind: str
-    stage_ids: tuple[str, ...]
-    secant_phi_deg: tuple[float, ...]  # per stage, in the order of stage_ids
-    bands: tuple[EnvelopeBands, ...]
-    power: PowerLawFit | None
-    power_phi_secant_deg: tuple[float, ...]  # at each stage's normal stress
-    power_phi_tangent_deg: tuple[float, ...]
-    curvature: CurvatureComparison | None
-    power_not_fitted: str | None = None
-
-
-@dataclass(frozen=True)
-class DesignResult:
-    """Characteristic and design values under the engineer's :class:`DesignChoices`."""
-
-    choices: DesignChoices
-    group: str
-    kind: str
-    stress_range_kpa: tuple[float, float] | None
-    range_source: str
-    fit_used: str | None  # "free" or "origin"
-    characteristic: RegressionCharacteristic | None
-    c_k_kpa: float | None
-    tan_phi_k: float | None
-    method: str
-    tan_phi_statistics: TanPhiStatistics | None
-    design: tuple[DesignValues, ...]  # the chosen set first, then the Table A.4 sets not chosen
-    parameter_note: str
-    flags: tuple[str, ...]
-    not_derived: str | None = None
-    caution: str = DESIGN_CAUTION
-
-    @property
-    def phi_k_deg(self) -> float | None:
-        return None if self.tan_phi_k is None else math.degrees(math.atan(self.tan_phi_k))
 
 
 def _floats(values: Iterable[float]) -> tuple[float, ...]:

@@ -11,7 +11,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from .interpretation import Interpretation
+from .decisions import Interpretation
 from .pipeline import interpret
 from .project import Project
 from .results import Results, StageResult

@@ -26,8 +26,8 @@ from typing import Annotated, Any, Final, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator
 
-from .interpretation import SCHEMA as INTERPRETATION_SCHEMA
-from .interpretation import SCHEMA_VERSION, DesignChoices, Settings, SignOff, StageDecision
+from .decisions import SCHEMA as INTERPRETATION_SCHEMA
+from .decisions import SCHEMA_VERSION, DesignChoices, Settings, SignOff, StageDecision
 
 __all__ = ["Problem", "check_interpretation_data", "check_interpretation_text", "check_project_table", "json_schemas",
            "listing"]

@@ -11,24 +11,25 @@ import json
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import Any
+
+import numpy as np
 
 from .apparatus import Correction
+from .compare import SetComparison
 from .consolidation import ConsolidationResult, RateCheck, consolidation_dict
-from .envelope import LineFit
+from .critical_state import CriticalStateLine
+from .decisions import DesignChoices
+from .design import DESIGN_CAUTION, DesignValues, RegressionCharacteristic, TanPhiStatistics
+from .dilatancy import StageDilatancy
+from .envelope import CurvatureComparison, LineFit, PowerLawFit
 from .mime import INTERPRETATION_MIME, RESULTS_MIME  # noqa: F401  (re-exported)
 from .passes import PassStress, Residual
 from .picks import PointValues, WindowValues
 from .reduce import ReducedStage
 
-if TYPE_CHECKING:
-    from .compare import SetComparison
-    from .critical_state import CriticalStateLine
-    from .derived import DesignResult, EnvelopeStatistics
-    from .dilatancy import StageDilatancy
-    from .sensitivity import LeaveOneOut
-
-__all__ = ["EnvelopeResult", "Results", "StageResult"]
+__all__ = ["DesignResult", "EnvelopeBands", "EnvelopeResult", "EnvelopeStatistics", "LeaveOneOut", "Results",
+           "StageResult", "plain"]
 
 RESULTS_SCHEMA = "shearbook.results/1"
 
@@ -143,8 +144,6 @@ def _window(w: WindowValues) -> dict[str, Any]:
 
 def _derived_dict(r: Results) -> dict[str, Any]:
     """JSON form of the fields made by ``derived.py`` (documented in the contributor guide)."""
-    from .derived import plain  # derived.py imports this module
-
     return {
         "envelope_statistics": plain(r.envelope_statistics),
         "set_comparisons": plain(r.set_comparisons),
@@ -152,6 +151,102 @@ def _derived_dict(r: Results) -> dict[str, Any]:
         "dilatancy": plain(r.dilatancy),
         "design": plain(r.design),
     }
+
+
+def plain(obj: Any) -> Any:
+    """A dataclass (with its numeric properties) as JSON-ready data; NaN becomes None."""
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        out = {f.name: plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+        for name in dir(type(obj)):
+            if isinstance(getattr(type(obj), name, None), property):
+                out[name.rstrip("_")] = plain(getattr(obj, name))
+        return out
+    if isinstance(obj, Mapping):
+        return {str(k): plain(v) for k, v in obj.items()}
+    if isinstance(obj, tuple | list | np.ndarray):
+        return [plain(v) for v in obj]
+    if isinstance(obj, float | np.floating):
+        return float(obj) if math.isfinite(obj) else None
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
+@dataclass(frozen=True)
+class EnvelopeBands:
+    """Two-sided bands of one fit on a grid of normal stress (kPa), at ``level``."""
+
+    fit: str  # "free" or "origin"
+    level: float
+    sigma_kpa: tuple[float, ...]
+    line_kpa: tuple[float, ...]
+    mean_lower_kpa: tuple[float, ...]
+    mean_upper_kpa: tuple[float, ...]
+    prediction_lower_kpa: tuple[float, ...]
+    prediction_upper_kpa: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class EnvelopeStatistics:
+    """Extra statistics of one envelope: secant angles, bands, the power law and the curvature check."""
+
+    group: str
+    kind: str
+    stage_ids: tuple[str, ...]
+    secant_phi_deg: tuple[float, ...]  # per stage, in the order of stage_ids
+    bands: tuple[EnvelopeBands, ...]
+    power: PowerLawFit | None
+    power_phi_secant_deg: tuple[float, ...]  # at each stage's normal stress
+    power_phi_tangent_deg: tuple[float, ...]
+    curvature: CurvatureComparison | None
+    power_not_fitted: str | None = None
+
+
+@dataclass(frozen=True)
+class DesignResult:
+    """Characteristic and design values under the engineer's :class:`DesignChoices`."""
+
+    choices: DesignChoices
+    group: str
+    kind: str
+    stress_range_kpa: tuple[float, float] | None
+    range_source: str
+    fit_used: str | None  # "free" or "origin"
+    characteristic: RegressionCharacteristic | None
+    c_k_kpa: float | None
+    tan_phi_k: float | None
+    method: str
+    tan_phi_statistics: TanPhiStatistics | None
+    design: tuple[DesignValues, ...]  # the chosen set first, then the Table A.4 sets not chosen
+    parameter_note: str
+    flags: tuple[str, ...]
+    not_derived: str | None = None
+    caution: str = DESIGN_CAUTION
+
+    @property
+    def phi_k_deg(self) -> float | None:
+        return None if self.tan_phi_k is None else math.degrees(math.atan(self.tan_phi_k))
+
+
+@dataclass(frozen=True)
+class LeaveOneOut:
+    """The envelope of ``group``/``kind`` refitted without ``left_out`` (angles deg, c' kPa).
+
+    ``phi_deg``/``c_kpa`` are for c' free (``method`` says how they were found, or why there is
+    no value), ``phi_origin_deg`` for the through-origin fit; changes are against the full set.
+    """
+
+    group: str
+    kind: str
+    left_out: str
+    n_left: int
+    method: str
+    phi_deg: float | None
+    c_kpa: float | None
+    phi_change_deg: float | None
+    c_change_kpa: float | None
+    phi_origin_deg: float | None
+    phi_origin_change_deg: float | None
 
 
 @dataclass(frozen=True)

@@ -30,7 +30,7 @@ from .atomic import write_text_atomic
 from .errors import InterpretationFileError
 from .interpretation import Interpretation, StageDecision, from_dict, load_interpretation
 
-__all__ = ["ConcurrentEditError", "Saved", "lock_path", "save_checked"]
+__all__ = ["ConcurrentEditError", "Saved", "lock_path", "save_checked", "save_interpretation"]
 
 LOCK_TIMEOUT_S = 30.0
 
@@ -164,3 +164,13 @@ def save_checked(interpretation: Interpretation, path: str | Path, lock_timeout_
     finally:
         lock.release()
     return Saved(p, dataclasses.replace(new, loaded=new.to_dict()), merged)
+
+
+def save_interpretation(interpretation: Interpretation, path: str | Path) -> Path:
+    """Write the interpretation atomically, against the revision it was read at; the path written.
+
+    Refuses (:class:`ConcurrentEditError`) when another writer changed the same decisions since, and
+    never overwrites a file it cannot read. :func:`save_checked` also returns the interpretation as
+    written and what was merged from disk.
+    """
+    return save_checked(interpretation, path).path

@@ -7,33 +7,11 @@ the exact line through them (no statistics); through the origin one point is eno
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 from .envelope import fit_line, fit_through_origin
-from .results import EnvelopeResult
+from .results import EnvelopeResult, LeaveOneOut
 
-__all__ = ["LeaveOneOut", "leave_one_out"]
-
-
-@dataclass(frozen=True)
-class LeaveOneOut:
-    """The envelope of ``group``/``kind`` refitted without ``left_out`` (angles deg, c' kPa).
-
-    ``phi_deg``/``c_kpa`` are for c' free (``method`` says how they were found, or why there is
-    no value), ``phi_origin_deg`` for the through-origin fit; changes are against the full set.
-    """
-
-    group: str
-    kind: str
-    left_out: str
-    n_left: int
-    method: str
-    phi_deg: float | None
-    c_kpa: float | None
-    phi_change_deg: float | None
-    c_change_kpa: float | None
-    phi_origin_deg: float | None
-    phi_origin_change_deg: float | None
+__all__ = ["LeaveOneOut", "leave_one_out"]  # LeaveOneOut: a record of results.py
 
 
 def _free(sigma: list[float], tau: list[float], level: float) -> tuple[str, float | None, float | None]:

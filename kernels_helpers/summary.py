@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
+from .decisions import SignOff
 from .display_units import SI, Display
-from .interpretation import SignOff
 from .results import Results
 
 __all__ = ["summary_text"]

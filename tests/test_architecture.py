@@ -137,3 +137,60 @@ def test_ast_check_sees_imports(tmp_path: Path) -> None:
         encoding="utf-8",
     )
     assert _imported_roots(sample) >= {"bokeh", "ipywidgets", "nbconvert", "nbclient"}
+
+
+def _import_graph(package_dir: Path, modules: list[str]) -> dict[str, set[str]]:
+    """Module -> the package's modules it imports: every relative or absolute import, at the top, inside
+    functions or under ``TYPE_CHECKING`` (a cycle hidden inside a function is still a cycle)."""
+    graph: dict[str, set[str]] = {}
+    for module in modules:
+        tree = ast.parse((package_dir / f"{module}.py").read_text(encoding="utf-8"))
+        names = _relative_imports(package_dir / f"{module}.py")
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom) and node.level == 0 and (node.module or "").startswith(
+                    f"{package_dir.name}."):
+                names.add(node.module.split(".")[1])  # type: ignore[union-attr]
+        graph[module] = {n for n in names if n in modules and n != module}
+    return graph
+
+
+def _cycles(graph: dict[str, set[str]]) -> list[list[str]]:
+    """Each import cycle once, as the modules along it (depth-first search over the graph)."""
+    found: list[list[str]] = []
+    state: dict[str, int] = {}  # 1: on the current path, 2: finished
+    path: list[str] = []
+
+    def visit(m: str) -> None:
+        state[m] = 1
+        path.append(m)
+        for n in sorted(graph[m]):
+            if state.get(n) == 1:
+                found.append(path[path.index(n):] + [n])
+            elif n not in state:
+                visit(n)
+        path.pop()
+        state[m] = 2
+
+    for m in sorted(graph):
+        if m not in state:
+            visit(m)
+    return found
+
+
+def test_the_pure_core_s_import_graph_has_no_cycle() -> None:
+    """Data flows one way: a module never imports, even lazily, a module that imports it back."""
+    cycles = _cycles(_import_graph(PACKAGE_DIR, ["__init__", *PURE_MODULES]))
+    assert not cycles, "import cycles in the pure core: " + "; ".join(" -> ".join(c) for c in cycles)
+
+
+def test_the_cycle_check_finds_a_cycle_hidden_in_a_function(tmp_path: Path) -> None:
+    pkg = tmp_path / "kernels_helpers"
+    pkg.mkdir()
+    (pkg / "a.py").write_text("from .b import x\n", encoding="utf-8")
+    (pkg / "b.py").write_text("def f():\n    from .c import y\n", encoding="utf-8")
+    (pkg / "c.py").write_text("from typing import TYPE_CHECKING\nif TYPE_CHECKING:\n"
+                              "    from kernels_helpers.a import z\n", encoding="utf-8")
+    (pkg / "d.py").write_text("from . import a\n", encoding="utf-8")
+    graph = _import_graph(pkg, ["a", "b", "c", "d"])
+    assert graph == {"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}
+    assert _cycles(graph) == [["a", "b", "c", "a"]]

@@ -15,7 +15,8 @@ from kernels_helpers.design import PARTIAL_FACTOR_SETS, regression_characteristi
 from kernels_helpers.dilatancy import bolton_index
 from kernels_helpers.envelope import confidence_band, prediction_band
 from kernels_helpers.errors import InterpretationFileError, ProjectFileError
-from kernels_helpers.interpretation import DesignChoices, from_dict, load_interpretation, save_interpretation
+from kernels_helpers.interpretation import DesignChoices, from_dict, load_interpretation
+from kernels_helpers.revisions import save_interpretation
 
 REPO = Path(__file__).resolve().parents[1]
 EXAMPLE = REPO / "example_project"

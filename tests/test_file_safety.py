@@ -27,9 +27,9 @@ from kernels_helpers.cli import main
 from kernels_helpers.controller import Controller
 from kernels_helpers.errors import InterpretationFileError, ProjectFileError, ShearbookError
 from kernels_helpers.file_models import json_schemas
-from kernels_helpers.interpretation import Interpretation, StageDecision, load_interpretation, save_interpretation
+from kernels_helpers.interpretation import Interpretation, StageDecision, load_interpretation
 from kernels_helpers.project import load_project
-from kernels_helpers.revisions import ConcurrentEditError, save_checked
+from kernels_helpers.revisions import ConcurrentEditError, save_checked, save_interpretation
 
 REPO = Path(__file__).resolve().parents[1]
 EXAMPLE = REPO / "example_project"

@@ -21,10 +21,10 @@ from kernels_helpers.interpretation import (
     StageDecision,
     WindowChoice,
     load_interpretation,
-    save_interpretation,
 )
 from kernels_helpers.picks import PickSettings
 from kernels_helpers.reduce import ReductionSettings
+from kernels_helpers.revisions import save_interpretation
 
 
 def _full() -> Interpretation:

@@ -10,9 +10,9 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
+from ..decisions import Interpretation
 from ..display_units import SI, Display
 from ..escaping import css_string
-from ..interpretation import Interpretation
 from ..results import EnvelopeResult, Results
 from ..signatures import Check
 from .tables import CAUTION, SIGNOFF_STATES, esc, num, table

@@ -16,7 +16,7 @@ import ipywidgets as W
 from IPython import get_ipython
 from IPython.display import display
 
-from ..interpretation import utc_now
+from ..decisions import utc_now
 from . import tables
 from .sections import Job, defer_sections
 

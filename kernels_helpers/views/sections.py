@@ -23,8 +23,8 @@ from bokeh.model.util import collect_models
 from bokeh.models import ColumnDataSource
 from IPython.display import HTML, display
 
+from ..decisions import Interpretation
 from ..display_units import SI, Display, display_for
-from ..interpretation import Interpretation
 from ..mime import digest_of
 from ..project import Project
 from ..results import Results

@@ -11,8 +11,8 @@ import math
 from collections.abc import Iterable, Sequence
 from typing import Any
 
+from ..decisions import SignOff
 from ..display_units import SI, Display
-from ..interpretation import SignOff
 from ..project import Project
 from ..results import EnvelopeResult, Results, StageResult
 from ..signatures import Check

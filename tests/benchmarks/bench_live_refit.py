@@ -24,8 +24,8 @@ sys.path.insert(0, str(HERE.parent))  # tests/: synthetic.py, the model curves t
 
 from synthetic import benchmark_project  # noqa: E402
 
-from kernels_helpers.interpretation import save_interpretation  # noqa: E402
 from kernels_helpers.pipeline import analyse_stage, assemble_results  # noqa: E402
+from kernels_helpers.revisions import save_interpretation  # noqa: E402
 from kernels_helpers.views.widgets import live_workbook  # noqa: E402
 
 CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run", "--disable-background-networking",
