@@ -63,7 +63,7 @@ def _direction(x: np.ndarray) -> np.ndarray:
     for i in range(len(sign)):  # a reading that does not move keeps the direction before it
         if sign[i] == 0:
             sign[i] = sign[i - 1] if i else 1.0
-    return sign
+    return np.asarray(sign, dtype=float)
 
 
 def apply_corrections(spec: StageSpec, table: pd.DataFrame) -> tuple[pd.DataFrame, tuple[str, ...]]:

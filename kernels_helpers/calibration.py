@@ -31,14 +31,14 @@ def evaluate(cal: CalibrationSpec, x: np.ndarray) -> np.ndarray:
     if cal.kind == "linear":
         return cal.offset + cal.factor * x
     if cal.kind == "polynomial":
-        return np.polynomial.polynomial.polyval(x, np.asarray(cal.coefficients, dtype=float))
+        return np.asarray(np.polynomial.polynomial.polyval(x, np.asarray(cal.coefficients, dtype=float)), dtype=float)
     xs, ys = np.asarray(cal.inputs, dtype=float), np.asarray(cal.values, dtype=float)
     inside = PchipInterpolator(xs, ys, extrapolate=False)
     out = inside(np.clip(x, xs[0], xs[-1]))
     slope_lo = (ys[1] - ys[0]) / (xs[1] - xs[0])  # beyond the table: the straight line of its end segment
     slope_hi = (ys[-1] - ys[-2]) / (xs[-1] - xs[-2])
     out = np.where(x < xs[0], ys[0] + slope_lo * (x - xs[0]), out)
-    return np.where(x > xs[-1], ys[-1] + slope_hi * (x - xs[-1]), out)
+    return np.asarray(np.where(x > xs[-1], ys[-1] + slope_hi * (x - xs[-1]), out), dtype=float)
 
 
 def outside_range(cal: CalibrationSpec, x: np.ndarray) -> np.ndarray:

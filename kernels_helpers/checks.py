@@ -20,6 +20,7 @@ doubtful stage is still shown. Rules and tolerances (also in the contributor gui
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Final
 
 import numpy as np
@@ -27,6 +28,8 @@ from scipy.ndimage import median_filter
 
 from .project import StageSpec
 from .settings import PickSettings
+
+LineOf = Callable[[int], int]  # a row of the readings -> its line in the file
 
 __all__ = ["hampel_spikes", "normal_load_flags", "phase_flags", "size_flags", "spike_flags"]
 
@@ -71,7 +74,7 @@ def hampel_spikes(values: np.ndarray, half_window: int = HAMPEL_HALF_WINDOW, thr
     return spike, med
 
 
-def spike_flags(spike: np.ndarray, line_of, quantity: str) -> list[str]:
+def spike_flags(spike: np.ndarray, line_of: LineOf, quantity: str) -> list[str]:
     """A flag naming the lines of the spikes found in one series (none when there are none)."""
     rows = np.flatnonzero(spike)
     if not rows.size:
@@ -120,7 +123,7 @@ def phase_flags(spec: StageSpec, e_initial: float, e_start: float, e_min: float)
     return out
 
 
-def normal_load_flags(spec: StageSpec, force_n: np.ndarray | None, in_shear: np.ndarray, line_of,
+def normal_load_flags(spec: StageSpec, force_n: np.ndarray | None, in_shear: np.ndarray, line_of: LineOf,
                       tolerance: float = NORMAL_TOLERANCE) -> list[str]:
     """Normal force read during shear against the load declared in the project file."""
     if force_n is None:
@@ -149,7 +152,7 @@ DEPENDS_ON = {
 }
 
 
-def transducer_flags(channels: dict[str, np.ndarray], line_of, travel_mm: float,
+def transducer_flags(channels: dict[str, np.ndarray], line_of: LineOf, travel_mm: float,
                      settings: PickSettings | None = None) -> tuple[list[str], list[str]]:
     """Flags for channels that are stuck, that jump by a step which stays, or (vertical) do not move,
     over the shearing readings; and what the faults make unreliable (common practice; thresholds in
@@ -189,7 +192,7 @@ def _final_run(v: np.ndarray) -> int:
     return int(v.size - (differs[-1] + 1)) if differs.size else int(v.size)
 
 
-def _jump(name: str, v: np.ndarray, line_of, p: PickSettings) -> str | None:
+def _jump(name: str, v: np.ndarray, line_of: LineOf, p: PickSettings) -> str | None:
     d = np.diff(v)
     scale = 1.4826 * float(np.median(np.abs(d - np.median(d)))) + 1e-12
     big = np.flatnonzero((np.abs(d - np.median(d)) > p.jump_robust_sd * scale)

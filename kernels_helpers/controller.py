@@ -416,7 +416,8 @@ class Controller:
     def _pass_rows(self, stage_id: str, pass_no: int) -> pd.DataFrame:
         """The shearing readings of one pass (those a residual window averages over)."""
         c = self._analysed[stage_id].reduced.curve
-        return c[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == pass_no)]
+        rows: pd.DataFrame = c.loc[c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == pass_no)]
+        return rows
 
     def _snap_on_pass(self, stage_id: str, pass_no: int, x_mm: float) -> float:
         """The displacement of the reading of pass ``pass_no`` nearest ``x_mm``."""

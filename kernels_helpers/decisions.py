@@ -64,7 +64,7 @@ class SignOffStep(TypedDict):
 
 # a TypedDict body takes no assignment: the strict file config (unknown keys are errors) is set on each afterwards
 for _typed in (SignOffStep, StepSignature, Digests):
-    _typed.__pydantic_config__ = STRICT_FILE  # type: ignore[attr-defined]
+    setattr(_typed, "__pydantic_config__", STRICT_FILE)  # noqa: B010 (a TypedDict declares no such attribute)
 
 
 def utc_now() -> str:

@@ -89,7 +89,8 @@ def set_comparisons(envelopes: Iterable[EnvelopeResult], stages: Sequence[StageR
             xs, ys = sets.setdefault(test_set[sid], ([], []))
             xs.append(x)
             ys.append(y)
-        level = (env.free or env.origin).level if (env.free or env.origin) else 0.95
+        fitted = env.free or env.origin
+        level = fitted.level if fitted is not None else 0.95
         out.append(dataclasses.replace(compare_sets(sets, through_origin, level), group=env.group, kind=env.kind))
     return tuple(out)
 
@@ -138,9 +139,10 @@ def design_result(envelopes: Sequence[EnvelopeResult], stages: Sequence[StageRes
     kind = choices.parameter_set
     group = choices.group or _default_group(envelopes, kind)
     note = PARAMETER_SET_NOTES[kind] + (f"; engineer's note: {choices.note}" if choices.note else "")
-    empty = {"stress_range_kpa": stress_range_kpa, "range_source": "", "fit_used": None, "characteristic": None,
-             "c_k_kpa": None, "tan_phi_k": None, "method": "", "tan_phi_statistics": None, "design": (),
-             "parameter_note": note, "flags": ()}
+    empty: dict[str, Any] = {
+        "stress_range_kpa": stress_range_kpa, "range_source": "", "fit_used": None, "characteristic": None,
+        "c_k_kpa": None, "tan_phi_k": None, "method": "", "tan_phi_statistics": None, "design": (),
+        "parameter_note": note, "flags": ()}
     env = next((e for e in envelopes if e.group == group and e.kind == kind), None)
     if env is None or env.chosen is None:
         missing = f"no {kind.replace('_', '-')} envelope of group {group!r}"

@@ -136,7 +136,7 @@ def tan_phi_statistics(tan_phi: Sequence[float], limit_state: LimitState,
         raise ValueError(f"statistics on tan phi' need at least 3 values, got {n}")
     m, s = float(x.mean()), float(x.std(ddof=1))
     known = v_known is not None
-    v = float(v_known) if known else s / m
+    v = float(v_known) if v_known is not None else s / m
     if limit_state == "local":
         kn, source, target = *kn_fractile(n, known), "5 % fractile"
     else:

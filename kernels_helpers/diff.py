@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from .decisions import Interpretation
+from .passes import Residual
 from .pipeline import interpret
 from .project import Project
 from .results import Results, StageResult
@@ -91,7 +92,7 @@ def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> lis
     return lines
 
 
-def _residual(r) -> str:
+def _residual(r: Residual | None) -> str:
     if r is None:
         return "none"
     if r.tau_kpa is None:
@@ -174,8 +175,8 @@ def diff_interpretations(project: Project, before: Interpretation, after: Interp
     settings = [f"{k}: {fa.get(k)!r} -> {fb.get(k)!r}" for k in sorted(set(fa) | set(fb)) if fa.get(k) != fb.get(k)]
     signoff = []
     if before.signoff.state != after.signoff.state:
-        last = after.signoff.history[-1] if after.signoff.history else {}
-        who = f" by {last.get('who')} at {last.get('time_utc')}" if last else ""
+        last = after.signoff.history[-1] if after.signoff.history else None
+        who = f" by {last['who']} at {last['time_utc']}" if last else ""
         signoff.append(f"{before.signoff.state} -> {after.signoff.state}{who}")
     return InterpretationDiff(tuple(stages), tuple(settings), tuple(signoff), tuple(_envelope_lines(ra, rb)),
                               tuple(_design_lines(before, after, ra, rb)))

@@ -386,7 +386,8 @@ def check_project_table(raw: Mapping[str, Any], file: str) -> list[Problem]:
     try:
         _PROJECT.validate_python(raw)
     except ValidationError as exc:
-        stages = raw.get("stage") if isinstance(raw.get("stage"), list) else []
+        listed = raw.get("stage")
+        stages: list[Any] = listed if isinstance(listed, list) else []
         names = {i: (f'stage {json.dumps(t["id"], ensure_ascii=False)}' if isinstance(t, Mapping)
                      and isinstance(t.get("id"), str) and t["id"].strip() else f"stage {i + 1}")
                  for i, t in enumerate(stages)}

@@ -126,7 +126,7 @@ def _sense(table: Path, row: _Row, key: str, default: str | None, readings: Path
     return sense
 
 
-def _explicit(row: _Row, options: ImportOptions) -> tuple[dict, dict, str]:
+def _explicit(row: _Row, options: ImportOptions) -> tuple[dict[str, str], dict[str, str], str]:
     cols = dict(options.columns or {})
     units = dict(options.units or {})
     unknown = sorted(set(cols) - set(QUANTITY_OF) | set(units) - set(QUANTITY_OF))

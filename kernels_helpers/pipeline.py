@@ -17,7 +17,7 @@ from typing import Literal, TypeVar
 
 import numpy as np
 
-from .apparatus import correction_flags, corrections_at
+from .apparatus import Correction, correction_flags, corrections_at
 from .derived import derive
 from .envelope import fit_line, fit_through_origin
 from .errors import InterpretationFileError
@@ -32,14 +32,15 @@ from .interpretation import (
 )
 from .multistage import expand_multistage
 from .outliers import envelope_outliers
-from .passes import pass_stresses, residual_over_window, residual_strength
-from .picks import at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
+from .passes import PassStress, Residual, pass_stresses, residual_over_window, residual_strength
+from .picks import PointValues, WindowValues, at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
 from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage, sha256_of
 from .reduce import ReducedStage, reduce_stage, settlement_of
 from .results import EnvelopeResult, Results, StageResult
 from .sensitivity import leave_one_out
-from .stage_checks import Consolidation, check_stage, consolidation_of
+from .settings import PickSettings
+from .stage_checks import Consolidation, StageChecks, check_stage, consolidation_of
 
 __all__ = ["analyse_stage", "assemble_results", "fit_envelopes", "interpret", "pair_flags", "provenance",
            "raw_file_hashes", "read_all", "stage_units"]
@@ -101,84 +102,24 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
     (the live workbook: a pick does not change the reduction); computed here otherwise.
     ``consolidation``: the stage's consolidation readings and analysis (:func:`consolidation_of`) when
     the caller already has them (None: the stage has none); "read": read and analysed here.
+
+    The steps, in the order the data needs them: the consolidation stage (:func:`_consolidation`),
+    the reduction from the height at the start of shearing it gives, the suggestions
+    (:func:`_suggestions`), the picks in use (:func:`_picks`), the residual of a reversal test
+    (:func:`_residual`), the checks and their flags (:func:`_checks`), the stale-file flags
+    (:func:`_stale_flags`).
     """
-    # in the order the data needs: the consolidation stage first, then the reduction from the height at the
-    # start of shearing it gives, then suggestions and checks
-    if consolidation == "read":
-        consolidation = consolidation_of(spec)
-    final = consolidation.result.final_settlement_mm if consolidation is not None else None
-    compliance = _compliance_of_settlement(spec, final)  # (taken out, as measured) or None
-    if compliance is not None and final is not None:
-        final = final - compliance[0]
+    consolidation, final, compliance = _consolidation(spec, consolidation)
     if reduced is None:
         reduced = reduce_stage(spec, readings, settings.reduction, origin_mm,
                                settlement_of(spec.specimen.consolidation_settlement_mm, final))
-    cs_from, cs_to = suggest_critical_state(reduced, settings.picks)
-    cs_suggested = over_window(reduced, cs_from, cs_to, settings.picks)
-    choice = decision.critical_state
-    if choice.source == "manual":
-        assert choice.x_from_mm is not None and choice.x_to_mm is not None
-        _on_curve(reduced, spec, "critical-state window", choice.x_from_mm, choice.x_to_mm)
-        cs = _manual(spec, "critical-state window",
-                     lambda: over_window(reduced, choice.x_from_mm, choice.x_to_mm, settings.picks))
-    else:
-        cs = cs_suggested
-    x_peak, no_peak = suggest_peak(reduced, cs_suggested, settings.picks)
-    if no_peak is None and x_peak >= cs_suggested.x_from_mm:  # the record stops a short way past the peak
-        x_end = cs_suggested.x_to_mm
-        cs_suggested = dataclasses.replace(cs_suggested, flags=(*cs_suggested.flags, (
-            f"critical state not reached: the record ends {x_end - x_peak:.2f} mm after the peak at {x_peak:.2f} mm, "
-            f"inside the last {settings.picks.cs_window_mm:g} mm taken for critical state")))
-        if choice.source != "manual":
-            cs = cs_suggested
-    peak_suggested = at_point(reduced, x_peak)
-    if decision.peak.source == "manual":
-        assert decision.peak.x_mm is not None
-        _on_curve(reduced, spec, "peak", decision.peak.x_mm)
-        peak = at_point(reduced, decision.peak.x_mm)
-        no_peak = None  # the engineer picked a peak on purpose
-    else:
-        peak = peak_suggested
-    stale = saved_sha256 is not None and saved_sha256 != readings.sha256
-    cons = spec.consolidation
-    saved_cons = (saved_files or {}).get(cons.relpath) if cons is not None else None
-    cons_now = sha256_of(cons.file) if saved_cons is not None and cons is not None and cons.file.is_file() else None
-    cons_stale = saved_cons is not None and saved_cons != cons_now
-    flags = list(cs.flags)
-    if no_peak is None:
-        flags.extend(peak_flags(reduced, peak, settings.picks))
-    # specimen, spike, normal-load, consolidation and drained-rate checks (stage_checks.py)
-    checks = check_stage(spec, readings, reduced, peak.x_mm if no_peak is None else cs.x_from_mm,
-                         settings.rate.time_to_failure, consolidation, settings.picks)
-    flags.extend(checks.flags)
-    corrections = corrections_at(spec, readings.table, peak.index if no_peak is None else _row_at(reduced, cs.x_to_mm),
-                                 compliance) if spec.apparatus is not None else ()
-    flags.extend(correction_flags(corrections))
-    passes, residual, residual_suggested = (), None, None
-    if spec.test_type == "reversal":
-        c = reduced.curve[reduced.curve["in_shear"]]
-        passes = pass_stresses(c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(),
-                               c["pass_no"].to_numpy())
-        residual_suggested = residual = residual_strength(passes, settings.picks.residual_tolerance)
-        choice_r = decision.residual
-        if choice_r.source == "manual":
-            assert choice_r.pass_no is not None and choice_r.x_from_mm is not None and choice_r.x_to_mm is not None
-            residual = _manual(spec, "residual window", lambda: residual_over_window(
-                c["x_mm"].to_numpy(), c["tau_kpa"].to_numpy(), c["sigma_kpa"].to_numpy(), c["pass_no"].to_numpy(),
-                choice_r.pass_no, choice_r.x_from_mm, choice_r.x_to_mm, choice_r.note))
-        elif not residual.reached:
-            flags.append(residual.message)
-    if stale:
-        manual = [k for k, c in (("peak", decision.peak), ("critical state", choice)) if c.source == "manual"]
-        flags.append(
-            f"raw file {spec.relpath} changed since the interpretation was saved (SHA-256 {saved_sha256[:12]}... "
-            f"now {readings.sha256[:12]}...): review the {' and '.join(manual) or 'suggested'} pick(s) of this stage"
-        )
-    if cons_stale and cons is not None:
-        now = f"now {cons_now[:12]}..." if cons_now else "now missing"
-        flags.append(f"raw file {cons.relpath} (consolidation stage) changed since the interpretation was saved "
-                     f"(SHA-256 {saved_cons[:12]}... {now}): review the rate check and the picks of this stage")
-        stale = True
+    suggested = _suggestions(reduced, settings.picks)
+    picks = _picks(spec, reduced, decision, settings.picks, suggested)
+    residual = _residual(spec, reduced, decision, settings.picks)
+    checks, corrections, flags = _checks(spec, readings, reduced, picks, settings, consolidation, compliance)
+    if residual.flag:
+        flags.append(residual.flag)
+    stale_flags, stale = _stale_flags(spec, readings, decision, saved_sha256, saved_files)
     return StageResult(
         stage_id=spec.id,
         test_set=spec.test_set,
@@ -193,25 +134,161 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         critical_state_reason=decision.critical_state_reason,
         note=decision.note,
         peak_source=decision.peak.source,
-        peak_suggested=peak_suggested,
-        peak=peak,
+        peak_suggested=picks.peak_suggested,
+        peak=picks.peak,
         peak_note=decision.peak.note,
-        no_distinct_peak=no_peak,
-        cs_source=choice.source,
-        cs_suggested=cs_suggested,
-        cs=cs,
-        cs_note=choice.note,
-        flags=tuple(flags),
+        no_distinct_peak=picks.no_peak,
+        cs_source=decision.critical_state.source,
+        cs_suggested=picks.cs_suggested,
+        cs=picks.cs,
+        cs_note=decision.critical_state.note,
+        flags=(*flags, *stale_flags),
         stale=stale,
-        passes=passes,
-        residual=residual,
-        residual_suggested=residual_suggested,
+        passes=residual.passes,
+        residual=residual.residual,
+        residual_suggested=residual.suggested,
         residual_source=decision.residual.source,
         consolidation=checks.consolidation,
         rate=checks.rate,
         unreliable=checks.unreliable,
         corrections=corrections,
     )
+
+
+def _consolidation(spec: StageSpec, consolidation: Consolidation | Literal["read"] | None
+                   ) -> tuple[Consolidation | None, float | None, tuple[float, float] | None]:
+    """The consolidation stage: its readings and analysis, the settlement it gives (apparatus compliance taken
+    out) and the compliance taken out ((taken out, as measured), or None)."""
+    if consolidation == "read":
+        consolidation = consolidation_of(spec)
+    final = consolidation.result.final_settlement_mm if consolidation is not None else None
+    compliance = _compliance_of_settlement(spec, final)
+    if compliance is not None and final is not None:
+        final = final - compliance[0]
+    return consolidation, final, compliance
+
+
+@dataclasses.dataclass(frozen=True)
+class _Suggested:
+    """What the rules suggest: the critical-state window's values, the peak's place, or why there is no peak."""
+
+    cs: WindowValues
+    x_peak_mm: float
+    no_peak: str | None
+
+
+def _suggestions(reduced: ReducedStage, p: PickSettings) -> _Suggested:
+    """The suggested critical-state window, then the peak before it (the record may stop a short way past it)."""
+    cs_from, cs_to = suggest_critical_state(reduced, p)
+    cs = over_window(reduced, cs_from, cs_to, p)
+    x_peak, no_peak = suggest_peak(reduced, cs, p)
+    if no_peak is None and x_peak >= cs.x_from_mm:
+        cs = dataclasses.replace(cs, flags=(*cs.flags, (
+            f"critical state not reached: the record ends {cs.x_to_mm - x_peak:.2f} mm after the peak at "
+            f"{x_peak:.2f} mm, inside the last {p.cs_window_mm:g} mm taken for critical state")))
+    return _Suggested(cs, x_peak, no_peak)
+
+
+@dataclasses.dataclass(frozen=True)
+class _Picks:
+    """The picks in use (the engineer's where manual, else the suggestions) beside the suggestions."""
+
+    peak_suggested: PointValues
+    peak: PointValues
+    no_peak: str | None  # why the curve has no distinct peak (None: it has one, or the engineer picked one)
+    cs_suggested: WindowValues
+    cs: WindowValues
+
+
+def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: PickSettings,
+           suggested: _Suggested) -> _Picks:
+    """The peak and critical-state window in use; a manual pick must lie on the curve."""
+    cs, peak, no_peak = suggested.cs, at_point(reduced, suggested.x_peak_mm), suggested.no_peak
+    window = decision.critical_state
+    if window.source == "manual":
+        assert window.x_from_mm is not None and window.x_to_mm is not None  # WindowChoice checks it
+        lo, hi = window.x_from_mm, window.x_to_mm
+        _on_curve(reduced, spec, "critical-state window", lo, hi)
+        cs = _manual(spec, "critical-state window", lambda: over_window(reduced, lo, hi, p))
+    chosen = decision.peak
+    peak_in_use = peak
+    if chosen.source == "manual":
+        assert chosen.x_mm is not None  # PeakChoice checks it
+        _on_curve(reduced, spec, "peak", chosen.x_mm)
+        peak_in_use, no_peak = at_point(reduced, chosen.x_mm), None  # the engineer picked a peak on purpose
+    return _Picks(peak, peak_in_use, no_peak, suggested.cs, cs)
+
+
+@dataclasses.dataclass(frozen=True)
+class _ResidualStep:
+    """A reversal test's passes and residual strengths; the flag when the suggested residual is not reached."""
+
+    passes: tuple[PassStress, ...] = ()
+    residual: Residual | None = None
+    suggested: Residual | None = None
+    flag: str | None = None
+
+
+def _residual(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: PickSettings) -> _ResidualStep:
+    """Stress at the end of every pass, the rule's residual, and the manual residual window if one is chosen."""
+    if spec.test_type != "reversal":
+        return _ResidualStep()
+    c = reduced.curve[reduced.curve["in_shear"].to_numpy()]
+    x, tau, sigma, labels = (c[k].to_numpy() for k in ("x_mm", "tau_kpa", "sigma_kpa", "pass_no"))
+    passes = pass_stresses(x, tau, sigma, labels)
+    suggested = residual_strength(passes, p.residual_tolerance)
+    r = decision.residual
+    if r.source == "manual":
+        assert r.pass_no is not None and r.x_from_mm is not None and r.x_to_mm is not None  # ResidualChoice checks it
+        pass_no, lo, hi = r.pass_no, r.x_from_mm, r.x_to_mm
+        manual = _manual(spec, "residual window",
+                         lambda: residual_over_window(x, tau, sigma, labels, pass_no, lo, hi, r.note))
+        return _ResidualStep(passes, manual, suggested)
+    return _ResidualStep(passes, suggested, suggested, None if suggested.reached else suggested.message)
+
+
+def _checks(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, picks: _Picks, settings: Settings,
+            consolidation: Consolidation | None, compliance: tuple[float, float] | None
+            ) -> tuple[StageChecks, tuple[Correction, ...], list[str]]:
+    """The flags of the picks, of the specimen, spike, normal-load, consolidation and drained-rate checks
+    (stage_checks.py) and of the apparatus corrections, in that order."""
+    cs, peak, distinct = picks.cs, picks.peak, picks.no_peak is None
+    flags = list(cs.flags)
+    if distinct:
+        flags.extend(peak_flags(reduced, peak, settings.picks))
+    checks = check_stage(spec, readings, reduced, peak.x_mm if distinct else cs.x_from_mm,
+                         settings.rate.time_to_failure, consolidation, settings.picks)
+    flags.extend(checks.flags)
+    corrections: tuple[Correction, ...] = ()
+    if spec.apparatus is not None:
+        corrections = corrections_at(spec, readings.table, peak.index if distinct else _row_at(reduced, cs.x_to_mm),
+                                     compliance)
+    flags.extend(correction_flags(corrections))
+    return checks, corrections, flags
+
+
+def _stale_flags(spec: StageSpec, readings: StageReadings, decision: StageDecision, saved_sha256: str | None,
+                 saved_files: Mapping[str, str] | None) -> tuple[list[str], bool]:
+    """Flags for a raw file (shearing or consolidation readings) changed since the interpretation was saved."""
+    flags: list[str] = []
+    stale = saved_sha256 is not None and saved_sha256 != readings.sha256
+    if saved_sha256 is not None and stale:
+        manual = [k for k, c in (("peak", decision.peak), ("critical state", decision.critical_state))
+                  if c.source == "manual"]
+        flags.append(
+            f"raw file {spec.relpath} changed since the interpretation was saved (SHA-256 {saved_sha256[:12]}... "
+            f"now {readings.sha256[:12]}...): review the {' and '.join(manual) or 'suggested'} pick(s) of this stage"
+        )
+    cons = spec.consolidation
+    saved_cons = (saved_files or {}).get(cons.relpath) if cons is not None else None
+    if cons is not None and saved_cons is not None:
+        cons_now = sha256_of(cons.file) if cons.file.is_file() else None
+        if saved_cons != cons_now:
+            now = f"now {cons_now[:12]}..." if cons_now else "now missing"
+            flags.append(f"raw file {cons.relpath} (consolidation stage) changed since the interpretation was saved "
+                         f"(SHA-256 {saved_cons[:12]}... {now}): review the rate check and the picks of this stage")
+            stale = True
+    return flags, stale
 
 
 def _row_at(reduced: ReducedStage, x_mm: float) -> int:
@@ -282,17 +359,22 @@ def _groups(stages: Iterable[StageResult]) -> dict[str, list[StageResult]]:
     return out
 
 
+def _stresses(s: StageResult, kind: str) -> tuple[float, float]:
+    """(sigma', tau) of a stage's pick of one kind, for a stage that the envelope of that kind takes."""
+    p = s.strength(kind)
+    assert p is not None and p.sigma_kpa is not None and p.tau_kpa is not None, (s.stage_id, kind)
+    return p.sigma_kpa, p.tau_kpa
+
+
 def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSettings) -> EnvelopeResult:
     if kind == "residual":
         used = [s for s in members if s.included and s.residual is not None and s.residual.reached]
-        sigma = tuple(float(s.residual.sigma_kpa) for s in used)  # type: ignore[union-attr, arg-type]
-        tau = tuple(float(s.residual.tau_kpa) for s in used)  # type: ignore[union-attr, arg-type]
     else:
         used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)
                 and (kind != "critical_state" or s.critical_state_left_out is None)]
-        points = [s.strength(kind) for s in used]
-        sigma = tuple(p.sigma_kpa for p in points)
-        tau = tuple(p.tau_kpa for p in points)
+    pairs = [_stresses(s, kind) for s in used]
+    sigma = tuple(float(x) for x, _ in pairs)
+    tau = tuple(float(y) for _, y in pairs)
     ids = tuple(s.stage_id for s in used)
     free = fit_line(sigma, tau, fit.level) if len(used) >= 3 and len(set(sigma)) > 1 else None
     origin = fit_through_origin(sigma, tau, fit.level) if len(used) >= 2 else None
@@ -324,7 +406,7 @@ def outlier_flags(stages: tuple[StageResult, ...], envelopes: Iterable[EnvelopeR
 
 def fit_envelopes(stages: Iterable[StageResult], fit: FitSettings) -> tuple[EnvelopeResult, ...]:
     """Peak and critical-state envelopes for every group of stages (and residual for reversal tests)."""
-    out = []
+    out: list[EnvelopeResult] = []
     for group, members in _groups(list(stages)).items():
         kinds = ["peak", "critical_state"] + (["residual"] if any(s.residual is not None for s in members) else [])
         out.extend(_envelope(group, kind, members, fit) for kind in kinds)

@@ -262,13 +262,14 @@ class _Fields:
 
 
 def _specimen(t: _Fields) -> Specimen:
-    shape = t.text("shape")
-    if shape == "square":
-        width = t.number("side_mm")
-    elif shape == "circular":
-        width = t.number("diameter_mm")
+    shape: Shape
+    given = t.text("shape")
+    if given == "square":
+        shape, width = "square", t.number("side_mm")
+    elif given == "circular":
+        shape, width = "circular", t.number("diameter_mm")
     else:
-        raise ProjectFileError(f"{t.where}: shape must be \"square\" or \"circular\", not {shape!r}.")
+        raise ProjectFileError(f"{t.where}: shape must be \"square\" or \"circular\", not {given!r}.")
     return Specimen(
         shape=shape,
         width_mm=width,

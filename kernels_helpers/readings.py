@@ -13,7 +13,7 @@ from __future__ import annotations
 import hashlib
 import io
 import re
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import ReadingsError
-from .project import ColumnSpec, CsvFormat, StageSpec
+from .project import CalibrationSpec, ColumnSpec, CsvFormat, StageSpec
 
 __all__ = ["StageReadings", "read_consolidation", "read_stage", "read_table", "sha256_of"]
 
@@ -116,12 +116,13 @@ def _header_line_fast(data: bytes, header_row: int) -> tuple[int, int] | None:
 def _read_csv(path: Path, fmt: CsvFormat, source: bytes | str, usecols: list[str] | None,
               as_text: bool) -> pd.DataFrame:
     buffer = io.StringIO(source) if isinstance(source, str) else io.BytesIO(source)
-    options: dict[str, object] = {"dtype": str, "keep_default_na": False} if as_text else {}
     try:
-        return pd.read_csv(
+        frame: pd.DataFrame = pd.read_csv(
             buffer, sep=fmt.delimiter, decimal=fmt.decimal, skiprows=fmt.header_row, header=0, skipinitialspace=True,
-            usecols=usecols, encoding=None if isinstance(source, str) else fmt.encoding, **options,
+            usecols=usecols, encoding=None if isinstance(source, str) else fmt.encoding,
+            dtype=str if as_text else None, keep_default_na=not as_text,
         )
+        return frame
     except (pd.errors.ParserError, pd.errors.EmptyDataError, ValueError) as exc:
         if isinstance(exc, UnicodeDecodeError):
             raise
@@ -273,7 +274,7 @@ def _values(path: Path, fmt: CsvFormat, data: bytes, columns: Mapping[str, Colum
             _decode(path, fmt, data)  # raises with the byte position
             raise
         except (pd.errors.ParserError, pd.errors.EmptyDataError, LookupError):
-            frame = None  # the slow path below says what is wrong
+            frame = None  # type: ignore[assignment]  # the slow path below says what is wrong
         if frame is not None:
             values = {q: frame[c.column].to_numpy() for q, c in columns.items()}
             if all(v.dtype.kind in "fiu" for v in values.values()):
@@ -294,7 +295,8 @@ def _values(path: Path, fmt: CsvFormat, data: bytes, columns: Mapping[str, Colum
     return values, (lines[0] if lines else header_line + 1), np.asarray(lines, dtype=np.int64), notes
 
 
-def _time_order(path: Path, fmt: CsvFormat, column: str, time_s: np.ndarray, line) -> tuple[str, ...]:
+def _time_order(path: Path, fmt: CsvFormat, column: str, time_s: np.ndarray,
+                line: Callable[[int], int]) -> tuple[str, ...]:
     bad = np.flatnonzero(np.diff(time_s) <= 0)
     if not bad.size:
         return ()
@@ -359,7 +361,7 @@ def read_table(path: Path, relpath: str, label: str, fmt: CsvFormat, columns: Ma
     return readings if not notes else StageReadings(**{**readings.__dict__, "notes": notes})
 
 
-def _first_line(values: np.ndarray, cal, first: int, lines) -> int:
+def _first_line(values: np.ndarray, cal: CalibrationSpec, first: int, lines: np.ndarray | list[int] | None) -> int:
     from .calibration import outside_range
 
     i = int(np.flatnonzero(outside_range(cal, values))[0])

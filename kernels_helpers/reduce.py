@@ -47,9 +47,9 @@ def corrected_area_mm2(shape: str, width_mm: float, d_mm: np.ndarray | float) ->
     if np.any(d >= width_mm):
         raise ValueError(f"displacement reaches the box width ({width_mm} mm): no contact area left")
     if shape == "square":
-        return width_mm * (width_mm - d)
+        return np.asarray(width_mm * (width_mm - d), dtype=float)
     r = d / width_mm
-    return width_mm**2 / 2.0 * (np.arccos(r) - r * np.sqrt(1.0 - r**2))
+    return np.asarray(width_mm**2 / 2.0 * (np.arccos(r) - r * np.sqrt(1.0 - r**2)), dtype=float)
 
 
 def height_of_solids_mm(specimen: Specimen) -> float:
@@ -115,7 +115,7 @@ def smooth_on_x(x_mm: np.ndarray, v: np.ndarray, window_mm: float, deriv: int = 
     grid = np.arange(xs[0], xs[-1] + step / 2, step)
     vg = np.interp(grid, xs, vs)
     out = savgol_filter(vg, window_length=51, polyorder=2, deriv=deriv, delta=step, mode="interp")
-    return np.interp(x_mm, grid, out)
+    return np.asarray(np.interp(x_mm, grid, out), dtype=float)
 
 
 @dataclass(frozen=True)
@@ -163,7 +163,8 @@ class ReducedStage:
         keep = c["in_shear"].to_numpy() & (c["pass_no"].to_numpy() == 1)
         if "spike" in c:
             keep &= ~c["spike"].to_numpy(dtype=bool)
-        return c[keep]
+        rows: pd.DataFrame = c.loc[keep]
+        return rows
 
 
 def height_mm(reduced: ReducedStage, specimen: Specimen) -> np.ndarray:
@@ -260,8 +261,9 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
     pass_no = label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64)
     for p in np.unique(pass_no):
         # one pass from the start of shear to the end (every test but reversals): a slice, no copies
-        sel = slice(start, None) if stage.test_type != "reversal" else in_shear & (pass_no == p)
-        if p > 1 and (not np.any(sel) or np.ptp(x[sel]) < 2 * settings.smoothing_window_mm):
+        sel: slice | np.ndarray = slice(start, None) if stage.test_type != "reversal" else in_shear & (pass_no == p)
+        if p > 1 and isinstance(sel, np.ndarray) and (not sel.any()
+                                                     or np.ptp(x[sel]) < 2 * settings.smoothing_window_mm):
             continue  # a short return pass: no rate of dilation, readings kept
         try:
             dydx[sel] = dilation_rate(x[sel], y_clean[sel], settings.smoothing_window_mm)
@@ -296,10 +298,10 @@ def _sparse_rate(x: np.ndarray, y: np.ndarray, start: int) -> np.ndarray:
     return out
 
 
-def _reduced(stage: StageSpec, readings: StageReadings, x: np.ndarray, y: np.ndarray, area, tau: np.ndarray,
+def _reduced(stage: StageSpec, readings: StageReadings, x: np.ndarray, y: np.ndarray, area: np.ndarray, tau: np.ndarray,
              sigma: np.ndarray, force: np.ndarray, normal: float, e: np.ndarray, in_shear: np.ndarray, shift: float,
              start: int, settled_mm: float, source: str, h_start: float, dydx: np.ndarray, tau_smooth: np.ndarray,
-             spike: np.ndarray, area_convention: str, pass_no: np.ndarray | None = None,
+             spike: np.ndarray, area_convention: AreaConvention, pass_no: np.ndarray | None = None,
              sparse: bool = False) -> ReducedStage:
     t, spec = readings.table, stage.specimen
     hs = height_of_solids_mm(spec)

@@ -86,7 +86,13 @@ class StageResult:
 
     def strength(self, kind: str) -> PointValues | WindowValues | Residual | None:
         """The pick of one kind ("peak", "critical_state", "residual"): its sigma_kpa and tau_kpa."""
-        return {"peak": self.peak, "critical_state": self.cs, "residual": self.residual}[kind]
+        if kind == "peak":
+            return self.peak
+        if kind == "critical_state":
+            return self.cs
+        if kind == "residual":
+            return self.residual
+        raise KeyError(kind)
 
     def in_group(self, group: str) -> bool:
         """Whether the stage belongs to envelope group ``group``: its test set, or its stratum pooled."""

@@ -54,10 +54,10 @@ def summary_text(results: Results, u: Display = SI, signoff: SignOff | None = No
             out.append(f"{name}: not fitted ({e.not_fitted})")
             continue
         lo, hi = fit.phi_interval_deg
-        c = "c' = 0 (through origin)" if fit.through_origin else f"c' {u.text('stress', fit.intercept, 1)}"
+        cohesion = "c' = 0 (through origin)" if fit.through_origin else f"c' {u.text('stress', fit.intercept, 1)}"
         if fit.negative_cohesion:
-            c += " (negative: consider c' = 0)"
-        out.append(f"{name}: phi' {fit.phi_deg:.1f} deg [{lo:.1f}, {hi:.1f}], {c}, n {fit.n}"
+            cohesion += " (negative: consider c' = 0)"
+        out.append(f"{name}: phi' {fit.phi_deg:.1f} deg [{lo:.1f}, {hi:.1f}], {cohesion}, n {fit.n}"
                    + (f" ({e.not_fitted})" if e.not_fitted else ""))
     if signoff is not None:
         out.append("")

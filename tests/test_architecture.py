@@ -165,7 +165,7 @@ def _cycles(graph: dict[str, set[str]]) -> list[list[str]]:
         path.append(m)
         for n in sorted(graph[m]):
             if state.get(n) == 1:
-                found.append(path[path.index(n):] + [n])
+                found.append([*path[path.index(n):], n])
             elif n not in state:
                 visit(n)
         path.pop()
