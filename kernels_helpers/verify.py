@@ -306,8 +306,9 @@ def _on_dask(tasks: list[Task], scheduler: str | None, workers: int | None,
                 raise RecordError(f"--scheduler {scheduler}: no dask scheduler answered ({exc}). Check the address "
                                   "(tcp://HOST:PORT) and that the scheduler is running.") from None
         else:
+            # the scheduler's HTTP server on a free port (its default, 8787, may be taken by another cluster)
             cluster = stack.enter_context(LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                                       dashboard_address=None, silence_logs=logging.ERROR))
+                                                       dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR))
             client = stack.enter_context(Client(cluster))
         futures = {client.submit(_verify_one, t, pure=False): t for t in tasks}
         for fut in as_completed(futures):

@@ -17,7 +17,8 @@ if ! command -v chromium >/dev/null 2>&1 || ! command -v pdftotext >/dev/null 2>
 fi
 
 set +e
-.venv/bin/python -m pytest "$@"
+# one worker per core (pytest-xdist); a worker that runs dry takes tests from the other's queue
+.venv/bin/python -m pytest -n auto --dist worksteal "$@"
 rc=$?
 set -e
 if [ "$rc" -eq 5 ]; then

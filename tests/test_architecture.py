@@ -38,7 +38,7 @@ Probes = dict[str, tuple[int, str, str]]  # key -> (return code, stdout, stderr)
 
 
 def _probe_all(jobs: dict[str, tuple[str, tuple[str, ...]]]) -> Probes:
-    """Run one fresh interpreter per probe, all at once (each pays the numpy/pandas import)."""
+    """Run one fresh interpreter per probe, all at once."""
     procs = {
         key: subprocess.Popen(
             [sys.executable, "-c", PROBE.format(module=module, forbidden=forbidden)],
@@ -55,14 +55,68 @@ def _probe_all(jobs: dict[str, tuple[str, tuple[str, ...]]]) -> Probes:
     return out
 
 
+# The numerical stack the pure core may use: imported once by the forking probe below, which checks that it
+# loads none of FORBIDDEN itself, so each module's probe pays only for the module.
+PRELOAD = ("numpy", "pandas", "scipy.stats", "scipy.signal", "scipy.ndimage", "scipy.interpolate",
+           "scipy.optimize", "pydantic", "tomllib")
+FORK_PROBE = """
+import importlib, json, os, sys
+forbidden, modules = {forbidden!r}, {modules!r}
+for name in {preload!r}:
+    importlib.import_module(name)
+def loaded():
+    return sorted(m for m in sys.modules if m.split(".")[0] in forbidden)
+out = {{"(preload)": [0, loaded(), ""]}}
+for module in modules:
+    read, write = os.pipe()
+    pid = os.fork()
+    if pid == 0:  # the child: a copy of this interpreter with only the preload imported
+        os.close(read)
+        try:
+            importlib.import_module(module)
+            answer = [0, loaded(), ""]
+        except BaseException as exc:
+            answer = [1, [], f"{{type(exc).__name__}}: {{exc}}"]
+        os.write(write, json.dumps(answer).encode())
+        os._exit(0)
+    os.close(write)
+    with os.fdopen(read) as f:
+        text = f.read()
+    os.waitpid(pid, 0)
+    out[module] = json.loads(text) if text else [1, [], "the probe died"]
+print(json.dumps(out))
+"""
+
+
+def _probe_forked(modules: list[str], forbidden: tuple[str, ...]) -> Probes:
+    """Import each module in a fork of one interpreter that holds only the numerical stack (POSIX fork)."""
+    code = FORK_PROBE.format(forbidden=forbidden, modules=modules, preload=PRELOAD)
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=300, check=False)
+    assert done.returncode == 0, done.stderr
+    answers = json.loads(done.stdout.strip().splitlines()[-1])
+    return {m: (rc, json.dumps(found), err) for m, (rc, found, err) in answers.items()}
+
+
 @pytest.fixture(scope="module")
 def probes() -> Probes:
-    jobs = {m: (m, FORBIDDEN) for m in MODULES}
+    jobs: dict[str, tuple[str, tuple[str, ...]]] = {}
     # a control: the probe must be able to fail (json is imported by the probe itself)
     jobs["control"] = ("kernels_helpers.units", ("json",))
-    for m in LIGHT_MODULES:
+    for m in LIGHT_MODULES:  # these must not even load the numerical stack: fresh interpreters
         jobs[f"light:{m}"] = (m, HEAVY)
-    return _probe_all(jobs)
+    return {**_probe_all(jobs), **_probe_forked(MODULES, FORBIDDEN)}
+
+
+def test_the_preloaded_numerical_stack_loads_no_display_package(probes: Probes) -> None:
+    returncode, stdout, stderr = probes["(preload)"]
+    assert returncode == 0, stderr
+    assert json.loads(stdout) == []
+
+
+def test_the_forking_probe_sees_a_forbidden_import() -> None:
+    found = _probe_forked(["kernels_helpers.views.live_plots", "kernels_helpers.units"], FORBIDDEN)
+    assert "bokeh" in json.loads(found["kernels_helpers.views.live_plots"][1])
+    assert json.loads(found["kernels_helpers.units"][1]) == []  # a fork starts from the preload, not the last import
 
 
 @pytest.mark.parametrize("module", MODULES)

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import json
 import re
 import shutil
+import socket
 from pathlib import Path
 
 import pytest
@@ -203,7 +205,11 @@ def test_a_broken_record_on_the_cluster_is_reported_and_the_others_still_verifie
 
     root = _copy(recorded, tmp_path)
     (root / "records" / "junk.html").write_text("<html>not a record</html>", encoding="utf-8")
-    out = verify_folder(root / "records", tmp_path / "s.csv", runner=Runner(workers=1))
+    with contextlib.closing(socket.socket()) as taken:  # dask's default HTTP port is taken (another cluster)
+        with contextlib.suppress(OSError):  # already taken by someone else: the same case
+            taken.bind(("127.0.0.1", 8787))
+            taken.listen()
+        out = verify_folder(root / "records", tmp_path / "s.csv", runner=Runner(workers=1))
     by_name = {r.name: (v, e) for r, v, e in out}
     assert by_name["r1.html"][0].ok
     assert by_name["junk.html"][0] is None
