@@ -25,7 +25,7 @@ from typing import Any, Final
 import numpy as np
 import pandas as pd
 
-from .decisions import Interpretation
+from .decisions import Interpretation, PickKind
 from .errors import ProjectFileError, ShearbookError
 from .project import PROJECT_FILE, Project, SampleSpec, StageSpec
 from .results import EnvelopeResult, Results, StageResult
@@ -144,7 +144,7 @@ def _fit_words(env: EnvelopeResult | None) -> str:
             f"c' {fit.intercept:.1f} kPa")
 
 
-def _envelope(results: Results, group: str, kind: str) -> EnvelopeResult | None:
+def _envelope(results: Results, group: str, kind: PickKind) -> EnvelopeResult | None:
     try:
         return results.envelope(group, kind)
     except KeyError:

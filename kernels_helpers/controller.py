@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import ShearbookError
-from .interpretation import INTERPRETATION_FILE, Interpretation, check_stage_ids, load_interpretation
+from .interpretation import INTERPRETATION_FILE, Interpretation, PickKind, check_stage_ids, load_interpretation
 from .passes import end_of_pass_window
 from .picks import at_point
 from .pipeline import analyse_stage, assemble_results, provenance, read_all, stage_units
@@ -38,7 +38,7 @@ from .stage_checks import consolidation_of
 __all__ = ["Controller"]
 
 Listener = Callable[[Results, frozenset[str]], None]
-Pick = Literal["peak", "critical_state", "residual"]
+Pick = PickKind  # the picks an edit moves
 
 
 class Controller:

@@ -31,9 +31,11 @@ __all__ = [
     "SCHEMA",
     "SCHEMA_VERSION",
     "DesignChoices",
+    "DesignKind",
     "FitSettings",
     "Interpretation",
     "PeakChoice",
+    "PickKind",
     "ResidualChoice",
     "Settings",
     "SignOff",
@@ -48,7 +50,9 @@ __all__ = [
 INTERPRETATION_FILE: Final = "interpretation.json"
 SCHEMA: Final = "shearbook.interpretation/1"
 SCHEMA_VERSION: Final = 1
-Source = Literal["suggested", "manual"]
+Source = Literal["suggested", "manual"]  # where a pick comes from: the rule, or the engineer
+PickKind = Literal["peak", "critical_state", "residual"]  # the strengths picked on a curve, one envelope each
+DesignKind = Literal["peak", "critical_state"]  # the parameter sets a design may take
 SignOffState = Literal["draft", "checked", "approved"]
 
 
@@ -228,7 +232,7 @@ class DesignChoices:
     __pydantic_config__ = STRICT_FILE
 
     limit_state: Literal["large zone", "local"] = "large zone"
-    parameter_set: Literal["peak", "critical_state"] = "critical_state"
+    parameter_set: DesignKind = "critical_state"
     group: str = ""
     expressed: Literal["tangent", "secant"] = "tangent"
     partial_factors: str = "M2"
@@ -305,7 +309,7 @@ class Interpretation:
         lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
         return self._edit(stage_id, residual=ResidualChoice("manual", int(pass_no), lo, hi, author, utc_now(), note))
 
-    def back_to_suggestion(self, stage_id: str, pick: Literal["peak", "critical_state", "residual"]) -> Interpretation:
+    def back_to_suggestion(self, stage_id: str, pick: PickKind) -> Interpretation:
         fresh = {"peak": PeakChoice, "critical_state": WindowChoice, "residual": ResidualChoice}[pick]()
         return self._edit(stage_id, **{pick: fresh})
 

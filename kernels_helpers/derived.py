@@ -15,7 +15,7 @@ import numpy as np
 
 from .compare import SetComparison, compare_sets
 from .critical_state import CriticalStateLine, fit_critical_state_line
-from .decisions import DesignChoices
+from .decisions import DesignChoices, DesignKind
 from .design import (
     PARTIAL_FACTOR_SETS,
     DesignValues,
@@ -121,7 +121,7 @@ def dilatancy(stages: Sequence[StageResult],
     return tuple(out)
 
 
-def _default_group(envelopes: Sequence[EnvelopeResult], kind: str) -> str:
+def _default_group(envelopes: Sequence[EnvelopeResult], kind: DesignKind) -> str:
     names = [e.group for e in envelopes if e.kind == kind and e.chosen is not None]
     pooled = [g for g in names if g.startswith("stratum ")]
     return (pooled or names or [""])[0]

@@ -9,6 +9,7 @@ fitted). Plain data in, sentences out.
 
 from __future__ import annotations
 
+from .decisions import PickKind
 from .results import EnvelopeResult, Results
 
 __all__ = ["fit_changes", "standing_notices"]
@@ -18,7 +19,7 @@ def _name(e: EnvelopeResult) -> str:
     return f"{e.group}, {e.kind.replace('_', ' ')}"
 
 
-def _why_out(results: Results, stage_id: str, kind: str) -> str:
+def _why_out(results: Results, stage_id: str, kind: PickKind) -> str:
     s = results.stage(stage_id)
     if not s.included:
         return f"excluded: {s.exclusion_reason}"

@@ -25,6 +25,7 @@ from .interpretation import (
     INTERPRETATION_FILE,
     FitSettings,
     Interpretation,
+    PickKind,
     Settings,
     StageDecision,
     check_stage_ids,
@@ -121,37 +122,18 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         flags.append(residual.flag)
     stale_flags, stale = _stale_flags(spec, readings, decision, saved_sha256, saved_files)
     return StageResult(
-        stage_id=spec.id,
-        test_set=spec.test_set,
-        stratum=spec.stratum,
-        relpath=spec.relpath,
-        sha256=readings.sha256,
-        size_bytes=readings.size_bytes,
-        reduced=reduced,
-        included=decision.included,
-        exclusion_reason=decision.exclusion_reason,
-        critical_state_used=decision.critical_state_used,
-        critical_state_reason=decision.critical_state_reason,
-        note=decision.note,
-        peak_source=decision.peak.source,
-        peak_suggested=picks.peak_suggested,
-        peak=picks.peak,
-        peak_note=decision.peak.note,
-        no_distinct_peak=picks.no_peak,
-        cs_source=decision.critical_state.source,
-        cs_suggested=picks.cs_suggested,
-        cs=picks.cs,
+        stage_id=spec.id, test_set=spec.test_set, stratum=spec.stratum, relpath=spec.relpath,
+        sha256=readings.sha256, size_bytes=readings.size_bytes, reduced=reduced,
+        included=decision.included, exclusion_reason=decision.exclusion_reason, note=decision.note,
+        critical_state_used=decision.critical_state_used, critical_state_reason=decision.critical_state_reason,
+        peak_source=decision.peak.source, peak_suggested=picks.peak_suggested, peak=picks.peak,
+        peak_note=decision.peak.note, no_distinct_peak=picks.no_peak,
+        cs_source=decision.critical_state.source, cs_suggested=picks.cs_suggested, cs=picks.cs,
         cs_note=decision.critical_state.note,
-        flags=(*flags, *stale_flags),
-        stale=stale,
-        passes=residual.passes,
-        residual=residual.residual,
-        residual_suggested=residual.suggested,
+        passes=residual.passes, residual=residual.residual, residual_suggested=residual.suggested,
         residual_source=decision.residual.source,
-        consolidation=checks.consolidation,
-        rate=checks.rate,
-        unreliable=checks.unreliable,
-        corrections=corrections,
+        flags=(*flags, *stale_flags), stale=stale,
+        consolidation=checks.consolidation, rate=checks.rate, unreliable=checks.unreliable, corrections=corrections,
     )
 
 
@@ -359,14 +341,14 @@ def _groups(stages: Iterable[StageResult]) -> dict[str, list[StageResult]]:
     return out
 
 
-def _stresses(s: StageResult, kind: str) -> tuple[float, float]:
+def _stresses(s: StageResult, kind: PickKind) -> tuple[float, float]:
     """(sigma', tau) of a stage's pick of one kind, for a stage that the envelope of that kind takes."""
     p = s.strength(kind)
     assert p is not None and p.sigma_kpa is not None and p.tau_kpa is not None, (s.stage_id, kind)
     return p.sigma_kpa, p.tau_kpa
 
 
-def _envelope(group: str, kind: str, members: list[StageResult], fit: FitSettings) -> EnvelopeResult:
+def _envelope(group: str, kind: PickKind, members: list[StageResult], fit: FitSettings) -> EnvelopeResult:
     if kind == "residual":
         used = [s for s in members if s.included and s.residual is not None and s.residual.reached]
     else:
@@ -408,7 +390,9 @@ def fit_envelopes(stages: Iterable[StageResult], fit: FitSettings) -> tuple[Enve
     """Peak and critical-state envelopes for every group of stages (and residual for reversal tests)."""
     out: list[EnvelopeResult] = []
     for group, members in _groups(list(stages)).items():
-        kinds = ["peak", "critical_state"] + (["residual"] if any(s.residual is not None for s in members) else [])
+        kinds: list[PickKind] = ["peak", "critical_state"]
+        if any(s.residual is not None for s in members):
+            kinds.append("residual")
         out.extend(_envelope(group, kind, members, fit) for kind in kinds)
     return tuple(out)
 

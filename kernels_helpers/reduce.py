@@ -204,19 +204,49 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
 
     ``origin_mm``: for a later stage of a multi-stage test that continues from the previous
     displacement, the zero of x found on the first stage (no new seating slack is sought).
+
+    The steps: displacements zeroed and stresses on the contact area (:func:`_shearing`), heights and
+    void ratio from the settlement (:func:`_heights`), spikes, smoothing and rate of dilation
+    (:func:`_smoothed`; a hand-logged sheet is kept as read), the curve table (:func:`_reduced`).
     """
-    t = readings.table
+    shear = _shearing(stage, readings, settings, origin_mm)
+    heights = _heights(stage.specimen, shear.y, settlement)
+    sparse = is_sparse(shear.x[shear.start:], settings)
+    smoothed = _kept_as_read(shear) if sparse else _smoothed(stage, shear, settings)
+    return _reduced(stage, readings, shear, heights, smoothed, settings.area_convention, sparse)
+
+
+@dataclass(frozen=True)
+class _Shearing:
+    """The readings with x zeroed (seating slack removed) and the stresses on the contact area."""
+
+    x: np.ndarray  # mm, zeroed
+    y: np.ndarray  # mm, from the first reading, dilation positive
+    force: np.ndarray  # shear force, N
+    area: np.ndarray  # contact area, mm2
+    tau: np.ndarray  # kPa
+    sigma: np.ndarray  # kPa
+    normal: float  # normal force, N
+    shift: float  # the seating slack taken out of x, mm
+    start: int  # the first reading of shearing
+    pass_no: np.ndarray  # the pass of each reading (1 for every test but reversals)
+
+
+def _shearing(stage: StageSpec, readings: StageReadings, settings: ReductionSettings,
+              origin_mm: float | None) -> _Shearing:
+    """x zeroed at the end of the seating slack (or at the first stage's zero), checked against the box, and
+    the shear and normal stress on the corrected or nominal area."""
+    t, spec = readings.table, stage.specimen
     x_raw = t["x_mm"].to_numpy()
     # a laboratory may give shear stress on the nominal area instead of force: back to a force
     force = t["shear_force_n"].to_numpy() if "shear_force_n" in t else (
-        t["shear_stress_nominal_kpa"].to_numpy() * stage.specimen.area0_mm2 / 1000.0)
+        t["shear_stress_nominal_kpa"].to_numpy() * spec.area0_mm2 / 1000.0)
     try:
         shift, start = ((origin_mm, 0) if origin_mm is not None
                         else seating_shift_mm(x_raw, force, settings.seating_fraction))
     except ValueError as exc:
         raise ReadingsError(f"{stage.file}: {exc}; check the shear force column and its unit.") from exc
     x = x_raw - shift
-    spec = stage.specimen
     beyond = np.flatnonzero(~(np.abs(x) < spec.width_mm))  # also NaN: a reading that reads as no number
     if beyond.size:
         i = int(beyond[0])
@@ -228,22 +258,50 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
         area = corrected_area_mm2(spec.shape, spec.width_mm, np.clip(x, 0.0, None))
     else:
         area = np.full_like(x, spec.area0_mm2)
-    y = t["y_mm"].to_numpy() - float(t["y_mm"].iloc[0])
     normal = stage.normal_load.force_n
-    tau = force / area * 1000.0  # N/mm2 -> kPa
-    sigma = normal / area * 1000.0
-    hs = height_of_solids_mm(spec)
+    pass_no = label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64)
+    return _Shearing(x=x, y=t["y_mm"].to_numpy() - float(t["y_mm"].iloc[0]), force=force, area=area,
+                     tau=force / area * 1000.0, sigma=normal / area * 1000.0,  # N/mm2 -> kPa
+                     normal=normal, shift=shift, start=start, pass_no=pass_no)
+
+
+@dataclass(frozen=True)
+class _Heights:
+    """The consolidation settlement used (mm, and its source), the height at the start of shearing, void ratio."""
+
+    settled_mm: float
+    source: str
+    h_start: float
+    e: np.ndarray
+
+
+def _heights(spec: Specimen, y: np.ndarray, settlement: tuple[float, str] | None) -> _Heights:
     settled_mm, source = settlement or settlement_of(spec.consolidation_settlement_mm, None)
     h_start = spec.height_mm - settled_mm
-    e = void_ratio(h_start + y, hs)  # H = H_0 - consolidation settlement + y
-    in_shear = np.arange(len(x)) >= start
-    if is_sparse(x[start:], settings):  # a hand-logged sheet: every reading is kept as it is
-        return _reduced(stage, readings, x, y, area, tau, sigma, force, normal, e, in_shear, shift, start,
-                        settled_mm, source, h_start, _sparse_rate(x, y, start), tau.copy(),
-                        np.zeros(len(x), dtype=bool), settings.area_convention, sparse=True)
+    return _Heights(settled_mm, source, h_start,
+                    void_ratio(h_start + y, height_of_solids_mm(spec)))  # H = H_0 - consolidation settlement + y
+
+
+@dataclass(frozen=True)
+class _Smoothed:
+    """The rate of dilation, the smoothed shear stress and the isolated spikes (kept as read) of each reading."""
+
+    dydx: np.ndarray
+    tau_smooth: np.ndarray
+    spike: np.ndarray
+
+
+def _kept_as_read(shear: _Shearing) -> _Smoothed:
+    """A hand-logged sheet: every reading kept as it is, dy/dx between neighbouring readings."""
+    return _Smoothed(_sparse_rate(shear.x, shear.y, shear.start), shear.tau.copy(), np.zeros(len(shear.x), dtype=bool))
+
+
+def _smoothed(stage: StageSpec, shear: _Shearing, settings: ReductionSettings) -> _Smoothed:
+    """Isolated spikes found (Hampel filter, checks.py) and kept as read, the smoothing seeing the moving median
+    instead; then each pass smoothed on its own (x runs both ways in a reversal test)."""
+    x, y, tau, start = shear.x, shear.y, shear.tau, shear.start
     dydx = np.full_like(x, np.nan)
     tau_smooth = np.full_like(x, np.nan)
-    # isolated spikes (Hampel filter, checks.py): kept as read; the smoothing sees the moving median instead
     spike = np.zeros(len(x), dtype=bool)
     tau_clean, y_clean = tau, y  # replaced by copies only where a spike is found
     spike_tau, tau_rest = hampel_spikes(tau[start:])  # the readings from the start of shear on
@@ -257,11 +315,11 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
         y_clean[start:] = y_rest
     del y_rest
     spike[start:] = spike_tau | spike_y
-    # Each pass of a reversal test is smoothed on its own (x runs both ways); other tests are one pass.
-    pass_no = label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64)
-    for p in np.unique(pass_no):
+    in_shear = np.arange(len(x)) >= start
+    for p in np.unique(shear.pass_no):
         # one pass from the start of shear to the end (every test but reversals): a slice, no copies
-        sel: slice | np.ndarray = slice(start, None) if stage.test_type != "reversal" else in_shear & (pass_no == p)
+        sel: slice | np.ndarray = (slice(start, None) if stage.test_type != "reversal"
+                                   else in_shear & (shear.pass_no == p))
         if p > 1 and isinstance(sel, np.ndarray) and (not sel.any()
                                                      or np.ptp(x[sel]) < 2 * settings.smoothing_window_mm):
             continue  # a short return pass: no rate of dilation, readings kept
@@ -272,8 +330,7 @@ def reduce_stage(stage: StageSpec, readings: StageReadings, settings: ReductionS
             raise ReadingsError(
                 f"{stage.file}: {exc}; reduce the smoothing window or check the displacement column."
             ) from exc
-    return _reduced(stage, readings, x, y, area, tau, sigma, force, normal, e, in_shear, shift, start, settled_mm,
-                    source, h_start, dydx, tau_smooth, spike, settings.area_convention, pass_no)
+    return _Smoothed(dydx, tau_smooth, spike)
 
 
 def is_sparse(x_mm: np.ndarray, settings: ReductionSettings) -> bool:
@@ -298,46 +355,42 @@ def _sparse_rate(x: np.ndarray, y: np.ndarray, start: int) -> np.ndarray:
     return out
 
 
-def _reduced(stage: StageSpec, readings: StageReadings, x: np.ndarray, y: np.ndarray, area: np.ndarray, tau: np.ndarray,
-             sigma: np.ndarray, force: np.ndarray, normal: float, e: np.ndarray, in_shear: np.ndarray, shift: float,
-             start: int, settled_mm: float, source: str, h_start: float, dydx: np.ndarray, tau_smooth: np.ndarray,
-             spike: np.ndarray, area_convention: AreaConvention, pass_no: np.ndarray | None = None,
-             sparse: bool = False) -> ReducedStage:
+def _reduced(stage: StageSpec, readings: StageReadings, shear: _Shearing, heights: _Heights, smoothed: _Smoothed,
+             area_convention: AreaConvention, sparse: bool) -> ReducedStage:
+    """The reduced curve (one row per reading) and the stage's constants."""
     t, spec = readings.table, stage.specimen
     hs = height_of_solids_mm(spec)
-    pass_no = pass_no if pass_no is not None else (
-        label_passes(x) if stage.test_type == "reversal" else np.ones(len(x), dtype=np.int64))
     curve = pd.DataFrame(
         {
             "time_s": t["time_s"].to_numpy() if "time_s" in t else np.full(len(t), np.nan),  # none: a hand sheet
             "x_raw_mm": t["x_mm"].to_numpy(),
-            "x_mm": x,
-            "y_mm": y,
-            "area_mm2": area,
-            "tau_kpa": tau,
-            "tau_smooth_kpa": tau_smooth,
-            "sigma_kpa": sigma,
-            "ratio": force / normal,  # tau/sigma: the area cancels
-            "e": e,
-            "dydx": dydx,
-            "in_shear": in_shear,
-            "pass_no": pass_no,
-            "spike": spike,
+            "x_mm": shear.x,
+            "y_mm": shear.y,
+            "area_mm2": shear.area,
+            "tau_kpa": shear.tau,
+            "tau_smooth_kpa": smoothed.tau_smooth,
+            "sigma_kpa": shear.sigma,
+            "ratio": shear.force / shear.normal,  # tau/sigma: the area cancels
+            "e": heights.e,
+            "dydx": smoothed.dydx,
+            "in_shear": np.arange(len(shear.x)) >= shear.start,
+            "pass_no": shear.pass_no,
+            "spike": smoothed.spike,
         },
         copy=False,
     )
     return ReducedStage(
         stage_id=stage.id,
         curve=curve,
-        seating_shift_mm=shift,
+        seating_shift_mm=shear.shift,
         hs_mm=hs,
         e_initial=float(void_ratio(spec.height_mm, hs)),
-        e_start=float(void_ratio(h_start, hs)),
-        normal_force_n=normal,
+        e_start=float(void_ratio(heights.h_start, hs)),
+        normal_force_n=shear.normal,
         area0_mm2=spec.area0_mm2,
         area_convention=area_convention,
-        settlement_mm=settled_mm,
-        settlement_source=source,
+        settlement_mm=heights.settled_mm,
+        settlement_source=heights.source,
         height_initial_mm=spec.height_mm,
         sparse=sparse,
     )

@@ -19,7 +19,7 @@ from .apparatus import Correction
 from .compare import SetComparison
 from .consolidation import ConsolidationResult, RateCheck, consolidation_dict
 from .critical_state import CriticalStateLine
-from .decisions import DesignChoices
+from .decisions import DesignChoices, DesignKind, PickKind, Source
 from .design import DESIGN_CAUTION, DesignValues, RegressionCharacteristic, TanPhiStatistics
 from .dilatancy import StageDilatancy
 from .envelope import CurvatureComparison, LineFit, PowerLawFit
@@ -48,12 +48,12 @@ class StageResult:
     included: bool
     exclusion_reason: str
     note: str
-    peak_source: str
+    peak_source: Source
     peak_suggested: PointValues
     peak: PointValues
     peak_note: str
     no_distinct_peak: str | None  # reason in words, or None when the peak is distinct
-    cs_source: str
+    cs_source: Source
     cs_suggested: WindowValues
     cs: WindowValues
     cs_note: str
@@ -62,7 +62,7 @@ class StageResult:
     passes: tuple[PassStress, ...] = ()  # reversal tests: the stress at the end of every pass
     residual: Residual | None = None  # reversal tests: the residual strength chosen (suggested or manual)
     residual_suggested: Residual | None = None  # reversal tests: what the rule suggests
-    residual_source: str = "suggested"
+    residual_source: Source = "suggested"
     consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
     rate: RateCheck | None = None  # required time to failure against the actual test
     unreliable: tuple[str, ...] = ()  # results that depend on a faulty transducer channel (checks.transducer_flags)
@@ -84,7 +84,7 @@ class StageResult:
         """Normal stress on the nominal (initial) area, kPa: the stage's label."""
         return self.reduced.normal_force_n / self.reduced.area0_mm2 * 1000.0
 
-    def strength(self, kind: str) -> PointValues | WindowValues | Residual | None:
+    def strength(self, kind: PickKind) -> PointValues | WindowValues | Residual | None:
         """The pick of one kind ("peak", "critical_state", "residual"): its sigma_kpa and tau_kpa."""
         if kind == "peak":
             return self.peak
@@ -104,7 +104,7 @@ class EnvelopeResult:
     """One envelope (peak or critical state) through one group of stages."""
 
     group: str
-    kind: str  # "peak" or "critical_state"
+    kind: PickKind
     stage_ids: tuple[str, ...]
     sigma_kpa: tuple[float, ...]
     tau_kpa: tuple[float, ...]
@@ -197,7 +197,7 @@ class EnvelopeStatistics:
     """Extra statistics of one envelope: secant angles, bands, the power law and the curvature check."""
 
     group: str
-    kind: str
+    kind: PickKind
     stage_ids: tuple[str, ...]
     secant_phi_deg: tuple[float, ...]  # per stage, in the order of stage_ids
     bands: tuple[EnvelopeBands, ...]
@@ -214,7 +214,7 @@ class DesignResult:
 
     choices: DesignChoices
     group: str
-    kind: str
+    kind: DesignKind
     stress_range_kpa: tuple[float, float] | None
     range_source: str
     fit_used: str | None  # "free" or "origin"
@@ -243,7 +243,7 @@ class LeaveOneOut:
     """
 
     group: str
-    kind: str
+    kind: PickKind
     left_out: str
     n_left: int
     method: str
@@ -273,7 +273,7 @@ class Results:
     dilatancy: tuple[StageDilatancy, ...] = ()
     design: DesignResult | None = None
 
-    def statistics(self, group: str, kind: str) -> EnvelopeStatistics:
+    def statistics(self, group: str, kind: PickKind) -> EnvelopeStatistics:
         for e in self.envelope_statistics:
             if e.group == group and e.kind == kind:
                 return e
@@ -285,7 +285,7 @@ class Results:
                 return s
         raise KeyError(stage_id)
 
-    def envelope(self, group: str, kind: str) -> EnvelopeResult:
+    def envelope(self, group: str, kind: PickKind) -> EnvelopeResult:
         for e in self.envelopes:
             if e.group == group and e.kind == kind:
                 return e

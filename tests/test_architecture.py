@@ -248,3 +248,24 @@ def test_the_cycle_check_finds_a_cycle_hidden_in_a_function(tmp_path: Path) -> N
     graph = _import_graph(pkg, ["a", "b", "c", "d"])
     assert graph == {"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}
     assert _cycles(graph) == [["a", "b", "c", "a"]]
+
+
+STEPPED = ("pipeline", "reduce")  # a stage's path: each step short enough to read at once
+
+
+def _long_functions(path: Path, limit: int) -> list[str]:
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    return [f"{node.name} ({node.end_lineno - node.lineno + 1} lines)" for node in ast.walk(tree)
+            if isinstance(node, ast.FunctionDef | ast.AsyncFunctionDef)
+            and node.end_lineno is not None and node.end_lineno - node.lineno + 1 >= limit]
+
+
+@pytest.mark.parametrize("module", STEPPED)
+def test_a_stage_s_path_is_made_of_steps_under_50_lines(module: str) -> None:
+    assert _long_functions(PACKAGE_DIR / f"{module}.py", 50) == []
+
+
+def test_the_length_check_counts_a_long_function(tmp_path: Path) -> None:
+    sample = tmp_path / "sample.py"
+    sample.write_text("def short():\n    return 1\n\n\ndef long():\n" + "    x = 1\n" * 60, encoding="utf-8")
+    assert _long_functions(sample, 50) == ["long (61 lines)"]
