@@ -172,7 +172,7 @@ class Controller:
     def set_window(self, stage_id: str, x_from_mm: float, x_to_mm: float) -> bool:
         """A manual critical-state window, its ends snapped to the nearest readings."""
         lo, hi = sorted(self._snap(stage_id, float(v)) for v in (x_from_mm, x_to_mm))
-        cs = self.stage(stage_id).cs
+        cs = self.stage(stage_id).critical_state
         if (lo, hi) == (cs.x_from_mm, cs.x_to_mm):
             return self._unchanged(f"{stage_id}: the critical-state window is already {lo:.3f}-{hi:.3f} mm")
         if (why := self._reason_check(stage_id)) is not None:

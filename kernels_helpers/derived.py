@@ -104,8 +104,9 @@ def critical_state_lines(envelopes: Iterable[EnvelopeResult],
         if env.kind != "critical_state" or len(env.stage_ids) < 3 or len(set(env.sigma_kpa)) < 2:
             continue
         ss = [by_id[i] for i in env.stage_ids]
-        out.append(fit_critical_state_line(env.stage_ids, [s.test_set for s in ss], [s.cs.sigma_kpa for s in ss],
-                                           [s.cs.e for s in ss], [s.reduced.e_start for s in ss], env.group))
+        out.append(fit_critical_state_line(env.stage_ids, [s.test_set for s in ss],
+                                           [s.critical_state.sigma_kpa for s in ss], [s.critical_state.e for s in ss],
+                                           [s.reduced.e_start for s in ss], env.group))
     return tuple(out)
 
 
@@ -117,7 +118,8 @@ def dilatancy(stages: Sequence[StageResult],
         distinct = not (s.no_distinct_peak and s.peak_source == "suggested")
         peak = (s.peak.ratio, s.peak.dydx, s.peak.sigma_kpa) if distinct else None
         i_d = relative_density.get(s.stage_id, relative_density.get(s.stage_id.split("/")[0]))  # "T/2": of test T
-        out.append(stage_dilatancy(s.stage_id, peak, (s.cs.ratio, s.cs.dydx, s.cs.sigma_kpa), i_d))
+        cs = s.critical_state
+        out.append(stage_dilatancy(s.stage_id, peak, (cs.ratio, cs.dydx, cs.sigma_kpa), i_d))
     return tuple(out)
 
 

@@ -71,13 +71,14 @@ def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> lis
             f"x = {pb.x_mm:.2f} mm (tau {pb.tau_kpa:.1f} kPa): moved {pb.x_mm - pa.x_mm:+.2f} mm, "
             f"tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa" + (f"; note: {b.peak_note}" if b.peak_note else "")
         )
-    ca, cb = a.cs, b.cs
-    if (a.cs_source, ca.x_from_mm, ca.x_to_mm) != (b.cs_source, cb.x_from_mm, cb.x_to_mm):
+    ca, cb = a.critical_state, b.critical_state
+    if (a.critical_state_source, ca.x_from_mm, ca.x_to_mm) != (b.critical_state_source, cb.x_from_mm, cb.x_to_mm):
         lines.append(
-            f"{sid}: critical-state window {a.cs_source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm "
+            f"{sid}: critical-state window {a.critical_state_source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm "
             f"(tau {ca.tau_kpa:.1f} kPa)"
-            f" -> {b.cs_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
-            f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa" + (f"; note: {b.cs_note}" if b.cs_note else "")
+            f" -> {b.critical_state_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
+            f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa"
+            + (f"; note: {b.critical_state_note}" if b.critical_state_note else "")
         )
     if (a.critical_state_used, a.critical_state_reason) != (b.critical_state_used, b.critical_state_reason):
         lines.append(f"{sid}: critical state not reached, put back in the critical-state fit: "

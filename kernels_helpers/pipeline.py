@@ -128,8 +128,8 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         critical_state_used=decision.critical_state_used, critical_state_reason=decision.critical_state_reason,
         peak_source=decision.peak.source, peak_suggested=picks.peak_suggested, peak=picks.peak,
         peak_note=decision.peak.note, no_distinct_peak=picks.no_peak,
-        cs_source=decision.critical_state.source, cs_suggested=picks.cs_suggested, cs=picks.cs,
-        cs_note=decision.critical_state.note,
+        critical_state_source=decision.critical_state.source, critical_state_suggested=picks.critical_state_suggested,
+        critical_state=picks.critical_state, critical_state_note=decision.critical_state.note,
         passes=residual.passes, residual=residual.residual, residual_suggested=residual.suggested,
         residual_source=decision.residual.source,
         flags=(*flags, *stale_flags), stale=stale,
@@ -154,7 +154,7 @@ def _consolidation(spec: StageSpec, consolidation: Consolidation | Literal["read
 class _Suggested:
     """What the rules suggest: the critical-state window's values, the peak's place, or why there is no peak."""
 
-    cs: WindowValues
+    critical_state: WindowValues
     x_peak_mm: float
     no_peak: str | None
 
@@ -178,14 +178,14 @@ class _Picks:
     peak_suggested: PointValues
     peak: PointValues
     no_peak: str | None  # why the curve has no distinct peak (None: it has one, or the engineer picked one)
-    cs_suggested: WindowValues
-    cs: WindowValues
+    critical_state_suggested: WindowValues
+    critical_state: WindowValues
 
 
 def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: PickSettings,
            suggested: _Suggested) -> _Picks:
     """The peak and critical-state window in use; a manual pick must lie on the curve."""
-    cs, peak, no_peak = suggested.cs, at_point(reduced, suggested.x_peak_mm), suggested.no_peak
+    cs, peak, no_peak = suggested.critical_state, at_point(reduced, suggested.x_peak_mm), suggested.no_peak
     window = decision.critical_state
     if window.source == "manual":
         assert window.x_from_mm is not None and window.x_to_mm is not None  # WindowChoice checks it
@@ -198,7 +198,7 @@ def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: P
         assert chosen.x_mm is not None  # PeakChoice checks it
         _on_curve(reduced, spec, "peak", chosen.x_mm)
         peak_in_use, no_peak = at_point(reduced, chosen.x_mm), None  # the engineer picked a peak on purpose
-    return _Picks(peak, peak_in_use, no_peak, suggested.cs, cs)
+    return _Picks(peak, peak_in_use, no_peak, suggested.critical_state, cs)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -234,7 +234,7 @@ def _checks(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, pic
             ) -> tuple[StageChecks, tuple[Correction, ...], list[str]]:
     """The flags of the picks, of the specimen, spike, normal-load, consolidation and drained-rate checks
     (stage_checks.py) and of the apparatus corrections, in that order."""
-    cs, peak, distinct = picks.cs, picks.peak, picks.no_peak is None
+    cs, peak, distinct = picks.critical_state, picks.peak, picks.no_peak is None
     flags = list(cs.flags)
     if distinct:
         flags.extend(peak_flags(reduced, peak, settings.picks))
@@ -309,17 +309,20 @@ def pair_flags(stages: tuple[StageResult, ...], ratio_tolerance: float = 0.05, e
                 continue
             if abs(a.sigma_nominal_kpa - b.sigma_nominal_kpa) > 0.1 * max(a.sigma_nominal_kpa, b.sigma_nominal_kpa):
                 continue
-            dr = abs(a.cs.ratio - b.cs.ratio) / max(a.cs.ratio, b.cs.ratio)
-            de = abs(a.cs.e - b.cs.e)
+            ca, cb = a.critical_state, b.critical_state
+            dr = abs(ca.ratio - cb.ratio) / max(ca.ratio, cb.ratio)
+            de = abs(ca.e - cb.e)
             for me, other in ((a, b), (b, a)):
                 if dr > ratio_tolerance:
                     extra[me.stage_id].append(
-                        f"critical-state stress ratio {me.cs.ratio:.3f} differs from {other.cs.ratio:.3f} "
+                        f"critical-state stress ratio {me.critical_state.ratio:.3f} differs from "
+                        f"{other.critical_state.ratio:.3f} "
                         f"of {other.stage_id} ({other.test_set}) at the same normal stress by {dr * 100:.1f} %: "
                         "dense and loose specimens should reach the same critical state; check both picks")
                 if de > e_tolerance:
                     extra[me.stage_id].append(
-                        f"void ratio at critical state {me.cs.e:.3f} differs from {other.cs.e:.3f} of {other.stage_id} "
+                        f"void ratio at critical state {me.critical_state.e:.3f} differs from "
+                        f"{other.critical_state.e:.3f} of {other.stage_id} "
                         f"({other.test_set}) by {de:.3f}: the specimen-average void ratio may not represent "
                         "the shear zone, or critical state was not reached")
     return tuple(

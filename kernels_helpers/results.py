@@ -53,10 +53,10 @@ class StageResult:
     peak: PointValues
     peak_note: str
     no_distinct_peak: str | None  # reason in words, or None when the peak is distinct
-    cs_source: Source
-    cs_suggested: WindowValues
-    cs: WindowValues
-    cs_note: str
+    critical_state_source: Source
+    critical_state_suggested: WindowValues
+    critical_state: WindowValues
+    critical_state_note: str
     flags: tuple[str, ...]
     stale: bool  # the raw file changed since the interpretation was saved
     passes: tuple[PassStress, ...] = ()  # reversal tests: the stress at the end of every pass
@@ -73,7 +73,7 @@ class StageResult:
     @property
     def critical_state_left_out(self) -> str | None:
         """Why the critical state takes no part in the critical-state envelope and line (None: it does)."""
-        unreached = [f for f in self.cs.flags if f.startswith("critical state not reached")]
+        unreached = [f for f in self.critical_state.flags if f.startswith("critical state not reached")]
         if not unreached or self.critical_state_used:
             return None
         return ("left out of the critical-state envelope and line (" + "; ".join(unreached) + "); put it back "
@@ -89,7 +89,7 @@ class StageResult:
         if kind == "peak":
             return self.peak
         if kind == "critical_state":
-            return self.cs
+            return self.critical_state
         if kind == "residual":
             return self.residual
         raise KeyError(kind)
@@ -325,12 +325,12 @@ class Results:
                         "chosen": _point(s.peak),
                     },
                     "critical_state": {
-                        "source": s.cs_source,
-                        "note": s.cs_note,
+                        "source": s.critical_state_source,
+                        "note": s.critical_state_note,
                         "left_out": s.critical_state_left_out,
                         "used_although_not_reached": s.critical_state_reason if s.critical_state_used else None,
-                        "suggested": _window(s.cs_suggested),
-                        "chosen": _window(s.cs),
+                        "suggested": _window(s.critical_state_suggested),
+                        "chosen": _window(s.critical_state),
                     },
                     "flags": list(s.flags),
                     "unreliable": list(s.unreliable),

@@ -27,15 +27,15 @@ def summary_text(results: Results, u: Display = SI, signoff: SignOff | None = No
             if s.peak_source == "manual":
                 line += f" [suggested x {u.text('length', ps.x_mm, 2)}, tau {u.text('stress', ps.tau_kpa, 1)}]"
             out.append(line + (f" - {s.peak_note}" if s.peak_note else ""))
-        c, cs = s.cs, s.cs_suggested
-        line = (f"  critical state ({s.cs_source}): "
+        c, cs = s.critical_state, s.critical_state_suggested
+        line = (f"  critical state ({s.critical_state_source}): "
                 f"{u.fmt('length', c.x_from_mm, 2)}-{u.text('length', c.x_to_mm, 2)}, "
                 f"tau {u.text('stress', c.tau_kpa, 1)} (s.d. {u.text('stress', c.tau_sd_kpa, 2)}), "
                 f"tau/sigma {c.ratio:.3f}, dy/dx {c.dydx:+.4f}")
-        if s.cs_source == "manual":
+        if s.critical_state_source == "manual":
             line += (f" [suggested {u.fmt('length', cs.x_from_mm, 2)}-{u.text('length', cs.x_to_mm, 2)}, "
                      f"tau {u.text('stress', cs.tau_kpa, 1)}]")
-        out.append(line + (f" - {s.cs_note}" if s.cs_note else ""))
+        out.append(line + (f" - {s.critical_state_note}" if s.critical_state_note else ""))
         if s.critical_state_left_out:
             out.append(f"  critical state {s.critical_state_left_out}")
         elif s.critical_state_used:

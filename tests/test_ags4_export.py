@@ -106,7 +106,7 @@ def test_round_trip_shbt_within_the_rounding_of_each_type(example: tuple[Results
         for heading, value in expected.items():
             assert row[heading] == pytest.approx(value, abs=_half_unit(value, types[heading])), (s.stage_id, heading)
         assert float(row["SHBT_PDEN"]) == spec.gs  # XN: text, not converted by the reader
-        assert f"critical state tau {s.cs.tau_kpa:.1f} kPa" in row["SHBT_REM"]
+        assert f"critical state tau {s.critical_state.tau_kpa:.1f} kPa" in row["SHBT_REM"]
         assert all(flag.split(":")[0] in row["SHBT_REM"] for flag in s.flags)
     assert shbt.loc["BH03-D2", "SHBT_CRIT"].startswith("peak: picked by the engineer")
     assert "no distinct peak" in shbt.loc["BH03-L1", "SHBT_REM"]

@@ -51,9 +51,9 @@ def test_stage_rows_carry_the_results_numbers_exactly(results: Results, tables: 
         # floats are written at full precision: exact equality after the text round trip
         assert row["peak_tau_kpa"] == s.peak.tau_kpa and row["peak_sigma_kpa"] == s.peak.sigma_kpa
         assert row["peak_x_mm"] == s.peak.x_mm and row["suggested_peak_x_mm"] == s.peak_suggested.x_mm
-        assert row["cs_tau_kpa"] == s.cs.tau_kpa and row["cs_tau_sd_kpa"] == s.cs.tau_sd_kpa
-        assert row["cs_x_from_mm"] == s.cs.x_from_mm and row["cs_x_to_mm"] == s.cs.x_to_mm
-        assert row["cs_e"] == s.cs.e and row["cs_dydx"] == s.cs.dydx
+        assert row["cs_tau_kpa"] == s.critical_state.tau_kpa and row["cs_tau_sd_kpa"] == s.critical_state.tau_sd_kpa
+        assert row["cs_x_from_mm"] == s.critical_state.x_from_mm and row["cs_x_to_mm"] == s.critical_state.x_to_mm
+        assert row["cs_e"] == s.critical_state.e and row["cs_dydx"] == s.critical_state.dydx
         assert row["sigma_nominal_kpa"] == s.sigma_nominal_kpa
         assert row["peak_phi_secant_deg"] == math.degrees(math.atan(s.peak.ratio))
         assert bool(row["included"]) is s.included and row["peak_source"] == s.peak_source

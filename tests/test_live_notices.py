@@ -130,7 +130,7 @@ def test_flags_are_placed_where_they_apply_on_the_curve(example_copy: Path) -> N
     lo, hi = places["too fast for drained conditions"]  # the shearing up to failure, as the flag says
     assert lo == first and abs(hi - float(fast.split(" mm (sheared")[0].rsplit(" ", 1)[1])) < 0.05
     lo, hi = places["void ratio at critical state 0.613 differs from 0.748 of BH03-L3 (BH03 loose) by 0.135"]
-    assert (lo, hi) == (s.cs.x_from_mm, s.cs.x_to_mm)  # a critical-state flag: its window
+    assert (lo, hi) == (s.critical_state.x_from_mm, s.critical_state.x_to_mm)  # a critical-state flag: its window
     line = 5 + 100  # line 105 of the file is row 100 (the first data row is on line 5)
     worded = dataclasses.replace(s, flags=(
         "transducer fault: the vertical gauge does not move: 0.1 um over 2.0 mm of shearing "

@@ -34,7 +34,7 @@ def test_dense_peak_and_critical_state(tmp_path: Path, m: Model) -> None:
     assert s.no_distinct_peak is None
     assert s.peak.tau_kpa == pytest.approx(tau_peak, rel=0.01)  # issue: peak within 1 % of the model's
     assert s.peak.x_mm == pytest.approx(u_peak, abs=0.3)
-    assert s.cs.ratio == pytest.approx(m.cs_ratio, abs=0.01)  # issue: critical-state ratio within 0.01
+    assert s.critical_state.ratio == pytest.approx(m.cs_ratio, abs=0.01)  # issue: critical-state ratio within 0.01
     assert s.reduced.seating_shift_mm == pytest.approx(m.slack, abs=0.05)
     assert s.flags == ()  # clean curve: no false flag
 
@@ -44,7 +44,7 @@ def test_loose_has_no_distinct_peak(tmp_path: Path, normal: float) -> None:
     m = Model(normal_n=normal, psi_max=0.0, contraction=0.08, u_mob=1.0, seed=4)
     s = _one(tmp_path, m)
     assert s.no_distinct_peak is not None and s.no_distinct_peak.startswith("no distinct peak")
-    assert s.cs.ratio == pytest.approx(m.cs_ratio, abs=0.01)
+    assert s.critical_state.ratio == pytest.approx(m.cs_ratio, abs=0.01)
     assert s.flags == ()
 
 
@@ -99,7 +99,7 @@ def test_reversal_passes_and_residual(tmp_path: Path) -> None:
     assert [p.pass_no for p in fwd] == [1, 3, 5, 7]
     assert s.residual is not None and s.residual.reached and s.residual.passes == (5, 7)
     assert s.residual.tau_kpa == pytest.approx(ends[6], rel=0.02)
-    assert s.cs.ratio == pytest.approx(Model().cs_ratio, abs=0.01)  # critical state of the first pass only
+    assert s.critical_state.ratio == pytest.approx(Model().cs_ratio, abs=0.01)  # critical state of the first pass only
 
 
 def test_reversal_not_reached_is_flagged(tmp_path: Path) -> None:
@@ -137,7 +137,7 @@ def test_multistage_split_by_normal_load(tmp_path: Path) -> None:
     assert [s.stage_id for s in results.stages] == ["M1/1", "M1/2", "M1/3"]
     for s, level in zip(results.stages, levels, strict=True):
         assert s.reduced.normal_force_n == pytest.approx(level, rel=0.005)
-        assert s.cs.ratio == pytest.approx(Model().cs_ratio, abs=0.01)
+        assert s.critical_state.ratio == pytest.approx(Model().cs_ratio, abs=0.01)
     # later stages continue from the first stage's origin: the area keeps shrinking
     assert results.stages[2].reduced.curve["area_mm2"].iloc[-1] == pytest.approx(60 * (60 - 12.0), rel=0.01)
     env = results.envelope("synthetic", "critical_state")

@@ -170,8 +170,8 @@ def test_synthetic_critical_state_and_no_distinct_peak(tmp_path: Path) -> None:
     root = _synthetic(tmp_path / "p", {"S50": 180.0, "S100": 360.0, "S200": 720.0}, tanh_ratio)
     results = interpret(root)
     for stage in results.stages:
-        assert stage.cs.ratio == pytest.approx(0.6, rel=0.005)  # the curve's own limit, tanh -> 1
-        assert stage.cs.flags == ()  # steady ratio and no dilation: critical state reached
+        assert stage.critical_state.ratio == pytest.approx(0.6, rel=0.005)  # the curve's own limit, tanh -> 1
+        assert stage.critical_state.flags == ()  # steady ratio and no dilation: critical state reached
         assert stage.no_distinct_peak is not None and stage.no_distinct_peak.startswith("no distinct peak")
     env = results.envelope("synthetic", "critical_state")
     assert env.origin is not None and env.free is not None

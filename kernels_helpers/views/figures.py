@@ -116,14 +116,15 @@ def stage_figure(s: StageResult, u: Display = SI):
     hover = [("x", f"@x_mm{{{lfmt}}} {F('length')}"), ("tau", f"@tau_kpa{{{sfmt}}} {F('stress')}"),
              ("y", f"@y_mm{{{lfmt}}} {F('length')}"), ("e", "@e{0.0000}"), ("dy/dx", "@dydx{+0.0000}")]
     for p in (tau, vert, void):
-        p.add_layout(BoxAnnotation(left=s.cs.x_from_mm * L, right=s.cs.x_to_mm * L, fill_color=CRIT,
-                                   fill_alpha=0.12))
+        p.add_layout(BoxAnnotation(left=s.critical_state.x_from_mm * L, right=s.critical_state.x_to_mm * L,
+                                   fill_color=CRIT, fill_alpha=0.12))
         p.add_tools(HoverTool(tooltips=hover, mode="vline"))
-    sug = s.cs_suggested
-    windows = ColumnDataSource({"x": [s.cs.x_from_mm * L, s.cs.x_to_mm * L], "tau": [s.cs.tau_kpa * S] * 2,
+    sug = s.critical_state_suggested
+    cs = s.critical_state
+    windows = ColumnDataSource({"x": [cs.x_from_mm * L, cs.x_to_mm * L], "tau": [cs.tau_kpa * S] * 2,
                                 "x_sug": [sug.x_from_mm * L, sug.x_to_mm * L], "tau_sug": [sug.tau_kpa * S] * 2})
     items["critical state (window mean)"] = [_draw(tau, Line(x="x", y="tau", line_color=CRIT, line_width=3), windows)]
-    if s.cs_source == "manual":
+    if s.critical_state_source == "manual":
         items["critical state suggested"] = [_draw(tau, Line(x="x_sug", y="tau_sug", line_color=SUGGESTED, line_width=2,
                                                              line_dash="dashed"), windows)]
     p, q = s.peak, s.peak_suggested

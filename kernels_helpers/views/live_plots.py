@@ -69,7 +69,8 @@ def marker_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
 
 def window_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
     """The two ends of the critical-state window, drawn at the window's mean shear stress (display units)."""
-    return _xy(u, [s.cs.x_from_mm, s.cs.x_to_mm], [s.cs.tau_kpa, s.cs.tau_kpa])
+    cs = s.critical_state
+    return _xy(u, [cs.x_from_mm, cs.x_to_mm], [cs.tau_kpa, cs.tau_kpa])
 
 
 def residual_data(s: StageResult, pick: ResidualPick | None, u: Display = SI) -> dict[str, list[float]]:
@@ -133,7 +134,7 @@ def flag_places(s: StageResult, row_of_line: RowOfLine | None = None) -> list[tu
         elif found := [float(v) for v in _AT_MM.findall(f)]:
             span = (min(found), max(found))
         elif "critical state" in f:
-            span = (s.cs.x_from_mm, s.cs.x_to_mm)
+            span = (s.critical_state.x_from_mm, s.critical_state.x_to_mm)
         if span is not None:
             lo, hi = sorted(span)
             places.append((lo - half if hi - lo < 2 * half else lo, hi + half if hi - lo < 2 * half else hi, f))
@@ -205,8 +206,8 @@ class StagePlots:
         self.peak_suggested = ColumnDataSource(_xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
         self.plots = [self._plot(i, key, label, title, q) for i, (key, label, title, q) in enumerate(CURVES)]
         k = u.factor("length")
-        self.boxes = [BoxAnnotation(left=s.cs.x_from_mm * k, right=s.cs.x_to_mm * k, fill_color=CRIT,
-                                    fill_alpha=0.13, level="underlay") for _ in self.plots]
+        self.boxes = [BoxAnnotation(left=s.critical_state.x_from_mm * k, right=s.critical_state.x_to_mm * k,
+                                    fill_color=CRIT, fill_alpha=0.13, level="underlay") for _ in self.plots]
         self.spans = [Span(location=s.peak.x_mm * k, dimension="height", line_color=PEAK, line_dash="dashed",
                            line_width=1.5) for _ in self.plots]
         for p, box, span in zip(self.plots, self.boxes, self.spans, strict=True):
@@ -307,7 +308,8 @@ class StagePlots:
             self._flagged_for = s.reduced
             self.curve.data = _scaled(_curve_data(s), self.u)
             _set(self.flagged, _spike_data(s, self.u))
-        placed = (s.flags, s.cs.x_from_mm, s.cs.x_to_mm)  # what the shaded places are read from, with the curve
+        # what the shaded places are read from, with the curve
+        placed = (s.flags, s.critical_state.x_from_mm, s.critical_state.x_to_mm)
         if new_curve or placed != self._placed_for:
             self._placed_for = placed
             _set(self.places, _places_data(s, self.u, self.row_of_line))
@@ -317,7 +319,7 @@ class StagePlots:
             p.background_fill_color = "white" if s.included else "#f1f2f3"
         u, k = self.u, self.u.factor("length")
         for box in self.boxes:
-            box.update(left=s.cs.x_from_mm * k, right=s.cs.x_to_mm * k)
+            box.update(left=s.critical_state.x_from_mm * k, right=s.critical_state.x_to_mm * k)
         for span in self.spans:
             span.location = s.peak.x_mm * k
         _set(self.peak, marker_data(s, u))
@@ -458,7 +460,7 @@ class EnvelopePlot:
 
     def update(self, results: Results) -> None:
         members = [s for s in results.stages if s.in_group(self.group)]
-        sigma_max = max([1.0, *(s.cs.sigma_kpa for s in members), *(s.peak.sigma_kpa for s in members)])
+        sigma_max = max([1.0, *(s.critical_state.sigma_kpa for s in members), *(s.peak.sigma_kpa for s in members)])
         k = self.u.factor("stress")
         for kind, _, _ in self.kinds:
             src = self.sources[kind]
@@ -612,6 +614,7 @@ class LivePlots:
             return (None if env is None or env.chosen is None else env.chosen.through_origin), words
 
         (po, pw), (co, cw) = chosen("peak"), chosen("critical_state")
-        _set(self.state, {"stage": [s.stage_id], "peak_x": [s.peak.x_mm * k], "cs_from": [s.cs.x_from_mm * k],
-                          "cs_to": [s.cs.x_to_mm * k], "peak_origin": [po], "cs_origin": [co], "peak_words": [pw],
+        cs = s.critical_state
+        _set(self.state, {"stage": [s.stage_id], "peak_x": [s.peak.x_mm * k], "cs_from": [cs.x_from_mm * k],
+                          "cs_to": [cs.x_to_mm * k], "peak_origin": [po], "cs_origin": [co], "peak_words": [pw],
                           "cs_words": [cw]})

@@ -198,11 +198,11 @@ def _pick_cells(s: StageResult, u: Display = SI) -> list[str]:
         f" (suggested at {u.with_unit('length', ps.x_mm, 2)}, {u.with_unit('stress', ps.tau_kpa, 1)})"
         if s.peak_source == "manual" else ""
     )
-    c, cs = s.cs, s.cs_suggested
-    cs_src = esc(s.cs_source) + (
+    c, cs = s.critical_state, s.critical_state_suggested
+    cs_src = esc(s.critical_state_source) + (
         f" (suggested {u.fmt('length', cs.x_from_mm, 2)}-{u.with_unit('length', cs.x_to_mm, 2)}, "
         f"{u.with_unit('stress', cs.tau_kpa, 1)})"
-        if s.cs_source == "manual" else "") + (
+        if s.critical_state_source == "manual" else "") + (
         "; not reached: left out of the critical-state fit" if s.critical_state_left_out else "") + (
         f"; not reached, used in the fit: {esc(s.critical_state_reason)}" if s.critical_state_used else ""
     )
@@ -219,7 +219,7 @@ def picks_table(results: Results, u: Display = SI) -> str:
     rows = []
     for s in results.stages:
         inc = "yes" if s.included else f"<b>excluded</b>: {esc(s.exclusion_reason)}"
-        notes = "; ".join(esc(n) for n in (s.note, s.peak_note, s.cs_note) if n)
+        notes = "; ".join(esc(n) for n in (s.note, s.peak_note, s.critical_state_note) if n)
         rows.append([esc(s.stage_id), u.fmt("stress", s.sigma_nominal_kpa, 0), inc, *_pick_cells(s, u), notes])
     L, S = u.unit("length"), u.unit("stress")
     headers = (

@@ -70,8 +70,8 @@ class StagePanel:
         self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, self.on_residual_drag, reversal, u,
                                 c.row_of_line(s.stage_id))
         self.peak_x = _float_text("peak at x", s.peak.x_mm, "sb-peak-x", u)
-        self.cs_from = _float_text("window from", s.cs.x_from_mm, "sb-cs-from", u)
-        self.cs_to = _float_text("window to", s.cs.x_to_mm, "sb-cs-to", u)
+        self.cs_from = _float_text("window from", s.critical_state.x_from_mm, "sb-cs-from", u)
+        self.cs_to = _float_text("window to", s.critical_state.x_to_mm, "sb-cs-to", u)
         required = c.project.manual_pick_reason == "require"
         self.reason = W.Text(continuous_update=False, layout=W.Layout(width="265px"),
                              placeholder="reason for a manual pick" + (" (required)" if required else ""))
@@ -172,8 +172,8 @@ class StagePanel:
 
         def write() -> None:
             self.peak_x.value = _shown_mm(u, s.peak.x_mm)
-            self.cs_from.value = _shown_mm(u, s.cs.x_from_mm)
-            self.cs_to.value = _shown_mm(u, s.cs.x_to_mm)
+            self.cs_from.value = _shown_mm(u, s.critical_state.x_from_mm)
+            self.cs_to.value = _shown_mm(u, s.critical_state.x_to_mm)
             if self.residual_pass is not None:
                 self.residual_box.layout.display = "none" if pick is None else ""
                 if pick is not None:
@@ -186,16 +186,16 @@ class StagePanel:
         self.wb.guard.run(write)
         peak = "suggested" if s.peak_source == "suggested" else (
             f"manual (suggested {u.with_unit('length', s.peak_suggested.x_mm, 2)})")
-        cs = "suggested" if s.cs_source == "suggested" else (
-            f"manual (suggested {u.fmt('length', s.cs_suggested.x_from_mm, 2)}-"
-            f"{u.with_unit('length', s.cs_suggested.x_to_mm, 2)})")
+        cs = "suggested" if s.critical_state_source == "suggested" else (
+            f"manual (suggested {u.fmt('length', s.critical_state_suggested.x_from_mm, 2)}-"
+            f"{u.with_unit('length', s.critical_state_suggested.x_to_mm, 2)})")
         distinct = f"<br><i>{tables.esc(u.annotate(s.no_distinct_peak))}</i>" if s.no_distinct_peak else ""
         residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick, u))}"
         excluded = ("" if s.included else
                     f'<br><span class="sb-flag">excluded: {tables.esc(s.exclusion_reason)}</span>')
         self.info.value = (f"<small><b>{tables.esc(s.stage_id)}</b>: peak {tables.esc(peak)}, tau "
                            f"{u.with_unit('stress', s.peak.tau_kpa, 1)}{distinct}<br>critical state: {tables.esc(cs)}, "
-                           f"tau {u.with_unit('stress', s.cs.tau_kpa, 1)}{residual}{excluded}</small>"
+                           f"tau {u.with_unit('stress', s.critical_state.tau_kpa, 1)}{residual}{excluded}</small>"
                            + stage_flags_html(s, u))
 
 
@@ -357,8 +357,9 @@ class StageTable:
                 no_peak = s.no_distinct_peak and s.peak_source == "suggested"
                 peak = "no distinct peak" if no_peak else u.fmt("stress", s.peak.tau_kpa, 1)
                 r["peak"].value = f"{tables.esc(peak)} at {u.with_unit('length', s.peak.x_mm, 2)} ({s.peak_source})"
-                r["cs"].value = (f"{u.fmt('stress', s.cs.tau_kpa, 1)} over {u.fmt('length', s.cs.x_from_mm, 2)}-"
-                                 f"{u.with_unit('length', s.cs.x_to_mm, 2)} ({s.cs_source})"
+                cs = s.critical_state
+                r["cs"].value = (f"{u.fmt('stress', cs.tau_kpa, 1)} over {u.fmt('length', cs.x_from_mm, 2)}-"
+                                 f"{u.with_unit('length', cs.x_to_mm, 2)} ({s.critical_state_source})"
                                  + ('<br><span class="sb-flag">not reached: left out of the critical-state fit'
                                     "</span>" if s.critical_state_left_out else "")
                                  + (f"<br>not reached, used: {tables.esc(s.critical_state_reason)}"
@@ -716,7 +717,7 @@ _NOWRAP = "<style>.sb-live td:nth-child(4), .sb-live td:nth-child(5) {white-spac
 def summary_html(results: Results, controller: Controller, u: Display = SI) -> str:
     """Chosen parameters, the flags still open and the sign-off state, in a few lines."""
     interp = controller.interpretation
-    manual = sum((s.peak_source == "manual") + (s.cs_source == "manual") + (s.residual_source == "manual")
+    manual = sum((s.peak_source == "manual") + (s.critical_state_source == "manual") + (s.residual_source == "manual")
                  for s in results.stages)
     out = [s for s in results.stages if not s.included]
     params = "; ".join(
