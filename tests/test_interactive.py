@@ -95,7 +95,7 @@ def test_window_drag_and_a_refused_window(wb: LiveWorkbook) -> None:
     cs = _file(wb)["stages"][STAGE]["critical_state"]
     assert cs["source"] == "manual" and abs(cs["x_from_mm"] - 8.0) < 0.01 and abs(cs["x_to_mm"] - 10.5) < 0.01
     s = wb.controller.stage(STAGE)
-    assert wb.select(STAGE).plots.boxes[0].left == s.critical_state.x_from_mm
+    assert wb.select(STAGE).plots.window_strip.data["x0"] == [s.critical_state.x_from_mm]
     assert panel.cs_to.value == round(s.critical_state.x_to_mm, 3)
     text = wb.controller.path.read_text(encoding="utf-8")
     _from_page(wb, panel.plots.window, {"x": [9.0, 9.001], "y": [150.0, 150.0]})  # too few readings

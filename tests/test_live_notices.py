@@ -87,9 +87,9 @@ def test_picks_are_named_on_the_plot_and_envelope_points_by_their_stage(example_
 
     wb = live_workbook(example_copy, author="T. Tester")
     plots = wb.select("BH03-D2").plots
-    assert plots.peak_label.text == "manual peak"  # the example's interpretation moved BH03-D2's peak by hand
-    assert wb.select("BH03-D1").plots.peak_label.text == "suggested peak"
-    assert wb.select("BH03-L1").plots.peak_label.text == "no distinct peak"
+    assert plots.peak_label.data["text"] == ["manual peak"]  # the example's interpretation moved BH03-D2's peak by hand
+    assert wb.select("BH03-D1").plots.peak_label.data["text"] == ["suggested peak"]
+    assert wb.select("BH03-L1").plots.peak_label.data["text"] == ["no distinct peak"]
     labels = [r for r in wb.envelope_plot.figure.center
               if isinstance(r, LabelSet) and not (r.name or "").startswith("fit-")]  # the fits' words aside
     assert labels and all(getattr(lab.text, "field", lab.text) == "stage" for lab in labels)

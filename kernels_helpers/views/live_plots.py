@@ -31,7 +31,6 @@ from bokeh.models import (
     Legend,
     LegendItem,
     PointDrawTool,
-    Span,
 )
 from bokeh.plotting import figure
 
@@ -80,6 +79,12 @@ def residual_data(s: StageResult, pick: ResidualPick | None, u: Display = SI) ->
     _, lo, hi = pick
     tau = s.residual.tau_kpa if s.residual is not None and s.residual.tau_kpa is not None else _window_mean(s, pick)
     return _xy(u, [lo, hi], [tau, tau])
+
+
+def _strip_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
+    """The critical-state window as a strip across a plot (display units)."""
+    k = u.factor("length")
+    return {"x0": [s.critical_state.x_from_mm * k], "x1": [s.critical_state.x_to_mm * k]}
 
 
 def _spike_data(s: StageResult, u: Display = SI) -> dict[str, list]:
@@ -206,13 +211,15 @@ class StagePlots:
         self.peak_suggested = ColumnDataSource(_xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
         self.plots = [self._plot(i, key, label, title, q) for i, (key, label, title, q) in enumerate(CURVES)]
         k = u.factor("length")
-        self.boxes = [BoxAnnotation(left=s.critical_state.x_from_mm * k, right=s.critical_state.x_to_mm * k,
-                                    fill_color=CRIT, fill_alpha=0.13, level="underlay") for _ in self.plots]
-        self.spans = [Span(location=s.peak.x_mm * k, dimension="height", line_color=PEAK, line_dash="dashed",
-                           line_width=1.5) for _ in self.plots]
-        for p, box, span in zip(self.plots, self.boxes, self.spans, strict=True):
-            p.add_layout(box)
-            p.add_layout(span)
+        # the window and the peak across all four plots, each from one source (one change per edit, not four),
+        # drawn on the overlay layer: moving them repaints no curve
+        self.window_strip = ColumnDataSource(_strip_data(s, u))
+        self.peak_line = ColumnDataSource({"x": [s.peak.x_mm * k]})
+        for p in self.plots:
+            p.vstrip(x0="x0", x1="x1", source=self.window_strip, fill_color=CRIT, fill_alpha=0.13, line_alpha=0,
+                     level="overlay")
+            p.vspan(x="x", source=self.peak_line, line_color=PEAK, line_dash="dashed", line_width=1.5,
+                    level="overlay")
         tau = self.plots[0]
         readings = tau.renderers[0]
         tau.y_range = DataRange1d(renderers=[readings])  # the flag ranges below do not stretch the axis
@@ -223,17 +230,20 @@ class StagePlots:
                           hatch_color=FLAG, hatch_alpha=0.12, hatch_scale=10, level="underlay")
         ghost = tau.scatter("x", "y", source=self.peak_suggested, size=13, marker="diamond", fill_color=None,
                             line_color=SUGGESTED, line_width=2)
-        win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white")
+        win = tau.scatter("x", "y", source=self.window, size=13, marker="square", fill_color=CRIT, line_color="white",
+                          level="overlay")
         self.flagged = ColumnDataSource(_spike_data(s, u))
         self._flagged_for = s.reduced  # flags depend on the reduction only: redrawn when it changes, not per pick
         self._placed_for: tuple[object, ...] = ()
         spikes = tau.scatter("x", "y", source=self.flagged, size=9, marker="x", line_color=FLAG, line_width=2)
         tau.add_tools(HoverTool(renderers=[spikes, shaded], tooltips=[("flag", "@text")]))
-        mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white")
+        mark = tau.scatter("x", "y", source=self.peak, size=15, marker="diamond", fill_color=PEAK, line_color="white",
+                           level="overlay")
         # which pick is which, in words on the plot (not only by the marker's fill)
-        self.peak_label = Label(x=0.0, y=0.0, text="", text_font_size="10px", text_color=PEAK, x_offset=10,
-                                y_offset=-16, background_fill_color="white", background_fill_alpha=0.8)
-        tau.add_layout(self.peak_label)
+        self.peak_label = ColumnDataSource({"x": [0.0], "y": [0.0], "text": [""]})  # one row: one change per edit
+        tau.add_layout(LabelSet(x="x", y="y", text="text", source=self.peak_label, text_font_size="10px",
+                                text_color=PEAK, x_offset=10, y_offset=-16, background_fill_color="white",
+                                background_fill_alpha=0.8, level="overlay"))
         draggable, items = [mark, win], [
             LegendItem(label="readings", renderers=[readings]),
             LegendItem(label="suggested peak", renderers=[ghost]),
@@ -249,8 +259,10 @@ class StagePlots:
                              "drag the peak, the critical-state window ends or the residual window ends")
         tau.add_tools(tool)
         tau.toolbar.active_tap = tool
+        # on the overlay layer with the picks, so the window's strip never covers it
         tau.add_layout(Legend(items=items, location="bottom_right", label_text_font_size="9px", spacing=0, padding=3,
-                              margin=4, label_height=11, glyph_height=11, background_fill_alpha=0.75))
+                              margin=4, label_height=11, glyph_height=11, background_fill_alpha=0.75,
+                              level="overlay"))
         self.peak.on_change("data", on_peak)
         self.window.on_change("data", on_window)
         if self.residual is not None and on_residual is not None:
@@ -264,15 +276,15 @@ class StagePlots:
         self.residual_curve = ColumnDataSource({"x_mm": [], "abs_tau": []})
         self.residual = ColumnDataSource({"x": [], "y": []})
         self.residual_box = BoxAnnotation(left=0, right=0, fill_color=RESIDUAL, fill_alpha=0.10, visible=False,
-                                          hatch_pattern="/", hatch_color=RESIDUAL, hatch_alpha=0.25, level="underlay")
+                                          hatch_pattern="/", hatch_color=RESIDUAL, hatch_alpha=0.25, level="overlay")
         self.residual_label = Label(x=0.0, y=0.0, text="", text_font_size="10px", text_color=RESIDUAL,
                                     text_align="right", text_baseline="bottom", y_offset=9,
-                                    background_fill_color="white", background_fill_alpha=0.8)
+                                    background_fill_color="white", background_fill_alpha=0.8, level="overlay")
         tau.add_layout(self.residual_box)
         tau.add_layout(self.residual_label)
         line = tau.line("x_mm", "abs_tau", source=self.residual_curve, color=RESIDUAL, line_width=1.1, alpha=0.85)
         ends = tau.scatter("x", "y", source=self.residual, size=13, marker="square", fill_color=RESIDUAL,
-                           line_color="white")
+                           line_color="white", level="overlay")
         tau.y_range.renderers = [*tau.y_range.renderers, line]
         items += [LegendItem(label="|tau| on the residual pass", renderers=[line]),
                   LegendItem(label="residual window ends (drag them)", renderers=[ends])]
@@ -293,6 +305,7 @@ class StagePlots:
         p.title.text_font_size = "11px"
         p.axis.axis_label_text_font_size = "10px"
         r = p.line("x_mm", key, source=self.curve, color=INK, line_width=1.3)
+        p.y_range = DataRange1d(renderers=[r])  # the curve sets the axis, not the strips and lines across it
         lf, sf = ("0.000", "0.0") if u.is_si else ("0.0000", "0")
         L, S = u.unit("length"), u.unit("stress")
         p.add_tools(HoverTool(renderers=[r], mode="vline", tooltips=[
@@ -318,16 +331,14 @@ class StagePlots:
             p.renderers[0].glyph.line_color = colour
             p.background_fill_color = "white" if s.included else "#f1f2f3"
         u, k = self.u, self.u.factor("length")
-        for box in self.boxes:
-            box.update(left=s.critical_state.x_from_mm * k, right=s.critical_state.x_to_mm * k)
-        for span in self.spans:
-            span.location = s.peak.x_mm * k
+        _set(self.window_strip, _strip_data(s, u))
+        _set(self.peak_line, {"x": [s.peak.x_mm * k]})
         _set(self.peak, marker_data(s, u))
         _set(self.window, window_data(s, u))
         shown = marker_data(s, u)
         words = ("no distinct peak" if s.no_distinct_peak and s.peak_source == "suggested"
                  else "manual peak" if s.peak_source == "manual" else "suggested peak")
-        self.peak_label.update(x=shown["x"][0], y=shown["y"][0], text=words)
+        _set(self.peak_label, {"x": shown["x"], "y": shown["y"], "text": [words]})
         _set(self.peak_suggested, _xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
         in_set = f" ({s.test_set})" if s.test_set else ""
         self.plots[0].title.text = (f"{s.stage_id}{in_set} - shear stress, sigma'n "
@@ -420,7 +431,7 @@ class EnvelopePlot:
             band = p.varea("x", "lo", "hi", source=src["line"], fill_color=colour, fill_alpha=0.14)
             line = p.line("x", "y", source=src["line"], color=colour, line_width=2)
             preview = p.line("x", "y", source=src["preview"], color=colour, line_width=2.5, line_dash="dashed",
-                             alpha=0.9)
+                             alpha=0.9, level="overlay")
             curve = p.line("x", "y", source=src["curve"], color=colour, line_width=2, line_dash="dotdash")
             pts = p.scatter("x", "y", source=src["in"], size=10, color=colour, marker=marker)
             p.add_layout(LabelSet(x="x", y="y", text="stage", source=src["in"], text_font_size="9px", x_offset=6,
@@ -434,7 +445,7 @@ class EnvelopePlot:
             p.add_layout(LabelSet(x="x", y="y", text="text", source=self.labels[kind], x_units="screen",
                                   y_units="screen", text_baseline="top", text_font_size="10.5px", text_color=colour,
                                   text_font_style="bold", background_fill_color="white", background_fill_alpha=0.85,
-                                  name=f"fit-{kind}"))
+                                  name=f"fit-{kind}", level="overlay"))
             items += [LegendItem(label=f"{name} (95 % band)", renderers=[pts, line, band]),
                       LegendItem(label=f"{name}: preview while dragging", renderers=[preview]),
                       LegendItem(label=f"{name}: excluded", renderers=[out]),

@@ -12,6 +12,7 @@ import contextlib
 import dataclasses
 import json
 import math
+import sys
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
@@ -225,10 +226,17 @@ class BatchedBokehModel(BokehModel):
                 self._send_patch(events)
 
     def flush(self) -> None:
-        """Send what the batch holds so far (the batch goes on)."""
+        """Send what the batch holds so far (the batch goes on), and see it leave the kernel now.
+
+        A kernel's messages go out through its IOPub thread, which needs the interpreter lock: while the
+        edit goes on computing (the save, the tables), the patch's parts would leave one by one, tens of
+        ms apart. ``sys.stdout.flush()`` in a kernel waits until that thread has sent everything queued
+        before it (ipykernel's OutStream), so the plots reach the page before the rest is computed.
+        """
         if self._held:
             events, self._held = self._held, []
             self._send_patch(events)
+            sys.stdout.flush()
 
     def _document_patched(self, event: Any) -> None:
         if event.setter is self:  # the page's own change coming in: nothing to send back
