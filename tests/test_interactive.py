@@ -292,3 +292,23 @@ def test_the_refit_is_drawn_before_the_save_and_taken_back_when_the_save_is_refu
     assert seen[0][2] != label_saved  # the refused edit's refit was drawn ...
     assert seen[-1][1:] == (moved, label_saved) == (panel.plots.peak.data["x"][0],  # ... and taken back
                                                     wb.envelope_plot.labels["peak"].data["text"][0])
+
+
+def test_a_drop_repaints_no_curve_and_sends_few_changes(wb: LiveWorkbook) -> None:
+    """What keeps mouse-up to the refit fast in the page (tests/benchmarks/bench_live_refit.py): the picks and what
+    marks them are on the overlay layer (moving them repaints no curve), and one drop is one small patch."""
+    from bokeh.models import GlyphRenderer, LabelSet, Legend
+
+    panel = wb.select(STAGE)
+    tau = panel.plots.plots[0]
+    moved = {panel.plots.peak, panel.plots.window, panel.plots.window_strip, panel.plots.peak_line,
+             panel.plots.peak_label}
+    for p in panel.plots.plots:
+        for r in p.renderers:
+            if isinstance(r, GlyphRenderer) and r.data_source in moved:
+                assert r.level == "overlay", (p.name, r.glyph)
+    assert all(a.level == "overlay" for a in tau.center if isinstance(a, LabelSet | Legend))
+    sent: list[list] = []
+    wb.bokeh._send_patch = lambda events: sent.append(events)  # type: ignore[method-assign]
+    _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})
+    assert len(sent) == 1 and 0 < len(sent[0]) <= 8, [(type(e.model).__name__, e.attr) for e in sent[0]]
