@@ -14,52 +14,13 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from .decisions import (  # re-exported: the records and the file's name, where callers have always found them
-    INTERPRETATION_FILE,
-    SCHEMA,
-    SCHEMA_VERSION,
-    DesignChoices,
-    DesignKind,
-    FitSettings,
-    Interpretation,
-    PeakChoice,
-    PickKind,
-    ResidualChoice,
-    Settings,
-    SignOff,
-    SignOffState,
-    SignOffStep,
-    Source,
-    StageDecision,
-    WindowChoice,
-    utc_now,
-)
+from . import decisions
+from .decisions import *  # noqa: F403  (the records, re-exported where callers have always found them)
+from .decisions import SCHEMA, SCHEMA_VERSION, Interpretation
 from .errors import InterpretationFileError
 from .file_models import check_interpretation_data, check_interpretation_text, listing
 
-__all__ = [
-    "INTERPRETATION_FILE",
-    "SCHEMA",
-    "SCHEMA_VERSION",
-    "DesignChoices",
-    "DesignKind",
-    "FitSettings",
-    "Interpretation",
-    "PeakChoice",
-    "PickKind",
-    "ResidualChoice",
-    "Settings",
-    "SignOff",
-    "SignOffState",
-    "SignOffStep",
-    "Source",
-    "StageDecision",
-    "WindowChoice",
-    "check_stage_ids",
-    "from_dict",
-    "load_interpretation",
-    "utc_now",
-]
+__all__ = [*decisions.__all__, "check_stage_ids", "from_dict", "load_interpretation"]
 
 
 def from_dict(data: Any, where: str) -> Interpretation:
