@@ -26,12 +26,12 @@ import pandas as pd
 
 from .errors import ShearbookError
 from .interpretation import INTERPRETATION_FILE, Interpretation, PickKind, check_stage_ids, load_interpretation
-from .passes import end_of_pass_window
 from .picks import at_point
 from .pipeline import analyse_stage, assemble_results, provenance, read_all, stage_units
 from .project import load_project
 from .readings import sha256_of
 from .results import Results, StageResult
+from .reversal import end_of_pass_window
 from .revisions import ConcurrentEditError, Saved, save_checked
 from .stage_checks import consolidation_of
 

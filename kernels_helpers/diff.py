@@ -12,10 +12,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from .decisions import Interpretation
-from .passes import Residual
 from .pipeline import interpret
 from .project import Project
 from .results import Results, StageResult
+from .reversal import Residual
 
 __all__ = ["InterpretationDiff", "diff_interpretations"]
 

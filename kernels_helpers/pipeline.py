@@ -33,12 +33,12 @@ from .interpretation import (
 )
 from .multistage import expand_multistage
 from .outliers import envelope_outliers
-from .passes import PassStress, Residual, pass_stresses, residual_over_window, residual_strength
 from .picks import PointValues, WindowValues, at_point, over_window, peak_flags, suggest_critical_state, suggest_peak
 from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage, sha256_of
 from .reduce import ReducedStage, reduce_stage, settlement_of
 from .results import EnvelopeResult, Results, StageResult
+from .reversal import PassStress, Residual, pass_stresses, residual_over_window, residual_strength
 from .sensitivity import leave_one_out
 from .settings import PickSettings
 from .stage_checks import Consolidation, StageChecks, check_stage, consolidation_of

@@ -14,9 +14,9 @@ from scipy.signal import savgol_filter
 
 from .checks import hampel_spikes
 from .errors import ReadingsError
-from .passes import label_passes
 from .project import Specimen, StageSpec
 from .readings import StageReadings
+from .reversal import label_passes
 from .settings import AreaConvention, ReductionSettings
 
 __all__ = [

@@ -24,9 +24,9 @@ from .design import DESIGN_CAUTION, DesignValues, RegressionCharacteristic, TanP
 from .dilatancy import StageDilatancy
 from .envelope import CurvatureComparison, LineFit, PowerLawFit
 from .mime import INTERPRETATION_MIME, RESULTS_MIME  # noqa: F401  (re-exported)
-from .passes import PassStress, Residual
 from .picks import PointValues, WindowValues
 from .reduce import ReducedStage
+from .reversal import PassStress, Residual
 
 __all__ = ["DesignResult", "EnvelopeBands", "EnvelopeResult", "EnvelopeStatistics", "LeaveOneOut", "Results",
            "StageResult", "plain"]

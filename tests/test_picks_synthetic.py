@@ -15,7 +15,7 @@ from synthetic import Model, readings, write_project
 
 from kernels_helpers import interpret
 from kernels_helpers.multistage import split_by_normal_load
-from kernels_helpers.passes import label_passes
+from kernels_helpers.reversal import label_passes
 
 
 def _one(tmp_path: Path, m: Model, test_type: str = "single-stage"):
