@@ -308,12 +308,23 @@ class Controller:
         except ValueError as exc:  # e.g. a window holding too few readings: nothing is saved
             return self._refuse(f"refused: {exc}")
         shown = self._assemble(new, {**self._analysed, **fresh})
-        self._show_early(new, shown, changed)  # the plots go to the page while the file is written
+        failed_to_show: Exception | None = None
+        try:
+            self._show_early(new, shown, changed)  # the plots go to the page while the file is written
+        except Exception as exc:  # a fault in drawing must not cost the edit: save first, then raise it
+            failed_to_show = exc
         # every edit is a change of what this screen last read or saved: that is the base of the save
         saved = self._save(dataclasses.replace(new, revision=old.revision, loaded=old.loaded), message)
         if saved is None:
             self._tell(self._early, self.results, changed)  # back to what the file holds
-            return False
+        taken = saved is not None and self._take(saved, shown, fresh, changed, message, remember, start)
+        if failed_to_show is not None:
+            raise failed_to_show
+        return taken
+
+    def _take(self, saved: Saved, shown: Results, fresh: dict[str, StageResult], changed: set[str], message: str,
+              remember: bool, start: float) -> bool:
+        """After a save: the state this screen holds becomes the file's, and the listeners are told."""
         new = saved.interpretation
         also = self._merged_stages(saved.merged) - changed
         fresh.update({sid: self._analyse(sid, new) for sid in also})

@@ -312,3 +312,19 @@ def test_a_drop_repaints_no_curve_and_sends_few_changes(wb: LiveWorkbook) -> Non
     wb.bokeh._send_patch = lambda events: sent.append(events)  # type: ignore[method-assign]
     _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})
     assert len(sent) == 1 and 0 < len(sent[0]) <= 8, [(type(e.model).__name__, e.attr) for e in sent[0]]
+
+
+def test_a_fault_in_drawing_before_the_save_does_not_cost_the_edit(example_copy: Path) -> None:
+    from kernels_helpers.controller import Controller
+    from kernels_helpers.interpretation import load_interpretation
+
+    c = Controller(example_copy, author="T. Tester")
+
+    def broken(results, changed) -> None:
+        raise RuntimeError("drawing failed")
+    c.show_before_save(broken)
+    with pytest.raises(RuntimeError, match="drawing failed"):
+        c.move_peak(STAGE, 4.0)
+    assert load_interpretation(c.path).decision(STAGE).peak.source == "manual"  # saved all the same
+    assert c.stage(STAGE).peak_source == "manual" and len(c.history) == 1  # and the screen's state is the file's
+    assert c.results.to_json() == interpret(c.project, c.path).to_json()
