@@ -305,6 +305,13 @@ def _open(args: argparse.Namespace) -> int:
     data_path = os.pathsep.join(p for p in (str(kernels), os.environ.get("JUPYTER_PATH", "")) if p)
     server = subprocess.Popen(cmd, cwd=project.root, env={**os.environ, "JUPYTER_TOKEN": token,
                                                           "JUPYTER_PATH": data_path})
+    # a TERM sent to this command alone (a process manager, `kill`) stops its server too: never an orphan
+    # server holding the port and its kernels
+    import signal
+    import threading
+
+    forward = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, lambda signum, _: server.send_signal(signum)) if forward else None
     try:
         if _wait_until_serving(f"{url}?token={token}", server):
             print(f"Workbook: {url}?token={token}\nStop the server with Ctrl+C.", flush=True)
@@ -314,6 +321,8 @@ def _open(args: argparse.Namespace) -> int:
     finally:
         import shutil
 
+        if forward:
+            signal.signal(signal.SIGTERM, previous)
         shutil.rmtree(settings, ignore_errors=True)
         shutil.rmtree(kernels, ignore_errors=True)
 

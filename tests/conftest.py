@@ -6,6 +6,7 @@ import os
 import shutil
 import tempfile
 from collections.abc import Iterator
+from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
@@ -26,6 +27,27 @@ def example_copy(tmp_path: Path) -> Path:
     dst = tmp_path / "example_project"
     shutil.copytree(EXAMPLE, dst, ignore=shutil.ignore_patterns("*.ipynb", "records"))
     return dst
+
+
+@dataclass(frozen=True)
+class ExampleRecord:
+    """A record of an unchanged copy of the example project, and its readings' bytes before the record."""
+
+    project: Path
+    path: Path
+    readings_before: dict[str, bytes]
+
+
+@pytest.fixture(scope="session")
+def example_record(tmp_path_factory: pytest.TempPathFactory) -> ExampleRecord:
+    """One record of the unchanged example project per test process (a record takes seconds), only read by the
+    tests that take it: a test that changes the project or the record makes its own."""
+    from kernels_helpers.record import write_record
+
+    root = tmp_path_factory.mktemp("example_record") / "example_project"
+    shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+    before = {p.name: p.read_bytes() for p in (root / "readings").iterdir()}
+    return ExampleRecord(root, write_record(root, root / "records" / "record.html").path, before)
 
 
 @pytest.fixture(scope="session")

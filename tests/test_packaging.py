@@ -131,6 +131,20 @@ def _free_port() -> int:
         return int(s.getsockname()[1])
 
 
+def _session_processes(session: int) -> list[str]:
+    """The live processes of a session (Linux /proc): the command lines of those still running in it."""
+    found = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+            cmdline = (stat.parent / "cmdline").read_bytes().replace(b"\0", b" ").decode(errors="replace")
+        except OSError:
+            continue
+        if int(fields[3]) == session and fields[0] != "Z":  # fields[3]: the session id
+            found.append(cmdline.strip())
+    return found
+
+
 def _open_starts(env: Path, project: Path) -> None:
     """``shearbook open`` copies the workbook, serves it, and prints only its own two lines."""
     port = _free_port()
@@ -156,9 +170,13 @@ def _open_starts(env: Path, project: Path) -> None:
         defaults = {k: v.get("default") for k, v in answer["schema"]["properties"].items()}  # overrides set these
         assert defaults["fetchNews"] == "false" and defaults["checkForUpdates"] is False, defaults
     finally:
-        os.killpg(server.pid, signal.SIGTERM)
+        server.send_signal(signal.SIGTERM)  # to the command alone, as a process manager or `kill PID` does
         server.wait(timeout=60)
+        left = _session_processes(server.pid)  # its JupyterLab and kernels went with it: no orphan holds the port
+        if left:  # (an orphan would also hold the pipes open: reading them would never end)
+            os.killpg(server.pid, signal.SIGKILL)
         out, err = server.stdout.read(), server.stderr.read()  # read(), not communicate(): readline() buffered
+    assert left == [], left
     assert out == "Stop the server with Ctrl+C.\n"
     assert [line for line in err.splitlines() if "received signal 15" not in line and "Shutting down" not in line
             and "kernel" not in line.lower()] == [f"Starting JupyterLab on {project} ..."]

@@ -6,6 +6,7 @@ import json
 import os
 import re
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import nbformat
 import pytest
@@ -15,6 +16,9 @@ from kernels_helpers.errors import InterpretationFileError, RecordError
 from kernels_helpers.interpretation import Interpretation, StageDecision
 from kernels_helpers.record import execute_workbook, network_references, write_record
 from kernels_helpers.resources import workbook_template
+
+if TYPE_CHECKING:
+    from conftest import ExampleRecord
 
 pytestmark = pytest.mark.notebook
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"  # the bundled project: a record must not change it
@@ -27,10 +31,8 @@ def _embedded(html_text: str, name: str) -> dict:
 
 
 @pytest.fixture(scope="module")
-def record(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, str]:
-    out = tmp_path_factory.mktemp("record") / "record.html"
-    rec = write_record(EXAMPLE, out)
-    return rec.path, rec.path.read_text(encoding="utf-8")
+def record(example_record: ExampleRecord) -> tuple[Path, str]:
+    return example_record.path, example_record.path.read_text(encoding="utf-8")
 
 
 def test_template_executes_headless_without_error(example_copy: Path) -> None:
@@ -116,10 +118,9 @@ def test_failed_cell_stops_the_export(example_copy: Path, tmp_path: Path) -> Non
     assert not out.exists()
 
 
-def test_record_does_not_touch_the_raw_readings(example_copy: Path, tmp_path: Path) -> None:
-    before = {p: p.read_bytes() for p in (example_copy / "readings").iterdir()}
-    write_record(example_copy, tmp_path / "r.html")
-    assert {p: p.read_bytes() for p in (example_copy / "readings").iterdir()} == before
+def test_record_does_not_touch_the_raw_readings(example_record: ExampleRecord) -> None:
+    after = {p.name: p.read_bytes() for p in (example_record.project / "readings").iterdir()}
+    assert example_record.path.is_file() and after == example_record.readings_before
 
 
 def _kernels_of_this_process() -> list[int]:
@@ -147,8 +148,9 @@ def test_a_bad_interpretation_file_stops_the_export_and_the_kernel(example_copy:
     assert _kernels_of_this_process() == []
 
 
-def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_copy: Path, tmp_path: Path) -> None:
-    write_record(example_copy, tmp_path / "r.html")
+def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_record: ExampleRecord,
+                                                                     example_copy: Path, tmp_path: Path) -> None:
+    assert example_record.path.is_file()  # a record was written by this process
     assert _kernels_of_this_process() == []
     nb = nbformat.read(workbook_template(), as_version=4)
     nb.cells.insert(3, nbformat.v4.new_code_cell("raise RuntimeError('early')"))

@@ -8,12 +8,16 @@ import os
 import re
 import shutil
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 from PIL import Image, ImageStat
 from synthetic import PAYLOAD, hostile_project
 
 from kernels_helpers.record import write_record
+
+if TYPE_CHECKING:
+    from conftest import ExampleRecord
 
 pytestmark = pytest.mark.browser
 
@@ -29,8 +33,8 @@ def _plot_png(page, name: str) -> bytes:
     return page.screenshot(clip=box)
 
 
-def test_record_renders_offline_with_plots(browser, example_copy: Path, artifacts: Path) -> None:
-    record = write_record(example_copy, artifacts / "record-report.html").path
+def test_record_renders_offline_with_plots(browser, example_record: ExampleRecord, artifacts: Path) -> None:
+    record = Path(shutil.copy(example_record.path, artifacts / "record-report.html"))  # a record is one file
     outside: list[str] = []
 
     def block(route) -> None:
