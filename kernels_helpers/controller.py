@@ -38,7 +38,6 @@ from .stage_checks import consolidation_of
 __all__ = ["Controller"]
 
 Listener = Callable[[Results, frozenset[str]], None]
-Pick = PickKind  # the picks an edit moves
 
 
 class Controller:
@@ -207,7 +206,7 @@ class Controller:
         return self._edit(lambda i: i.with_residual(stage_id, pass_no, lo, hi, self.author), stage_id,
                           f"{stage_id}: residual picked on pass {pass_no}, {lo:.3f}-{hi:.3f} mm")
 
-    def back_to_suggestion(self, stage_id: str, pick: Pick) -> bool:
+    def back_to_suggestion(self, stage_id: str, pick: PickKind) -> bool:
         if getattr(self.interpretation.decision(stage_id), pick).source == "suggested":
             return self._unchanged(f"{stage_id}: the {pick.replace('_', '-')} pick is already the suggestion")
         return self._edit(lambda i: i.back_to_suggestion(stage_id, pick), stage_id,

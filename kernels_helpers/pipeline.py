@@ -185,7 +185,8 @@ class _Picks:
 def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: PickSettings,
            suggested: _Suggested) -> _Picks:
     """The peak and critical-state window in use; a manual pick must lie on the curve."""
-    cs, peak, no_peak = suggested.critical_state, at_point(reduced, suggested.x_peak_mm), suggested.no_peak
+    peak_suggested = at_point(reduced, suggested.x_peak_mm)
+    cs, peak, no_peak = suggested.critical_state, peak_suggested, suggested.no_peak
     window = decision.critical_state
     if window.source == "manual":
         assert window.x_from_mm is not None and window.x_to_mm is not None  # WindowChoice checks it
@@ -193,12 +194,11 @@ def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: P
         _on_curve(reduced, spec, "critical-state window", lo, hi)
         cs = _manual(spec, "critical-state window", lambda: over_window(reduced, lo, hi, p))
     chosen = decision.peak
-    peak_in_use = peak
     if chosen.source == "manual":
         assert chosen.x_mm is not None  # PeakChoice checks it
         _on_curve(reduced, spec, "peak", chosen.x_mm)
-        peak_in_use, no_peak = at_point(reduced, chosen.x_mm), None  # the engineer picked a peak on purpose
-    return _Picks(peak, peak_in_use, no_peak, suggested.critical_state, cs)
+        peak, no_peak = at_point(reduced, chosen.x_mm), None  # the engineer picked a peak on purpose
+    return _Picks(peak_suggested, peak, no_peak, suggested.critical_state, cs)
 
 
 @dataclasses.dataclass(frozen=True)
