@@ -269,3 +269,18 @@ def test_the_length_check_counts_a_long_function(tmp_path: Path) -> None:
     sample = tmp_path / "sample.py"
     sample.write_text("def short():\n    return 1\n\n\ndef long():\n" + "    x = 1\n" * 60, encoding="utf-8")
     assert _long_functions(sample, 50) == ["long (61 lines)"]
+
+
+ROOT = PACKAGE_DIR.parent
+# the design card's top level, and the dot-files of the tools (CI entry, git's ignore list)
+TOP_LEVEL = {"README.md", "DEVELOPERS.md", "pyproject.toml", "workbook", "kernels_helpers", "tests",
+             "example_project", "LICENSE", ".ci", ".gitignore"}
+
+
+@pytest.mark.skipif(not (ROOT / ".git").exists(), reason="the installed package has no checkout to list")
+def test_the_checkout_holds_the_design_card_s_top_level_and_nothing_else() -> None:
+    """A stray file committed at the top (a downloaded wheel, a plot saved by a script read from stdin) fails."""
+    tracked = subprocess.run(["git", "ls-files"], cwd=ROOT, capture_output=True, text=True, check=True).stdout
+    top = {line.split("/", 1)[0] for line in tracked.splitlines() if line}
+    assert top - TOP_LEVEL == set(), f"files at the top of the checkout outside the design card: {top - TOP_LEVEL}"
+    assert TOP_LEVEL - top == set(), f"the design card's top level is missing: {TOP_LEVEL - top}"
