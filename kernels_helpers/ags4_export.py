@@ -186,12 +186,12 @@ def _rate_mm_min(st: StageResult) -> float | None:
 
 
 def _shbt_row(st: StageResult, spec: StageSpec, s: SampleSpec, settings: Mapping[str, Any]) -> dict[str, Any]:
-    sp, p, cs, curve = spec.specimen, st.peak, st.critical_state, st.reduced.curve
+    sp, p, cs, curve = spec.specimen, st.peak.chosen, st.critical_state.chosen, st.reduced.curve
     rho_d = sp.dry_mass_g / (sp.area0_mm2 * sp.height_mm) * 1000.0  # g/mm3 -> Mg/m3
     by_ratio = settings["picks"].get("peak_rule") == "ratio"
     rule = "maximum stress ratio tau/sigma'" if by_ratio else "maximum shear stress"
-    crit = (f"peak: {rule} (suggested)" if st.peak_source == "suggested" else "peak: picked by the engineer") + (
-        f"; critical state: mean over {cs.x_from_mm:.2f}-{cs.x_to_mm:.2f} mm ({st.critical_state_source})")
+    crit = (f"peak: {rule} (suggested)" if st.peak.source == "suggested" else "peak: picked by the engineer") + (
+        f"; critical state: mean over {cs.x_from_mm:.2f}-{cs.x_to_mm:.2f} mm ({st.critical_state.source})")
     remark = [f"critical state tau {cs.tau_kpa:.1f} kPa at sigma' {cs.sigma_kpa:.1f} kPa (tau/sigma' {cs.ratio:.3f}, "
               f"phi' secant {math.degrees(math.atan(cs.ratio)):.1f} deg, e {cs.e:.3f}, dy/dx {cs.dydx:.4f})"]
     if st.no_distinct_peak:
@@ -210,7 +210,7 @@ def _shbt_row(st: StageResult, spec: StageSpec, s: SampleSpec, settings: Mapping
     }
     if st.passes:
         row["SHBT_REVS"] = float(len(st.passes))
-    r = st.residual
+    r = None if st.residual is None else st.residual.chosen
     if r is not None and r.reached and r.passes is not None:
         last = r.passes[1]
         row |= {"SHBT_RES": r.tau_kpa, "SHBT_RVST": r.sigma_kpa,

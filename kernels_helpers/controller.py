@@ -135,7 +135,7 @@ class Controller:
                 and choice.x_to_mm is not None:
             return choice.pass_no, choice.x_from_mm, choice.x_to_mm
         forward = [p.pass_no for p in s.passes if p.forward]
-        suggested = s.residual_suggested
+        suggested = s.residual.suggested
         pass_no = (suggested.passes[1] if suggested is not None and suggested.passes
                    else (forward[-1] if forward else None))
         if pass_no is None:
@@ -160,7 +160,7 @@ class Controller:
     def move_peak(self, stage_id: str, x_mm: float) -> bool:
         """A manual peak at the reading nearest ``x_mm``; no change if that is the current peak."""
         x = self._snap(stage_id, float(x_mm))
-        if x == self.stage(stage_id).peak.x_mm:
+        if x == self.stage(stage_id).peak.chosen.x_mm:
             return self._unchanged(f"{stage_id}: the peak is already at {x:.3f} mm")
         if (why := self._reason_check(stage_id)) is not None:
             return self._refuse(why)
@@ -171,7 +171,7 @@ class Controller:
     def set_window(self, stage_id: str, x_from_mm: float, x_to_mm: float) -> bool:
         """A manual critical-state window, its ends snapped to the nearest readings."""
         lo, hi = sorted(self._snap(stage_id, float(v)) for v in (x_from_mm, x_to_mm))
-        cs = self.stage(stage_id).critical_state
+        cs = self.stage(stage_id).critical_state.chosen
         if (lo, hi) == (cs.x_from_mm, cs.x_to_mm):
             return self._unchanged(f"{stage_id}: the critical-state window is already {lo:.3f}-{hi:.3f} mm")
         if (why := self._reason_check(stage_id)) is not None:

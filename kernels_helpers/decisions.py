@@ -28,22 +28,22 @@ from .signatures import Digests, StepSignature
 
 __all__ = [
     "INTERPRETATION_FILE",
+    "PICK_PLACE",
     "SCHEMA",
     "SCHEMA_VERSION",
     "DesignChoices",
     "DesignKind",
     "FitSettings",
     "Interpretation",
-    "PeakChoice",
+    "Pick",
+    "PickError",
     "PickKind",
-    "ResidualChoice",
     "Settings",
     "SignOff",
     "SignOffState",
     "SignOffStep",
     "Source",
     "StageDecision",
-    "WindowChoice",
     "utc_now",
 ]
 
@@ -113,69 +113,86 @@ class Settings:
     rate: RateSettings = field(default_factory=RateSettings)
 
 
-def _window_in_order(x_from_mm: float | None, x_to_mm: float | None, what: str) -> None:
-    # a window of one value passes here and is refused where the readings are known ("needs at least 5 readings")
-    if x_from_mm is not None and x_to_mm is not None and x_from_mm > x_to_mm:
-        raise ValueError(f"a {what} runs from the smaller to the larger displacement: x_from_mm {x_from_mm!r} is "
-                         f"more than x_to_mm {x_to_mm!r}; swap them")
+# where each kind of pick lies on its curve: the peak at one displacement, the critical state over a window,
+# the residual over a window on one forward pass of a reversal test. These are a pick's keys in the file.
+PICK_PLACE: Final[Mapping[PickKind, tuple[str, ...]]] = {
+    "peak": ("x_mm",),
+    "critical_state": ("x_from_mm", "x_to_mm"),
+    "residual": ("pass_no", "x_from_mm", "x_to_mm"),
+}
+_PICK_WORDS: Final[Mapping[PickKind, str]] = {"peak": "peak pick", "critical_state": "critical-state window",
+                                              "residual": "residual pick"}
+
+
+class PickError(ValueError):
+    """Picks break rules of their kind: each problem with its key below the stage (``("peak",)``,
+    ``("peak", "x_from_mm")``) and its sentence; the file's reader reports each one where it is."""
+
+    def __init__(self, problems: tuple[tuple[tuple[str, ...], str], ...]) -> None:
+        super().__init__("; ".join(message for _, message in problems))
+        self.problems = problems
 
 
 @dataclass(frozen=True)
-class PeakChoice:
-    """The peak pick of a stage: the suggestion, or a manual displacement (mm) with who, when, why."""
+class Pick:
+    """One pick on a stage's curve (peak, critical state or residual): where, from which source, who, when, why.
+
+    Where is the peak's displacement ``x_mm`` or a window ``x_from_mm``-``x_to_mm`` (mm), on forward pass
+    ``pass_no`` for the residual of a reversal test; a pick of one kind leaves the others' places None
+    (:data:`PICK_PLACE`, checked by :meth:`check`). ``source`` "suggested" takes the rule's pick and no place;
+    "manual" is the engineer's, with ``author``, ``time_utc`` and the reason in ``note``.
+    """
 
     __pydantic_config__ = STRICT_FILE
 
     source: Source = "suggested"
     x_mm: float | None = None
-    author: str = ""
-    time_utc: str = ""
-    note: str = ""
-
-    def __post_init__(self) -> None:
-        if self.source == "manual" and self.x_mm is None:
-            raise ValueError("a manual peak pick needs x_mm")
-
-
-@dataclass(frozen=True)
-class WindowChoice:
-    """The critical-state pick: the suggested window, or a manual one (mm) with who, when, why."""
-
-    __pydantic_config__ = STRICT_FILE
-
-    source: Source = "suggested"
     x_from_mm: float | None = None
     x_to_mm: float | None = None
-    author: str = ""
-    time_utc: str = ""
-    note: str = ""
-
-    def __post_init__(self) -> None:
-        if self.source == "manual" and (self.x_from_mm is None or self.x_to_mm is None):
-            raise ValueError("a manual critical-state window needs x_from_mm and x_to_mm")
-        _window_in_order(self.x_from_mm, self.x_to_mm, "critical-state window")
-
-
-@dataclass(frozen=True)
-class ResidualChoice:
-    """The residual pick of a reversal test: the rule's suggestion, or a manual window on one pass (mm)."""
-
-    __pydantic_config__ = STRICT_FILE
-
-    source: Source = "suggested"
     pass_no: int | None = None
-    x_from_mm: float | None = None
-    x_to_mm: float | None = None
     author: str = ""
     time_utc: str = ""
     note: str = ""
 
-    def __post_init__(self) -> None:
-        if self.source == "manual" and (self.pass_no is None or self.x_from_mm is None or self.x_to_mm is None):
-            raise ValueError("a manual residual pick needs pass_no, x_from_mm and x_to_mm")
+    @classmethod
+    def at(cls, x_mm: float, author: str, note: str = "") -> Pick:
+        """A manual pick at one displacement (the peak), stamped now."""
+        return cls("manual", x_mm=float(x_mm), author=author, time_utc=utc_now(), note=note)
+
+    @classmethod
+    def over(cls, x_from_mm: float, x_to_mm: float, author: str, note: str = "", pass_no: int | None = None) -> Pick:
+        """A manual pick over a window, in either order (critical state; the residual on ``pass_no``), stamped now."""
+        lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
+        return cls("manual", x_from_mm=lo, x_to_mm=hi, pass_no=None if pass_no is None else int(pass_no),
+                   author=author, time_utc=utc_now(), note=note)
+
+    def check(self, kind: PickKind) -> None:
+        """Raise :class:`PickError` unless this is a well-formed pick of ``kind``."""
+        place = PICK_PLACE[kind]
+        for name in ("x_mm", "x_from_mm", "x_to_mm", "pass_no"):
+            if name not in place and getattr(self, name) is not None:
+                known = ", ".join(pick_keys(kind))
+                raise PickError((((kind, name), f"unknown key {name!r}; known keys here: {known}"),))
+        words = _PICK_WORDS[kind]
+        if self.source == "manual" and any(getattr(self, name) is None for name in place):
+            raise PickError((((kind,), f"a manual {words} needs {' and '.join(', '.join(place).rsplit(', ', 1))}"),))
         if self.pass_no is not None and self.pass_no < 1:
-            raise ValueError(f"pass_no counts forward passes from 1, not {self.pass_no!r}")
-        _window_in_order(self.x_from_mm, self.x_to_mm, "residual window")
+            raise PickError((((kind,), f"pass_no counts forward passes from 1, not {self.pass_no!r}"),))
+        lo, hi = self.x_from_mm, self.x_to_mm
+        # a window of one value passes here and is refused where the readings are known ("needs at least 5 readings")
+        if lo is not None and hi is not None and lo > hi:
+            what = "critical-state window" if kind == "critical_state" else "residual window"
+            raise PickError((((kind,), f"a {what} runs from the smaller to the larger displacement: x_from_mm "
+                                       f"{lo!r} is more than x_to_mm {hi!r}; swap them"),))
+
+    def to_dict(self, kind: PickKind) -> dict[str, Any]:
+        """The file's form of a pick of ``kind``: its own place keys only."""
+        return {k: getattr(self, k) for k in pick_keys(kind)}
+
+
+def pick_keys(kind: PickKind) -> tuple[str, ...]:
+    """The keys of a pick of ``kind`` in the interpretation file, sorted."""
+    return tuple(sorted(("source", "author", "time_utc", "note", *PICK_PLACE[kind])))
 
 
 @dataclass(frozen=True)
@@ -187,9 +204,9 @@ class StageDecision:
     included: bool = True
     exclusion_reason: str = ""
     note: str = ""
-    peak: PeakChoice = field(default_factory=PeakChoice)
-    critical_state: WindowChoice = field(default_factory=WindowChoice)
-    residual: ResidualChoice = field(default_factory=ResidualChoice)
+    peak: Pick = field(default_factory=Pick)
+    critical_state: Pick = field(default_factory=Pick)
+    residual: Pick = field(default_factory=Pick)
     author: str = ""  # who last changed the inclusion or the note
     time_utc: str = ""
     # a critical state flagged "not reached" is left out of the critical-state envelope and line unless put
@@ -198,11 +215,29 @@ class StageDecision:
     critical_state_reason: str = ""
 
     def __post_init__(self) -> None:
+        problems: list[tuple[tuple[str, ...], str]] = []
+        for kind in PICK_PLACE:
+            try:
+                self.pick(kind).check(kind)
+            except PickError as exc:
+                problems.extend(exc.problems)
+        if problems:
+            raise PickError(tuple(problems))
         if not self.included and not self.exclusion_reason.strip():
             raise ValueError("a stage can only be excluded with a stated reason")
         if self.critical_state_used and not self.critical_state_reason.strip():
             raise ValueError("a critical state that was not reached can only be put back in the fit with a stated "
                              "reason")
+
+    def pick(self, kind: PickKind) -> Pick:
+        """The pick of one kind."""
+        pick: Pick = getattr(self, kind)
+        return pick
+
+    def to_dict(self) -> dict[str, Any]:
+        """The file's form: each pick with its own place keys only."""
+        out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name not in PICK_PLACE}
+        return {**out, **{kind: self.pick(kind).to_dict(kind) for kind in PICK_PLACE}}
 
 
 @dataclass(frozen=True)
@@ -295,23 +330,20 @@ class Interpretation:
 
     def with_peak(self, stage_id: str, x_mm: float, author: str, note: str = "") -> Interpretation:
         """A manual peak at displacement ``x_mm`` (it snaps to the nearest reading)."""
-        return self._edit(stage_id, peak=PeakChoice("manual", float(x_mm), author, utc_now(), note))
+        return self._edit(stage_id, peak=Pick.at(x_mm, author, note))
 
     def with_critical_state(self, stage_id: str, x_from_mm: float, x_to_mm: float, author: str,
                             note: str = "") -> Interpretation:
         """A manual critical-state window from ``x_from_mm`` to ``x_to_mm``."""
-        lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
-        return self._edit(stage_id, critical_state=WindowChoice("manual", lo, hi, author, utc_now(), note))
+        return self._edit(stage_id, critical_state=Pick.over(x_from_mm, x_to_mm, author, note))
 
     def with_residual(self, stage_id: str, pass_no: int, x_from_mm: float, x_to_mm: float, author: str,
                       note: str = "") -> Interpretation:
         """A manual residual pick: the mean |tau| over ``x_from_mm``-``x_to_mm`` on forward pass ``pass_no``."""
-        lo, hi = sorted((float(x_from_mm), float(x_to_mm)))
-        return self._edit(stage_id, residual=ResidualChoice("manual", int(pass_no), lo, hi, author, utc_now(), note))
+        return self._edit(stage_id, residual=Pick.over(x_from_mm, x_to_mm, author, note, pass_no))
 
     def back_to_suggestion(self, stage_id: str, pick: PickKind) -> Interpretation:
-        fresh = {"peak": PeakChoice, "critical_state": WindowChoice, "residual": ResidualChoice}[pick]()
-        return self._edit(stage_id, **{pick: fresh})
+        return self._edit(stage_id, **{pick: Pick()})
 
     def excluded(self, stage_id: str, reason: str, author: str) -> Interpretation:
         """Exclude a stage from the envelopes; a reason is required. It stays visible, greyed."""
@@ -365,7 +397,7 @@ class Interpretation:
             "schema_version": SCHEMA_VERSION,
             "revision": self.revision,
             "settings": dataclasses.asdict(self.settings),
-            "stages": {k: dataclasses.asdict(v) for k, v in sorted(self.stages.items())},
+            "stages": {k: v.to_dict() for k, v in sorted(self.stages.items())},
             "raw_files": dict(sorted(self.raw_files.items())),
             "signoff": {"state": self.signoff.state, "history": [dict(h) for h in self.signoff.history]},
             "design": dataclasses.asdict(self.design),

@@ -105,7 +105,8 @@ def critical_state_lines(envelopes: Iterable[EnvelopeResult],
             continue
         ss = [by_id[i] for i in env.stage_ids]
         out.append(fit_critical_state_line(env.stage_ids, [s.test_set for s in ss],
-                                           [s.critical_state.sigma_kpa for s in ss], [s.critical_state.e for s in ss],
+                                           [s.critical_state.chosen.sigma_kpa for s in ss],
+                                           [s.critical_state.chosen.e for s in ss],
                                            [s.reduced.e_start for s in ss], env.group))
     return tuple(out)
 
@@ -115,10 +116,10 @@ def dilatancy(stages: Sequence[StageResult],
     """Stress-dilatancy angles of every stage (Bolton's index only where I_D is given)."""
     out = []
     for s in stages:
-        distinct = not (s.no_distinct_peak and s.peak_source == "suggested")
-        peak = (s.peak.ratio, s.peak.dydx, s.peak.sigma_kpa) if distinct else None
+        distinct = not (s.no_distinct_peak and s.peak.source == "suggested")
+        peak = (s.peak.chosen.ratio, s.peak.chosen.dydx, s.peak.chosen.sigma_kpa) if distinct else None
         i_d = relative_density.get(s.stage_id, relative_density.get(s.stage_id.split("/")[0]))  # "T/2": of test T
-        cs = s.critical_state
+        cs = s.critical_state.chosen
         out.append(stage_dilatancy(s.stage_id, peak, (cs.ratio, cs.dydx, cs.sigma_kpa), i_d))
     return tuple(out)
 

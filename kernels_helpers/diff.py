@@ -64,29 +64,30 @@ def _stage_lines(a: StageResult, b: StageResult, residual_note: str = "") -> lis
                      else f"{sid}: restored to the envelopes")
     elif not b.included and a.exclusion_reason != b.exclusion_reason:
         lines.append(f"{sid}: reason for exclusion changed to \"{b.exclusion_reason}\"")
-    pa, pb = a.peak, b.peak
-    if (a.peak_source, pa.index) != (b.peak_source, pb.index):
+    pa, pb = a.peak.chosen, b.peak.chosen
+    if (a.peak.source, pa.index) != (b.peak.source, pb.index):
         lines.append(
-            f"{sid}: peak {a.peak_source} at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) -> {b.peak_source} at "
+            f"{sid}: peak {a.peak.source} at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) -> {b.peak.source} at "
             f"x = {pb.x_mm:.2f} mm (tau {pb.tau_kpa:.1f} kPa): moved {pb.x_mm - pa.x_mm:+.2f} mm, "
-            f"tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa" + (f"; note: {b.peak_note}" if b.peak_note else "")
+            f"tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa" + (f"; note: {b.peak.note}" if b.peak.note else "")
         )
-    ca, cb = a.critical_state, b.critical_state
-    if (a.critical_state_source, ca.x_from_mm, ca.x_to_mm) != (b.critical_state_source, cb.x_from_mm, cb.x_to_mm):
+    ca, cb = a.critical_state.chosen, b.critical_state.chosen
+    if (a.critical_state.source, ca.x_from_mm, ca.x_to_mm) != (b.critical_state.source, cb.x_from_mm, cb.x_to_mm):
         lines.append(
-            f"{sid}: critical-state window {a.critical_state_source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm "
+            f"{sid}: critical-state window {a.critical_state.source} {ca.x_from_mm:.2f}-{ca.x_to_mm:.2f} mm "
             f"(tau {ca.tau_kpa:.1f} kPa)"
-            f" -> {b.critical_state_source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
+            f" -> {b.critical_state.source} {cb.x_from_mm:.2f}-{cb.x_to_mm:.2f} mm (tau {cb.tau_kpa:.1f} kPa): "
             f"tau {cb.tau_kpa - ca.tau_kpa:+.1f} kPa"
-            + (f"; note: {b.critical_state_note}" if b.critical_state_note else "")
+            + (f"; note: {b.critical_state.note}" if b.critical_state.note else "")
         )
     if (a.critical_state_used, a.critical_state_reason) != (b.critical_state_used, b.critical_state_reason):
         lines.append(f"{sid}: critical state not reached, put back in the critical-state fit: "
                      f"\"{b.critical_state_reason}\"" if b.critical_state_used
                      else f"{sid}: critical state not reached, left out of the critical-state fit again")
-    ra, rb = a.residual, b.residual
-    if a.residual_source != b.residual_source or (ra and ra.tau_kpa) != (rb and rb.tau_kpa):
-        lines.append(f"{sid}: residual {a.residual_source} ({_residual(ra)}) -> {b.residual_source} ({_residual(rb)})"
+    ra, rb = (None if x.residual is None else x.residual.chosen for x in (a, b))
+    sa, sb = ("suggested" if x.residual is None else x.residual.source for x in (a, b))
+    if sa != sb or (ra and ra.tau_kpa) != (rb and rb.tau_kpa):
+        lines.append(f"{sid}: residual {sa} ({_residual(ra)}) -> {sb} ({_residual(rb)})"
                      + (f"; note: {residual_note}" if residual_note else ""))
     if a.note != b.note:
         lines.append(f"{sid}: note changed to \"{b.note}\"" if b.note else f"{sid}: note removed")

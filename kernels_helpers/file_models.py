@@ -26,8 +26,18 @@ from typing import Annotated, Any, Final, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator
 
+from .decisions import (
+    PICK_PLACE,
+    SCHEMA_VERSION,
+    DesignChoices,
+    Pick,
+    PickError,
+    Settings,
+    SignOff,
+    StageDecision,
+    pick_keys,
+)
 from .decisions import SCHEMA as INTERPRETATION_SCHEMA
-from .decisions import SCHEMA_VERSION, DesignChoices, Settings, SignOff, StageDecision
 
 __all__ = ["Problem", "check_interpretation_data", "check_interpretation_text", "check_project_table", "json_schemas",
            "listing"]
@@ -345,14 +355,38 @@ def _allowed(error: Mapping[str, Any]) -> str:
     return ""
 
 
+def _known_keys(root: Any, loc: Sequence[int | str]) -> list[str]:
+    """The keys allowed at ``loc``; for a pick, those of its kind (the peak's place is not a window's)."""
+    holder = _unwrap(_type_at(root, loc))
+    if holder is Pick and loc:
+        for kind in PICK_PLACE:
+            if loc[-1] == kind:
+                return list(pick_keys(kind))
+    return sorted(_field_types(holder))
+
+
+def _each_pick_problem(errors: Sequence[Any]) -> list[Any]:
+    """The errors with a stage's pick problems (one :class:`PickError`) split into one each, at its key."""
+    out = []
+    for error in errors:
+        cause = (error.get("ctx") or {}).get("error")
+        if not isinstance(cause, PickError):
+            out.append(error)
+            continue
+        # a place key of another kind is named by its rule as unknown, with the keys of this kind (a "did you
+        # mean" would offer the nearest spelling, when the key is right for another kind of pick)
+        out.extend({**error, "msg": message, "loc": (*error["loc"], *key)} for key, message in cause.problems)
+    return out
+
+
 def _problems(exc: ValidationError, root: Any, file: str, prefix: Sequence[int | str] = ()) -> list[Problem]:
     out = []
-    for error in exc.errors(include_url=False):
+    for error in _each_pick_problem(exc.errors(include_url=False)):
         loc = tuple(part for part in error["loc"] if not str(part).startswith("function-"))
         where = _path((*prefix, *loc))
         kind, value = error["type"], error.get("input")
         if kind in ("extra_forbidden", "unexpected_keyword_argument"):
-            known = sorted(_field_types(_type_at(root, loc[:-1])))
+            known = _known_keys(root, loc[:-1])
             near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
             hint = f"did you mean {near[0]}?" if near else f"known keys here: {', '.join(known)}"
             out.append(Problem(file, where, f"unknown key {str(loc[-1])!r}; {hint}"))
@@ -424,9 +458,25 @@ def json_schemas() -> dict[str, dict[str, Any]]:
     return {
         "project.schema.json": {**_PROJECT.json_schema(by_alias=True), "$id": PROJECT_SCHEMA,
                                 "title": "Shearbook project file (project.toml)"},
-        "interpretation.schema.json": {**_INTERPRETATION.json_schema(by_alias=True), "$id": INTERPRETATION_SCHEMA,
+        "interpretation.schema.json": {**_picks_by_kind(_INTERPRETATION.json_schema(by_alias=True)),
+                                       "$id": INTERPRETATION_SCHEMA,
                                        "title": "Shearbook interpretation file (interpretation.json)"},
     }
+
+
+def _picks_by_kind(schema: dict[str, Any]) -> dict[str, Any]:
+    """The schema with one definition per kind of pick, holding that kind's keys only (as the reader checks)."""
+    defs = dict(schema["$defs"])
+    pick = defs.pop("Pick")
+    stage = dict(defs["StageDecision"])
+    properties = dict(stage["properties"])
+    for kind in PICK_PLACE:
+        name = "".join(word.title() for word in kind.split("_")) + "Pick"
+        defs[name] = {**pick, "title": name,
+                      "properties": {k: v for k, v in pick["properties"].items() if k in pick_keys(kind)}}
+        properties[kind] = {"$ref": f"#/$defs/{name}"}
+    defs["StageDecision"] = {**stage, "properties": properties}
+    return {**schema, "$defs": defs}
 
 
 def write_schemas(folder: str | None = None) -> list[str]:

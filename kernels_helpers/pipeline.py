@@ -37,7 +37,7 @@ from .picks import PointValues, WindowValues, at_point, over_window, peak_flags,
 from .project import Project, StageSpec, load_project
 from .readings import StageReadings, read_stage, sha256_of
 from .reduce import ReducedStage, reduce_stage, settlement_of
-from .results import EnvelopeResult, Results, StageResult
+from .results import EnvelopeResult, Results, StagePick, StageResult
 from .reversal import PassStress, Residual, pass_stresses, residual_over_window, residual_strength
 from .sensitivity import leave_one_out
 from .settings import PickSettings
@@ -126,12 +126,8 @@ def analyse_stage(spec: StageSpec, readings: StageReadings, decision: StageDecis
         sha256=readings.sha256, size_bytes=readings.size_bytes, reduced=reduced,
         included=decision.included, exclusion_reason=decision.exclusion_reason, note=decision.note,
         critical_state_used=decision.critical_state_used, critical_state_reason=decision.critical_state_reason,
-        peak_source=decision.peak.source, peak_suggested=picks.peak_suggested, peak=picks.peak,
-        peak_note=decision.peak.note, no_distinct_peak=picks.no_peak,
-        critical_state_source=decision.critical_state.source, critical_state_suggested=picks.critical_state_suggested,
-        critical_state=picks.critical_state, critical_state_note=decision.critical_state.note,
-        passes=residual.passes, residual=residual.residual, residual_suggested=residual.suggested,
-        residual_source=decision.residual.source,
+        peak=picks.peak, no_distinct_peak=picks.no_peak, critical_state=picks.critical_state,
+        passes=residual.passes, residual=residual.residual,
         flags=(*flags, *stale_flags), stale=stale,
         consolidation=checks.consolidation, rate=checks.rate, unreliable=checks.unreliable, corrections=corrections,
     )
@@ -173,13 +169,11 @@ def _suggestions(reduced: ReducedStage, p: PickSettings) -> _Suggested:
 
 @dataclasses.dataclass(frozen=True)
 class _Picks:
-    """The picks in use (the engineer's where manual, else the suggestions) beside the suggestions."""
+    """The peak and the critical state: the suggestions and the picks in use (the engineer's where manual)."""
 
-    peak_suggested: PointValues
-    peak: PointValues
+    peak: StagePick[PointValues]
     no_peak: str | None  # why the curve has no distinct peak (None: it has one, or the engineer picked one)
-    critical_state_suggested: WindowValues
-    critical_state: WindowValues
+    critical_state: StagePick[WindowValues]
 
 
 def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: PickSettings,
@@ -189,16 +183,17 @@ def _picks(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p: P
     cs, peak, no_peak = suggested.critical_state, peak_suggested, suggested.no_peak
     window = decision.critical_state
     if window.source == "manual":
-        assert window.x_from_mm is not None and window.x_to_mm is not None  # WindowChoice checks it
+        assert window.x_from_mm is not None and window.x_to_mm is not None  # Pick.check makes sure
         lo, hi = window.x_from_mm, window.x_to_mm
         _on_curve(reduced, spec, "critical-state window", lo, hi)
         cs = _manual(spec, "critical-state window", lambda: over_window(reduced, lo, hi, p))
     chosen = decision.peak
     if chosen.source == "manual":
-        assert chosen.x_mm is not None  # PeakChoice checks it
+        assert chosen.x_mm is not None  # Pick.check makes sure
         _on_curve(reduced, spec, "peak", chosen.x_mm)
         peak, no_peak = at_point(reduced, chosen.x_mm), None  # the engineer picked a peak on purpose
-    return _Picks(peak_suggested, peak, no_peak, suggested.critical_state, cs)
+    return _Picks(StagePick(chosen.source, peak_suggested, peak, chosen.note), no_peak,
+                  StagePick(window.source, suggested.critical_state, cs, window.note))
 
 
 @dataclasses.dataclass(frozen=True)
@@ -206,8 +201,7 @@ class _ResidualStep:
     """A reversal test's passes and residual strengths; the flag when the suggested residual is not reached."""
 
     passes: tuple[PassStress, ...] = ()
-    residual: Residual | None = None
-    suggested: Residual | None = None
+    residual: StagePick[Residual] | None = None
     flag: str | None = None
 
 
@@ -221,12 +215,13 @@ def _residual(spec: StageSpec, reduced: ReducedStage, decision: StageDecision, p
     suggested = residual_strength(passes, p.residual_tolerance)
     r = decision.residual
     if r.source == "manual":
-        assert r.pass_no is not None and r.x_from_mm is not None and r.x_to_mm is not None  # ResidualChoice checks it
+        assert r.pass_no is not None and r.x_from_mm is not None and r.x_to_mm is not None  # Pick.check makes sure
         pass_no, lo, hi = r.pass_no, r.x_from_mm, r.x_to_mm
         manual = _manual(spec, "residual window",
                          lambda: residual_over_window(x, tau, sigma, labels, pass_no, lo, hi, r.note))
-        return _ResidualStep(passes, manual, suggested)
-    return _ResidualStep(passes, suggested, suggested, None if suggested.reached else suggested.message)
+        return _ResidualStep(passes, StagePick("manual", suggested, manual, r.note))
+    return _ResidualStep(passes, StagePick("suggested", suggested, suggested),
+                         None if suggested.reached else suggested.message)
 
 
 def _checks(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, picks: _Picks, settings: Settings,
@@ -234,7 +229,7 @@ def _checks(spec: StageSpec, readings: StageReadings, reduced: ReducedStage, pic
             ) -> tuple[StageChecks, tuple[Correction, ...], list[str]]:
     """The flags of the picks, of the specimen, spike, normal-load, consolidation and drained-rate checks
     (stage_checks.py) and of the apparatus corrections, in that order."""
-    cs, peak, distinct = picks.critical_state, picks.peak, picks.no_peak is None
+    cs, peak, distinct = picks.critical_state.chosen, picks.peak.chosen, picks.no_peak is None
     flags = list(cs.flags)
     if distinct:
         flags.extend(peak_flags(reduced, peak, settings.picks))
@@ -309,20 +304,20 @@ def pair_flags(stages: tuple[StageResult, ...], ratio_tolerance: float = 0.05, e
                 continue
             if abs(a.sigma_nominal_kpa - b.sigma_nominal_kpa) > 0.1 * max(a.sigma_nominal_kpa, b.sigma_nominal_kpa):
                 continue
-            ca, cb = a.critical_state, b.critical_state
+            ca, cb = a.critical_state.chosen, b.critical_state.chosen
             dr = abs(ca.ratio - cb.ratio) / max(ca.ratio, cb.ratio)
             de = abs(ca.e - cb.e)
             for me, other in ((a, b), (b, a)):
                 if dr > ratio_tolerance:
                     extra[me.stage_id].append(
-                        f"critical-state stress ratio {me.critical_state.ratio:.3f} differs from "
-                        f"{other.critical_state.ratio:.3f} "
+                        f"critical-state stress ratio {me.critical_state.chosen.ratio:.3f} differs from "
+                        f"{other.critical_state.chosen.ratio:.3f} "
                         f"of {other.stage_id} ({other.test_set}) at the same normal stress by {dr * 100:.1f} %: "
                         "dense and loose specimens should reach the same critical state; check both picks")
                 if de > e_tolerance:
                     extra[me.stage_id].append(
-                        f"void ratio at critical state {me.critical_state.e:.3f} differs from "
-                        f"{other.critical_state.e:.3f} of {other.stage_id} "
+                        f"void ratio at critical state {me.critical_state.chosen.e:.3f} differs from "
+                        f"{other.critical_state.chosen.e:.3f} of {other.stage_id} "
                         f"({other.test_set}) by {de:.3f}: the specimen-average void ratio may not represent "
                         "the shear zone, or critical state was not reached")
     return tuple(
@@ -353,7 +348,7 @@ def _stresses(s: StageResult, kind: PickKind) -> tuple[float, float]:
 
 def _envelope(group: str, kind: PickKind, members: list[StageResult], fit: FitSettings) -> EnvelopeResult:
     if kind == "residual":
-        used = [s for s in members if s.included and s.residual is not None and s.residual.reached]
+        used = [s for s in members if s.included and s.residual is not None and s.residual.chosen.reached]
     else:
         used = [s for s in members if s.included and (kind != "peak" or s.no_distinct_peak is None)
                 and (kind != "critical_state" or s.critical_state_left_out is None)]

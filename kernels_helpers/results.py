@@ -11,7 +11,7 @@ import json
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Generic, TypeVar
 
 import numpy as np
 
@@ -29,9 +29,26 @@ from .reduce import ReducedStage
 from .reversal import PassStress, Residual
 
 __all__ = ["DesignResult", "EnvelopeBands", "EnvelopeResult", "EnvelopeStatistics", "LeaveOneOut", "Results",
-           "StageResult", "plain"]
+           "StagePick", "StageResult", "plain"]
 
 RESULTS_SCHEMA = "shearbook.results/1"
+
+V = TypeVar("V", PointValues, WindowValues, Residual)
+
+
+@dataclass(frozen=True)
+class StagePick(Generic[V]):
+    """One pick of a stage, as computed: the rule's suggestion, the pick in use, where it comes from and why.
+
+    ``chosen`` is the engineer's pick where ``source`` is "manual" (``note`` their reason), else the suggestion.
+    The values are :class:`~.picks.PointValues` for the peak, :class:`~.picks.WindowValues` for the critical
+    state and :class:`~.reversal.Residual` for the residual of a reversal test.
+    """
+
+    source: Source
+    suggested: V
+    chosen: V
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -48,21 +65,13 @@ class StageResult:
     included: bool
     exclusion_reason: str
     note: str
-    peak_source: Source
-    peak_suggested: PointValues
-    peak: PointValues
-    peak_note: str
+    peak: StagePick[PointValues]
     no_distinct_peak: str | None  # reason in words, or None when the peak is distinct
-    critical_state_source: Source
-    critical_state_suggested: WindowValues
-    critical_state: WindowValues
-    critical_state_note: str
+    critical_state: StagePick[WindowValues]
     flags: tuple[str, ...]
     stale: bool  # the raw file changed since the interpretation was saved
     passes: tuple[PassStress, ...] = ()  # reversal tests: the stress at the end of every pass
-    residual: Residual | None = None  # reversal tests: the residual strength chosen (suggested or manual)
-    residual_suggested: Residual | None = None  # reversal tests: what the rule suggests
-    residual_source: Source = "suggested"
+    residual: StagePick[Residual] | None = None  # reversal tests: the residual strength (suggested or manual)
     consolidation: ConsolidationResult | None = None  # the consolidation stage's readings, when given
     rate: RateCheck | None = None  # required time to failure against the actual test
     unreliable: tuple[str, ...] = ()  # results that depend on a faulty transducer channel (checks.transducer_flags)
@@ -73,7 +82,7 @@ class StageResult:
     @property
     def critical_state_left_out(self) -> str | None:
         """Why the critical state takes no part in the critical-state envelope and line (None: it does)."""
-        unreached = [f for f in self.critical_state.flags if f.startswith("critical state not reached")]
+        unreached = [f for f in self.critical_state.chosen.flags if f.startswith("critical state not reached")]
         if not unreached or self.critical_state_used:
             return None
         return ("left out of the critical-state envelope and line (" + "; ".join(unreached) + "); put it back "
@@ -85,14 +94,17 @@ class StageResult:
         return self.reduced.normal_force_n / self.reduced.area0_mm2 * 1000.0
 
     def strength(self, kind: PickKind) -> PointValues | WindowValues | Residual | None:
-        """The pick of one kind ("peak", "critical_state", "residual"): its sigma_kpa and tau_kpa."""
-        if kind == "peak":
-            return self.peak
-        if kind == "critical_state":
-            return self.critical_state
-        if kind == "residual":
-            return self.residual
-        raise KeyError(kind)
+        """The values of the pick in use of one kind ("peak", "critical_state", "residual"): its sigma_kpa and
+        tau_kpa (None: a stage that is not a reversal test has no residual)."""
+        pick = self.pick(kind)
+        return None if pick is None else pick.chosen
+
+    def pick(self, kind: PickKind) -> StagePick[Any] | None:
+        """The pick of one kind (None: a stage that is not a reversal test has no residual)."""
+        if kind not in ("peak", "critical_state", "residual"):
+            raise KeyError(kind)
+        pick: StagePick[Any] | None = getattr(self, kind)
+        return pick
 
     def in_group(self, group: str) -> bool:
         """Whether the stage belongs to envelope group ``group``: its test set, or its stratum pooled."""
@@ -318,27 +330,26 @@ class Results:
                     "exclusion_reason": s.exclusion_reason,
                     "note": s.note,
                     "peak": {
-                        "source": s.peak_source,
-                        "note": s.peak_note,
+                        "source": s.peak.source,
+                        "note": s.peak.note,
                         "no_distinct_peak": s.no_distinct_peak,
-                        "suggested": _point(s.peak_suggested),
-                        "chosen": _point(s.peak),
+                        "suggested": _point(s.peak.suggested),
+                        "chosen": _point(s.peak.chosen),
                     },
                     "critical_state": {
-                        "source": s.critical_state_source,
-                        "note": s.critical_state_note,
+                        "source": s.critical_state.source,
+                        "note": s.critical_state.note,
                         "left_out": s.critical_state_left_out,
                         "used_although_not_reached": s.critical_state_reason if s.critical_state_used else None,
-                        "suggested": _window(s.critical_state_suggested),
-                        "chosen": _window(s.critical_state),
+                        "suggested": _window(s.critical_state.suggested),
+                        "chosen": _window(s.critical_state.chosen),
                     },
                     "flags": list(s.flags),
                     "unreliable": list(s.unreliable),
                     "passes": [{**dataclasses.asdict(p), "ratio": p.ratio} for p in s.passes],
                     "residual": None if s.residual is None else {
-                        **dataclasses.asdict(s.residual), "source": s.residual_source,
-                        "suggested": (None if s.residual_suggested is None
-                                      else dataclasses.asdict(s.residual_suggested))},
+                        **dataclasses.asdict(s.residual.chosen), "source": s.residual.source,
+                        "suggested": dataclasses.asdict(s.residual.suggested)},
                     "consolidation": consolidation_dict(s.consolidation),
                     "rate_check": None if s.rate is None else dataclasses.asdict(s.rate),
                     **({"apparatus_corrections": [{**dataclasses.asdict(c), "flagged": c.flagged}

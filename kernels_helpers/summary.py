@@ -18,30 +18,30 @@ def summary_text(results: Results, u: Display = SI, signoff: SignOff | None = No
     for s in results.stages:
         head = f"{s.stage_id} ({s.test_set}), sigma'n {u.text('stress', s.sigma_nominal_kpa, 0)}"
         out.append(head + ("" if s.included else f" - EXCLUDED: {s.exclusion_reason}"))
-        p, ps = s.peak, s.peak_suggested
-        if s.no_distinct_peak and s.peak_source == "suggested":
+        p, ps = s.peak.chosen, s.peak.suggested
+        if s.no_distinct_peak and s.peak.source == "suggested":
             out.append(f"  peak: {s.no_distinct_peak}")
         else:
-            line = (f"  peak ({s.peak_source}): x {u.text('length', p.x_mm, 2)}, tau {u.text('stress', p.tau_kpa, 1)}, "
+            line = (f"  peak ({s.peak.source}): x {u.text('length', p.x_mm, 2)}, tau {u.text('stress', p.tau_kpa, 1)}, "
                     f"sigma' {u.text('stress', p.sigma_kpa, 1)}")
-            if s.peak_source == "manual":
+            if s.peak.source == "manual":
                 line += f" [suggested x {u.text('length', ps.x_mm, 2)}, tau {u.text('stress', ps.tau_kpa, 1)}]"
-            out.append(line + (f" - {s.peak_note}" if s.peak_note else ""))
-        c, cs = s.critical_state, s.critical_state_suggested
-        line = (f"  critical state ({s.critical_state_source}): "
+            out.append(line + (f" - {s.peak.note}" if s.peak.note else ""))
+        c, cs = s.critical_state.chosen, s.critical_state.suggested
+        line = (f"  critical state ({s.critical_state.source}): "
                 f"{u.fmt('length', c.x_from_mm, 2)}-{u.text('length', c.x_to_mm, 2)}, "
                 f"tau {u.text('stress', c.tau_kpa, 1)} (s.d. {u.text('stress', c.tau_sd_kpa, 2)}), "
                 f"tau/sigma {c.ratio:.3f}, dy/dx {c.dydx:+.4f}")
-        if s.critical_state_source == "manual":
+        if s.critical_state.source == "manual":
             line += (f" [suggested {u.fmt('length', cs.x_from_mm, 2)}-{u.text('length', cs.x_to_mm, 2)}, "
                      f"tau {u.text('stress', cs.tau_kpa, 1)}]")
-        out.append(line + (f" - {s.critical_state_note}" if s.critical_state_note else ""))
+        out.append(line + (f" - {s.critical_state.note}" if s.critical_state.note else ""))
         if s.critical_state_left_out:
             out.append(f"  critical state {s.critical_state_left_out}")
         elif s.critical_state_used:
             out.append(f"  critical state not reached, used in the fit: {s.critical_state_reason}")
         if s.residual is not None:
-            out.append(f"  residual: {u.annotate(s.residual.message)}")
+            out.append(f"  residual: {u.annotate(s.residual.chosen.message)}")
         if s.note:
             out.append(f"  note: {s.note}")
         out.extend(f"  flag: {u.annotate(f)}" for f in s.flags)

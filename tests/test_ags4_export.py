@@ -96,8 +96,8 @@ def test_round_trip_shbt_within_the_rounding_of_each_type(example: tuple[Results
         spec = project.stage(s.stage_id).specimen
         curve = s.reduced.curve
         expected = {
-            "SHBT_NORM": s.sigma_nominal_kpa, "SHBT_PEAK": s.peak.tau_kpa, "SHBT_PDIS": s.peak.x_mm,
-            "SHBT_PDIN": float(curve.loc[s.peak.index, "y_mm"]), "SHBT_PVST": s.peak.sigma_kpa,
+            "SHBT_NORM": s.sigma_nominal_kpa, "SHBT_PEAK": s.peak.chosen.tau_kpa, "SHBT_PDIS": s.peak.chosen.x_mm,
+            "SHBT_PDIN": float(curve.loc[s.peak.chosen.index, "y_mm"]), "SHBT_PVST": s.peak.chosen.sigma_kpa,
             "SHBT_IVR": s.reduced.e_initial, "SHBT_HGT": spec.height_mm, "SHBT_DISP": s.rate.rate_mm_min,
             # phase relation rho_d = G_s rho_w / (1 + e_0) (common practice), independent of the export's m/V
             "SHBT_DDEN": spec.gs / (1.0 + s.reduced.e_initial),
@@ -106,7 +106,7 @@ def test_round_trip_shbt_within_the_rounding_of_each_type(example: tuple[Results
         for heading, value in expected.items():
             assert row[heading] == pytest.approx(value, abs=_half_unit(value, types[heading])), (s.stage_id, heading)
         assert float(row["SHBT_PDEN"]) == spec.gs  # XN: text, not converted by the reader
-        assert f"critical state tau {s.critical_state.tau_kpa:.1f} kPa" in row["SHBT_REM"]
+        assert f"critical state tau {s.critical_state.chosen.tau_kpa:.1f} kPa" in row["SHBT_REM"]
         assert all(flag.split(":")[0] in row["SHBT_REM"] for flag in s.flags)
     assert shbt.loc["BH03-D2", "SHBT_CRIT"].startswith("peak: picked by the engineer")
     assert "no distinct peak" in shbt.loc["BH03-L1", "SHBT_REM"]
@@ -227,10 +227,10 @@ def test_reversal_tests_export_the_residual(tmp_path: Path) -> None:
     tables = _read(path)
     shbt, types = tables["SHBT"].set_index("SHBT_TESN"), _types(path, "SHBT")
     for s in results.stages:
-        assert s.residual is not None and s.residual.reached and s.residual.passes is not None
+        assert s.residual is not None and s.residual.chosen.reached and s.residual.chosen.passes is not None
         row = shbt.loc[s.stage_id]
-        travel = sum(p.travel_mm for p in s.passes if p.pass_no <= s.residual.passes[1])
-        for heading, value in (("SHBT_RES", s.residual.tau_kpa), ("SHBT_RVST", s.residual.sigma_kpa),
+        travel = sum(p.travel_mm for p in s.passes if p.pass_no <= s.residual.chosen.passes[1])
+        for heading, value in (("SHBT_RES", s.residual.chosen.tau_kpa), ("SHBT_RVST", s.residual.chosen.sigma_kpa),
                                ("SHBT_RDIS", travel), ("SHBT_REVS", len(s.passes))):
             assert row[heading] == pytest.approx(value, abs=_half_unit(value, types[heading])), heading
     res = results.envelope("synthetic", "residual").chosen

@@ -72,8 +72,8 @@ def test_relative_density_is_read_as_a_fraction(example_copy: Path) -> None:
     stage = results.stage("BH03-D1")
     # Bolton (1986), REFERENCES sec. 5: I_R = I_D (10 - ln p') - 1 with sigma'n at the peak standing in for p'
     assert d1.bolton is not None
-    assert d1.bolton.i_r_raw == pytest.approx(0.8 * (10 - math.log(stage.peak.sigma_kpa)) - 1)
-    assert d1.bolton == bolton_index(0.8, stage.peak.sigma_kpa)
+    assert d1.bolton.i_r_raw == pytest.approx(0.8 * (10 - math.log(stage.peak.chosen.sigma_kpa)) - 1)
+    assert d1.bolton == bolton_index(0.8, stage.peak.chosen.sigma_kpa)
     assert next(d for d in results.dilatancy if d.stage_id == "BH03-D2").bolton is None
     toml.write_text(text.replace("relative_density = 0.8\n", "relative_density = 80\n", 1))
     message = (r'stage "BH03-D1".specimen.relative_density: relative_density is I_D as a fraction between 0 and 1 '

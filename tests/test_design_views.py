@@ -97,7 +97,7 @@ def test_stage_row_has_one_toolbar_working_all_three_plots() -> None:
     from kernels_helpers.views.figures import stage_figure
 
     results = interpret(EXAMPLE)  # with the example's interpretation file: a manual peak on BH03-D2
-    s = next(s for s in results.stages if s.peak_source == "manual")
+    s = next(s for s in results.stages if s.peak.source == "manual")
     row = stage_figure(s)
     assert isinstance(row, GridPlot)
     plots = [child for child, _, _ in row.children]
@@ -113,6 +113,6 @@ def test_stage_row_has_one_toolbar_working_all_three_plots() -> None:
     labels = [item.label.value for item in tau.select(type=Legend)[0].items]
     assert labels == ["readings", "critical state (window mean)", "peak", "peak suggested"]
     drawn = {(r.glyph.x, r.glyph.y): r.data_source.data for r in tau.renderers}
-    assert (drawn[("x", "tau")]["tau"] == [s.peak.tau_kpa]
-            and drawn[("x_sug", "tau_sug")]["tau_sug"] == [s.peak_suggested.tau_kpa])
-    assert list(drawn[("x", "tau")]["x"]) == [s.peak.x_mm]
+    assert (drawn[("x", "tau")]["tau"] == [s.peak.chosen.tau_kpa]
+            and drawn[("x_sug", "tau_sug")]["tau_sug"] == [s.peak.suggested.tau_kpa])
+    assert list(drawn[("x", "tau")]["x"]) == [s.peak.chosen.x_mm]

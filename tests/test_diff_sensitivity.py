@@ -29,9 +29,10 @@ def test_edits_record_author_time_and_keep_the_suggestion(example_copy: Path, ba
     assert (d.peak.source, d.peak.author, d.peak.note) == ("manual", AUTHOR, "first crest")
     assert d.peak.time_utc.endswith("Z") and len(d.peak.time_utc) == 20
     s = interpret(example_copy, i).stage("BH03-D1")
-    assert abs(s.peak.x_mm - 1.5) < 0.01 and s.peak_suggested.x_mm != s.peak.x_mm  # snapped; suggestion kept
+    assert abs(s.peak.chosen.x_mm - 1.5) < 0.01  # snapped to the nearest reading
+    assert s.peak.suggested.x_mm != s.peak.chosen.x_mm  # the suggestion kept beside it
     back = i.back_to_suggestion("BH03-D1", "peak")
-    assert interpret(example_copy, back).stage("BH03-D1").peak == s.peak_suggested
+    assert interpret(example_copy, back).stage("BH03-D1").peak.chosen == s.peak.suggested
     with pytest.raises(ValueError, match="only be excluded with a stated reason"):
         base.excluded("BH03-D1", "  ", AUTHOR)
 
@@ -49,7 +50,7 @@ def test_diff_in_words(example_copy: Path, base: Interpretation) -> None:
     after = base.with_peak("BH03-D3", 2.0, AUTHOR, "earlier crest").excluded("BH03-D1", "disturbed in trimming", AUTHOR)
     report = diff_interpretations(project, base, after)
     ra, rb = interpret(project, base), interpret(project, after)
-    pa, pb = ra.stage("BH03-D3").peak, rb.stage("BH03-D3").peak
+    pa, pb = ra.stage("BH03-D3").peak.chosen, rb.stage("BH03-D3").peak.chosen
     assert (f"BH03-D3: peak suggested at x = {pa.x_mm:.2f} mm (tau {pa.tau_kpa:.1f} kPa) "
             f"-> manual at x = {pb.x_mm:.2f} mm "
             f"(tau {pb.tau_kpa:.1f} kPa): moved {pb.x_mm - pa.x_mm:+.2f} mm, tau {pb.tau_kpa - pa.tau_kpa:+.1f} kPa; "
@@ -152,7 +153,9 @@ def test_diff_reports_a_manual_residual(tmp_path: Path) -> None:
     before = Interpretation()
     after = before.with_residual("R1", 5, 6.0, 8.0, AUTHOR, "last pass, end of travel")
     report = diff_interpretations(project, before, after)
-    s, r = interpret(project, before).stage("R1").residual, interpret(project, after).stage("R1").residual
+    s, r = (interpret(project, i).stage("R1").residual for i in (before, after))
+    assert s is not None and r is not None
+    s, r = s.chosen, r.chosen
     assert not s.reached and r.reached  # the rule's last forward pass, then the engineer's window
     assert (f"R1: residual suggested (tau {s.tau_kpa:.1f} kPa, not reached) -> manual (tau {r.tau_kpa:.1f} kPa); "
             "note: last pass, end of travel") in report.stages

@@ -155,7 +155,7 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
     panel = wb.select("BH03-D3")
     assert panel.peak_x.description == "peak at x (in)"
     before = wb.controller.stage("BH03-D3")
-    typed_in = round(before.peak.x_mm / 25.4 + 0.02, 4)  # about half a millimetre further on
+    typed_in = round(before.peak.chosen.x_mm / 25.4 + 0.02, 4)  # about half a millimetre further on
     panel.peak_x.value = typed_in
     saved = json.loads(wb.controller.path.read_text(encoding="utf-8"))["stages"]["BH03-D3"]["peak"]
     assert saved["source"] == "manual"
@@ -163,7 +163,7 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
     assert panel.peak_x.value == round(saved["x_mm"] / 25.4, 4)
     # the plotted marker is in inches and psf, and the page sends inches back
     assert math.isclose(panel.plots.peak.data["x"][0], saved["x_mm"] / 25.4, rel_tol=1e-12)
-    tau = wb.controller.stage("BH03-D3").peak.tau_kpa
+    tau = wb.controller.stage("BH03-D3").peak.chosen.tau_kpa
     assert math.isclose(panel.plots.peak.data["y"][0], tau / PSF_KPA, rel_tol=1e-12)
     bokeh_model = wb.bokeh
     target_in = (saved["x_mm"] + 0.5) / 25.4

@@ -49,14 +49,15 @@ def test_stage_rows_carry_the_results_numbers_exactly(results: Results, tables: 
     for s in results.stages:
         row = df.loc[s.stage_id]
         # floats are written at full precision: exact equality after the text round trip
-        assert row["peak_tau_kpa"] == s.peak.tau_kpa and row["peak_sigma_kpa"] == s.peak.sigma_kpa
-        assert row["peak_x_mm"] == s.peak.x_mm and row["suggested_peak_x_mm"] == s.peak_suggested.x_mm
-        assert row["cs_tau_kpa"] == s.critical_state.tau_kpa and row["cs_tau_sd_kpa"] == s.critical_state.tau_sd_kpa
-        assert row["cs_x_from_mm"] == s.critical_state.x_from_mm and row["cs_x_to_mm"] == s.critical_state.x_to_mm
-        assert row["cs_e"] == s.critical_state.e and row["cs_dydx"] == s.critical_state.dydx
+        assert row["peak_tau_kpa"] == s.peak.chosen.tau_kpa and row["peak_sigma_kpa"] == s.peak.chosen.sigma_kpa
+        assert row["peak_x_mm"] == s.peak.chosen.x_mm and row["suggested_peak_x_mm"] == s.peak.suggested.x_mm
+        cs = s.critical_state.chosen
+        assert row["cs_tau_kpa"] == cs.tau_kpa and row["cs_tau_sd_kpa"] == cs.tau_sd_kpa
+        assert row["cs_x_from_mm"] == cs.x_from_mm and row["cs_x_to_mm"] == cs.x_to_mm
+        assert row["cs_e"] == s.critical_state.chosen.e and row["cs_dydx"] == s.critical_state.chosen.dydx
         assert row["sigma_nominal_kpa"] == s.sigma_nominal_kpa
-        assert row["peak_phi_secant_deg"] == math.degrees(math.atan(s.peak.ratio))
-        assert bool(row["included"]) is s.included and row["peak_source"] == s.peak_source
+        assert row["peak_phi_secant_deg"] == math.degrees(math.atan(s.peak.chosen.ratio))
+        assert bool(row["included"]) is s.included and row["peak_source"] == s.peak.source
         assert (row["no_distinct_peak"] if isinstance(row["no_distinct_peak"], str) else None) == s.no_distinct_peak
         assert str(row["flags"]).split(" | ") == list(s.flags)
     assert set(df["peak_source"]) == {"suggested", "manual"}  # the example has a manual pick (BH03-D2)

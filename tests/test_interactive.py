@@ -48,8 +48,8 @@ def test_opening_restores_every_decision_and_writes_nothing(example_copy: Path) 
     wb = live_workbook(example_copy)
     assert (example_copy / "interpretation.json").read_bytes() == before
     d2 = wb.controller.stage("BH03-D2")
-    assert d2.peak_source == "manual" and wb.select("BH03-D2").plots.peak.data["x"] == [d2.peak.x_mm]
-    assert wb.select("BH03-D2").peak_x.value == round(d2.peak.x_mm, 3)
+    assert d2.peak.source == "manual" and wb.select("BH03-D2").plots.peak.data["x"] == [d2.peak.chosen.x_mm]
+    assert wb.select("BH03-D2").peak_x.value == round(d2.peak.chosen.x_mm, 3)
     assert wb.stage_table.rows["BH03-L2"]["include"].value is False
     assert wb.stage_table.rows["BH03-L2"]["reason"].value == wb.controller.stage("BH03-L2").exclusion_reason
     assert wb.controller.results.to_json() == interpret(example_copy).to_json()
@@ -77,9 +77,9 @@ def test_peak_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
     saved = _file(wb)["stages"][STAGE]["peak"]
     s = wb.controller.stage(STAGE)
     assert saved["source"] == "manual" and saved["author"] == "T. Tester" and saved["time_utc"].endswith("Z")
-    assert saved["x_mm"] == s.peak.x_mm and abs(s.peak.x_mm - 4.0) < 0.01  # snapped to a reading
-    assert dict(panel.plots.peak.data) == {"x": [s.peak.x_mm], "y": [s.peak.tau_kpa]}  # on the curve
-    assert panel.peak_x.value == round(s.peak.x_mm, 3)
+    assert saved["x_mm"] == s.peak.chosen.x_mm and abs(s.peak.chosen.x_mm - 4.0) < 0.01  # snapped to a reading
+    assert dict(panel.plots.peak.data) == {"x": [s.peak.chosen.x_mm], "y": [s.peak.chosen.tau_kpa]}  # on the curve
+    assert panel.peak_x.value == round(s.peak.chosen.x_mm, 3)
     assert len(wb.controller.history) == 1
     text = wb.controller.path.read_text(encoding="utf-8")
     _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})  # the same drop again
@@ -95,13 +95,13 @@ def test_window_drag_and_a_refused_window(wb: LiveWorkbook) -> None:
     cs = _file(wb)["stages"][STAGE]["critical_state"]
     assert cs["source"] == "manual" and abs(cs["x_from_mm"] - 8.0) < 0.01 and abs(cs["x_to_mm"] - 10.5) < 0.01
     s = wb.controller.stage(STAGE)
-    assert wb.select(STAGE).plots.window_strip.data["x0"] == [s.critical_state.x_from_mm]
-    assert panel.cs_to.value == round(s.critical_state.x_to_mm, 3)
+    assert wb.select(STAGE).plots.window_strip.data["x0"] == [s.critical_state.chosen.x_from_mm]
+    assert panel.cs_to.value == round(s.critical_state.chosen.x_to_mm, 3)
     text = wb.controller.path.read_text(encoding="utf-8")
     _from_page(wb, panel.plots.window, {"x": [9.0, 9.001], "y": [150.0, 150.0]})  # too few readings
     assert wb.controller.path.read_text(encoding="utf-8") == text
     assert "readings" in wb.status.value and "refused" in wb.status.value
-    assert panel.plots.window.data["x"] == [s.critical_state.x_from_mm, s.critical_state.x_to_mm]
+    assert panel.plots.window.data["x"] == [s.critical_state.chosen.x_from_mm, s.critical_state.chosen.x_to_mm]
     _matches_interpret(wb)
 
 
@@ -116,7 +116,7 @@ def test_number_twins_and_back_to_suggestion(wb: LiveWorkbook) -> None:
     panel.peak_reset.click()  # twice: nothing more to do
     assert _file(wb)["stages"][STAGE]["peak"]["source"] == "suggested"
     assert len(wb.controller.history) == 3
-    assert panel.plots.peak.data["x"] == [wb.controller.stage(STAGE).peak_suggested.x_mm]
+    assert panel.plots.peak.data["x"] == [wb.controller.stage(STAGE).peak.suggested.x_mm]
     panel.cs_reset.click()
     assert _file(wb)["stages"][STAGE]["critical_state"]["source"] == "suggested"
     _matches_interpret(wb)
@@ -274,7 +274,7 @@ def test_the_refit_is_drawn_before_the_save_and_taken_back_when_the_save_is_refu
     before, label_before = path.read_bytes(), wb.envelope_plot.labels["peak"].data["text"][0]
     seen.clear()
     _from_page(wb, panel.plots.peak, {"x": [4.0], "y": [150.0]})
-    moved = wb.controller.stage(STAGE).peak.x_mm
+    moved = wb.controller.stage(STAGE).peak.chosen.x_mm
     assert abs(moved - 4.0) < 0.01
     assert seen[0][0] == before and seen[0][1] == moved  # drawn while the file still held the old pick
     assert seen[0][2] != label_before and seen[0][2] == wb.envelope_plot.labels["peak"].data["text"][0]
@@ -288,7 +288,7 @@ def test_the_refit_is_drawn_before_the_save_and_taken_back_when_the_save_is_refu
     _from_page(wb, panel.plots.peak, {"x": [5.0], "y": [150.0]})
     assert path.read_bytes() == on_disk and "not saved: " in wb.status.value
     assert len(seen) >= 2 and abs(seen[0][1] - 5.0) < 0.01  # drawn first, then taken back
-    assert panel.plots.peak.data["x"] == [moved] and wb.controller.stage(STAGE).peak.x_mm == moved
+    assert panel.plots.peak.data["x"] == [moved] and wb.controller.stage(STAGE).peak.chosen.x_mm == moved
     assert seen[0][2] != label_saved  # the refused edit's refit was drawn ...
     assert seen[-1][1:] == (moved, label_saved) == (panel.plots.peak.data["x"][0],  # ... and taken back
                                                     wb.envelope_plot.labels["peak"].data["text"][0])
@@ -326,5 +326,5 @@ def test_a_fault_in_drawing_before_the_save_does_not_cost_the_edit(example_copy:
     with pytest.raises(RuntimeError, match="drawing failed"):
         c.move_peak(STAGE, 4.0)
     assert load_interpretation(c.path).decision(STAGE).peak.source == "manual"  # saved all the same
-    assert c.stage(STAGE).peak_source == "manual" and len(c.history) == 1  # and the screen's state is the file's
+    assert c.stage(STAGE).peak.source == "manual" and len(c.history) == 1  # and the screen's state is the file's
     assert c.results.to_json() == interpret(c.project, c.path).to_json()

@@ -56,15 +56,16 @@ def _matches_interpret(wb: LiveWorkbook) -> None:
 def test_only_reversal_stages_get_a_residual_pick(wb: LiveWorkbook) -> None:
     r1 = wb.select("R1")
     s = wb.controller.stage("R1")
-    assert s.residual is not None and not s.residual.reached and s.residual_source == "suggested"
+    assert s.residual is not None and not s.residual.chosen.reached and s.residual.source == "suggested"
     pick = wb.controller.residual_pick("R1")
     assert pick is not None and pick[0] == 5  # the rule's pass: the last forward pass, not settled
     assert r1.residual_pass is not None and r1.residual_pass.options == (("pass 1", 1), ("pass 3", 3), ("pass 5", 5))
     assert (r1.residual_pass.value, r1.res_from.value, r1.res_to.value) == (5, round(pick[1], 3), round(pick[2], 3))
     assert r1.plots.residual is not None
-    assert r1.plots.residual.data == {"x": [pick[1], pick[2]], "y": [s.residual.tau_kpa, s.residual.tau_kpa]}
+    tau = s.residual.chosen.tau_kpa
+    assert r1.plots.residual.data == {"x": [pick[1], pick[2]], "y": [tau, tau]}
     assert (r1.plots.residual_box.left, r1.plots.residual_box.right) == (pick[1], pick[2])
-    assert f"residual {s.residual.tau_kpa:.1f} kPa" in r1.plots.residual_label.text
+    assert f"residual {s.residual.chosen.tau_kpa:.1f} kPa" in r1.plots.residual_label.text
     assert "(upper bound), pass 5, suggested" in r1.plots.residual_label.text
     assert r1.plots.residual_label.x == pick[2]
     assert max(r1.plots.residual_curve.data["abs_tau"]) > 0  # |tau| of the pass, reverse passes being negative
@@ -91,14 +92,14 @@ def test_residual_drag_twice_and_echo_save_once(wb: LiveWorkbook) -> None:
     assert saved["x_from_mm"] in x5 and saved["x_to_mm"] in x5  # snapped to readings of that pass
     assert abs(saved["x_from_mm"] - 5.95) < 0.02 and abs(saved["x_to_mm"] - 7.7) < 0.02
     s = wb.controller.stage("R1")
-    assert s.residual_source == "manual" and s.residual is not None and s.residual.reached
-    assert s.residual_suggested is not None and not s.residual_suggested.reached
+    assert s.residual is not None and s.residual.source == "manual" and s.residual.chosen.reached
+    assert s.residual.suggested is not None and not s.residual.suggested.reached
     assert not any(f.startswith("residual not reached") for f in s.flags)
     assert panel.plots.residual.data == {"x": [saved["x_from_mm"], saved["x_to_mm"]],
-                                          "y": [s.residual.tau_kpa, s.residual.tau_kpa]}
+                                          "y": [s.residual.chosen.tau_kpa, s.residual.chosen.tau_kpa]}
     assert (panel.res_from.value, panel.res_to.value) == (round(saved["x_from_mm"], 3), round(saved["x_to_mm"], 3))
     assert "(manual)" in wb.stage_table.rows["R1"]["residual"].value
-    assert panel.plots.residual_label.text == f"residual {s.residual.tau_kpa:.1f} kPa, pass 5, manual"
+    assert panel.plots.residual_label.text == f"residual {s.residual.chosen.tau_kpa:.1f} kPa, pass 5, manual"
     assert len(wb.controller.history) == 1
     text = wb.controller.path.read_text(encoding="utf-8")
     _from_page(panel, {"x": [7.7, 5.95], "y": [40.0, 40.0]})  # the same drop again
@@ -157,8 +158,8 @@ def test_number_twins_pass_choice_back_to_suggestion_and_undo(wb: LiveWorkbook) 
     saved = _file(wb)["stages"]["R1"]["residual"]
     assert saved["pass_no"] == 3 and saved["x_from_mm"] in _pass_x(wb, "R1", 3)
     s = wb.controller.stage("R1")
-    assert suggested is not None and s.residual is not None and suggested.tau_kpa is not None
-    assert s.residual.tau_kpa > suggested.tau_kpa * 1.05
+    assert suggested is not None and s.residual is not None and suggested.chosen.tau_kpa is not None
+    assert s.residual.chosen.tau_kpa > suggested.chosen.tau_kpa * 1.05
     assert panel.plots.residual_pass == 3 and "pass 3, manual" in panel.plots.residual_label.text
     assert len(wb.controller.history) == 2  # writing the snapped values back did not count as edits
     panel.res_reset.click()
@@ -166,7 +167,7 @@ def test_number_twins_pass_choice_back_to_suggestion_and_undo(wb: LiveWorkbook) 
     assert _file(wb)["stages"]["R1"]["residual"]["source"] == "suggested"
     assert len(wb.controller.history) == 3
     s = wb.controller.stage("R1")
-    assert s.residual_source == "suggested" and s.residual == suggested
+    assert s.residual.source == "suggested" and s.residual == suggested
     assert panel.residual_pass.value == 5 and panel.plots.residual_pass == 5
     assert any(f.startswith("residual not reached") for f in s.flags)
     wb.undo.click()
@@ -178,11 +179,12 @@ def test_the_drawn_suggestion_is_the_window_the_rule_averages(wb: LiveWorkbook) 
     """Typing the suggested window as a manual pick gives the suggested value (to within one reading)."""
     for sid in ("R1", "R2"):
         pick = wb.controller.residual_pick(sid)
-        suggested = wb.controller.stage(sid).residual
-        assert pick is not None and suggested is not None and suggested.tau_kpa is not None
+        before = wb.controller.stage(sid).residual
+        assert pick is not None and before is not None and before.chosen.tau_kpa is not None
         assert wb.controller.set_residual(sid, *pick)
-        manual = wb.controller.stage(sid).residual
-        assert manual is not None and manual.tau_kpa == pytest.approx(suggested.tau_kpa, rel=2e-3)
+        after = wb.controller.stage(sid).residual
+        assert after is not None and after.source == "manual"
+        assert after.chosen.tau_kpa == pytest.approx(before.suggested.tau_kpa, rel=2e-3)
 
 
 def test_reopening_restores_the_residual_pick(folder: Path) -> None:

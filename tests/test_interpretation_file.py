@@ -15,11 +15,10 @@ from kernels_helpers.errors import InterpretationFileError
 from kernels_helpers.interpretation import (
     FitSettings,
     Interpretation,
-    PeakChoice,
+    Pick,
     Settings,
     SignOff,
     StageDecision,
-    WindowChoice,
     load_interpretation,
 )
 from kernels_helpers.picks import PickSettings
@@ -33,9 +32,9 @@ def _full() -> Interpretation:
         stages={
             "S2": StageDecision(included=False, exclusion_reason="specimen disturbed in trimming", note="see sheet"),
             "S1": StageDecision(
-                peak=PeakChoice(source="manual", x_mm=2.375, author="A. Engineer", time_utc="2026-01-05T09:00:00Z",
+                peak=Pick(source="manual", x_mm=2.375, author="A. Engineer", time_utc="2026-01-05T09:00:00Z",
                                 note="second maximum"),
-                critical_state=WindowChoice(source="manual", x_from_mm=8.0, x_to_mm=11.5, author="A. Engineer",
+                critical_state=Pick(source="manual", x_from_mm=8.0, x_to_mm=11.5, author="A. Engineer",
                                             time_utc="2026-01-05T09:01:00Z", note="steady from 8 mm"),
             ),
         },
@@ -169,6 +168,13 @@ NO_WINDOW = "a manual critical-state window needs x_from_mm and x_to_mm"
         ({"peak": {"x": 2.0}}, "stages.S1.peak.x: unknown key 'x'; known keys here: author, note, source, time_utc, "
                                "x_mm"),
         ({"peak": {"source": "manual", "x_mmm": 2.0}}, "stages.S1.peak.x_mmm: unknown key 'x_mmm'; did you mean x_mm?"),
+        # one record holds every kind's place: a window's key on a peak is still unknown here, named as such
+        ({"peak": {"source": "manual", "x_mm": 2.0, "x_to_mm": 4.0}},
+         "stages.S1.peak.x_to_mm: unknown key 'x_to_mm'; known keys here: author, note, source, time_utc, x_mm"),
+        ({"critical_state": {"pass_no": 2}}, "stages.S1.critical_state.pass_no: unknown key 'pass_no'; known keys "
+                                             "here: author, note, source, time_utc, x_from_mm, x_to_mm"),
+        ({"residual": {"x_mm": 2.0}}, "stages.S1.residual.x_mm: unknown key 'x_mm'; known keys here: author, note, "
+                                      "pass_no, source, time_utc, x_from_mm, x_to_mm"),
         ({"colour": "red"}, "stages.S1.colour: unknown key 'colour'; known keys here: author, critical_state, "
                             "critical_state_reason, critical_state_used, exclusion_reason, included, note, peak, "
                             "residual, time_utc"),
@@ -192,6 +198,37 @@ def test_bad_decisions_in_the_file(tmp_path: Path, stage: dict[str, object], lin
     with pytest.raises(InterpretationFileError) as info:
         load_interpretation(path)
     assert str(info.value) == f"{path}: 1 problem(s); nothing was read or changed:\n  {line}"
+
+
+def test_every_bad_pick_of_a_stage_is_reported_with_its_key(tmp_path: Path) -> None:
+    """Three picks of one stage, each wrong in its own way: three problems, each at its own key."""
+    path = _edited(tmp_path, {}, {"peak": {"source": "manual"},
+                                  "critical_state": {"source": "manual", "x_from_mm": 9.0, "x_to_mm": 8.0},
+                                  "residual": {"source": "manual", "x_mm": 1.0, "pass_no": 2, "x_from_mm": 1.0,
+                                               "x_to_mm": 5.0}})
+    with pytest.raises(InterpretationFileError) as info:
+        load_interpretation(path)
+    assert str(info.value).splitlines()[1:] == [
+        "  stages.S1.peak: a manual peak pick needs x_mm",
+        "  stages.S1.critical_state: a critical-state window runs from the smaller to the larger displacement: "
+        "x_from_mm 9.0 is more than x_to_mm 8.0; swap them",
+        "  stages.S1.residual.x_mm: unknown key 'x_mm'; known keys here: author, note, pass_no, source, time_utc, "
+        "x_from_mm, x_to_mm",
+    ]
+
+
+def test_a_pick_is_written_with_its_own_keys_only(tmp_path: Path) -> None:
+    """The one pick record writes the file's form of its kind: a peak has no window keys, a window no x_mm."""
+    path = tmp_path / "interpretation.json"
+    saved = (Interpretation().with_peak("S1", 2.0, "A").with_critical_state("S1", 9.0, 7.0, "A")
+             .with_residual("S1", 2, 1.0, 5.0, "A"))
+    save_interpretation(saved, path)
+    stage = json.loads(path.read_text(encoding="utf-8"))["stages"]["S1"]
+    assert sorted(stage["peak"]) == ["author", "note", "source", "time_utc", "x_mm"]
+    assert sorted(stage["critical_state"]) == ["author", "note", "source", "time_utc", "x_from_mm", "x_to_mm"]
+    assert (stage["critical_state"]["x_from_mm"], stage["critical_state"]["x_to_mm"]) == (7.0, 9.0)  # put in order
+    assert sorted(stage["residual"]) == ["author", "note", "pass_no", "source", "time_utc", "x_from_mm", "x_to_mm"]
+    assert load_interpretation(path).decision("S1") == saved.decision("S1")  # and it reads back as it was
 
 
 @pytest.mark.parametrize("token", ["NaN", "Infinity", "-Infinity", "1e400"])
@@ -243,8 +280,9 @@ def test_bad_settings_in_the_file(tmp_path: Path, section: str, value: dict[str,
     ("build", "message"),
     [
         (lambda: StageDecision(included=False), NO_REASON),
-        (lambda: PeakChoice(source="manual"), "a manual peak pick needs x_mm"),
-        (lambda: WindowChoice(source="manual", x_to_mm=3.0), NO_WINDOW),
+        (lambda: StageDecision(peak=Pick(source="manual")), "a manual peak pick needs x_mm"),
+        (lambda: StageDecision(critical_state=Pick(source="manual", x_to_mm=3.0)), NO_WINDOW),
+        (lambda: StageDecision(peak=Pick(source="manual", x_mm=1.0, x_to_mm=3.0)), "unknown key 'x_to_mm'"),
     ],
 )
 def test_bad_decisions_in_code(build: object, message: str) -> None:

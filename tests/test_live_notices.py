@@ -61,7 +61,7 @@ def test_the_sign_off_is_recorded_on_the_live_screen_with_the_command_s_rules(ex
 def test_a_manual_pick_asks_for_its_reason_and_a_project_can_require_one(example_copy: Path) -> None:
     wb = live_workbook(example_copy, author="T. Tester")
     c = wb.controller
-    x = c.stage("BH03-D3").peak.x_mm + 1.0
+    x = c.stage("BH03-D3").peak.chosen.x_mm + 1.0
     assert wb.act(lambda c: c.move_peak("BH03-D3", x))
     assert "give its reason in the stage&#x27;s reason box" in wb.status.value  # prompted, not refused
     wb.select("BH03-D3").reason.value = "crest flat over 1 mm; the middle taken"
@@ -73,11 +73,11 @@ def test_a_manual_pick_asks_for_its_reason_and_a_project_can_require_one(example
                     encoding="utf-8")
     strict = live_workbook(example_copy, author="T. Tester")
     before = (example_copy / "interpretation.json").read_bytes()
-    assert not strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.x_mm + 1.0))
+    assert not strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.chosen.x_mm + 1.0))
     assert "this project requires a reason for every manual pick" in strict.status.value
     assert (example_copy / "interpretation.json").read_bytes() == before
     strict.select("BH03-D1").reason.value = "second crest is the true peak (see sheet)"
-    assert strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.x_mm + 1.0))
+    assert strict.act(lambda c: c.move_peak("BH03-D1", c.stage("BH03-D1").peak.chosen.x_mm + 1.0))
     assert load_interpretation(example_copy / "interpretation.json").decision("BH03-D1").peak.note == (
         "second crest is the true peak (see sheet)")
 
@@ -130,7 +130,8 @@ def test_flags_are_placed_where_they_apply_on_the_curve(example_copy: Path) -> N
     lo, hi = places["too fast for drained conditions"]  # the shearing up to failure, as the flag says
     assert lo == first and abs(hi - float(fast.split(" mm (sheared")[0].rsplit(" ", 1)[1])) < 0.05
     lo, hi = places["void ratio at critical state 0.613 differs from 0.748 of BH03-L3 (BH03 loose) by 0.135"]
-    assert (lo, hi) == (s.critical_state.x_from_mm, s.critical_state.x_to_mm)  # a critical-state flag: its window
+    cs = s.critical_state.chosen
+    assert (lo, hi) == (cs.x_from_mm, cs.x_to_mm)  # a critical-state flag: its window
     line = 5 + 100  # line 105 of the file is row 100 (the first data row is on line 5)
     worded = dataclasses.replace(s, flags=(
         "transducer fault: the vertical gauge does not move: 0.1 um over 2.0 mm of shearing "

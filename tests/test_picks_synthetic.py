@@ -32,9 +32,9 @@ def test_dense_peak_and_critical_state(tmp_path: Path, m: Model) -> None:
     s = _one(tmp_path, m)
     u_peak, tau_peak = m.true_peak()
     assert s.no_distinct_peak is None
-    assert s.peak.tau_kpa == pytest.approx(tau_peak, rel=0.01)  # issue: peak within 1 % of the model's
-    assert s.peak.x_mm == pytest.approx(u_peak, abs=0.3)
-    assert s.critical_state.ratio == pytest.approx(m.cs_ratio, abs=0.01)  # issue: critical-state ratio within 0.01
+    assert s.peak.chosen.tau_kpa == pytest.approx(tau_peak, rel=0.01)  # issue: peak within 1 % of the model's
+    assert s.peak.chosen.x_mm == pytest.approx(u_peak, abs=0.3)
+    assert s.critical_state.chosen.ratio == pytest.approx(m.cs_ratio, abs=0.01)  # ratio within 0.01
     assert s.reduced.seating_shift_mm == pytest.approx(m.slack, abs=0.05)
     assert s.flags == ()  # clean curve: no false flag
 
@@ -44,7 +44,7 @@ def test_loose_has_no_distinct_peak(tmp_path: Path, normal: float) -> None:
     m = Model(normal_n=normal, psi_max=0.0, contraction=0.08, u_mob=1.0, seed=4)
     s = _one(tmp_path, m)
     assert s.no_distinct_peak is not None and s.no_distinct_peak.startswith("no distinct peak")
-    assert s.critical_state.ratio == pytest.approx(m.cs_ratio, abs=0.01)
+    assert s.critical_state.chosen.ratio == pytest.approx(m.cs_ratio, abs=0.01)
     assert s.flags == ()
 
 
@@ -52,7 +52,7 @@ def test_stopped_early_is_flagged(tmp_path: Path) -> None:
     m = Model(normal_n=360, psi_max=10, u_peak=2.0, travel=4.0, seed=5)
     s = _one(tmp_path, m)
     assert any(f.startswith("critical state not reached: still dilating") for f in s.flags), s.flags
-    assert s.peak.tau_kpa == pytest.approx(m.true_peak()[1], rel=0.01)
+    assert s.peak.chosen.tau_kpa == pytest.approx(m.true_peak()[1], rel=0.01)
 
 
 def test_stick_slip_is_flagged_and_clean_curve_is_not(tmp_path: Path) -> None:
@@ -97,16 +97,17 @@ def test_reversal_passes_and_residual(tmp_path: Path) -> None:
     s = interpret(tmp_path / "p").stage("R1")
     fwd = [p for p in s.passes if p.forward]
     assert [p.pass_no for p in fwd] == [1, 3, 5, 7]
-    assert s.residual is not None and s.residual.reached and s.residual.passes == (5, 7)
-    assert s.residual.tau_kpa == pytest.approx(ends[6], rel=0.02)
-    assert s.critical_state.ratio == pytest.approx(Model().cs_ratio, abs=0.01)  # critical state of the first pass only
+    assert s.residual is not None and s.residual.chosen.reached and s.residual.chosen.passes == (5, 7)
+    assert s.residual.chosen.tau_kpa == pytest.approx(ends[6], rel=0.02)
+    # the critical state of the first pass only
+    assert s.critical_state.chosen.ratio == pytest.approx(Model().cs_ratio, abs=0.01)
 
 
 def test_reversal_not_reached_is_flagged(tmp_path: Path) -> None:
     cols, _ = _reversal_readings([0.62, 0.55, 0.50, 0.45, 0.42])
     write_project(tmp_path / "p", {"R1": (cols, 360.0, "reversal")})
     s = interpret(tmp_path / "p").stage("R1")
-    assert s.residual is not None and not s.residual.reached
+    assert s.residual is not None and not s.residual.chosen.reached
     assert any(f.startswith("residual not reached: the last two forward passes (3, 5) differ by") for f in s.flags)
 
 
@@ -137,7 +138,7 @@ def test_multistage_split_by_normal_load(tmp_path: Path) -> None:
     assert [s.stage_id for s in results.stages] == ["M1/1", "M1/2", "M1/3"]
     for s, level in zip(results.stages, levels, strict=True):
         assert s.reduced.normal_force_n == pytest.approx(level, rel=0.005)
-        assert s.critical_state.ratio == pytest.approx(Model().cs_ratio, abs=0.01)
+        assert s.critical_state.chosen.ratio == pytest.approx(Model().cs_ratio, abs=0.01)
     # later stages continue from the first stage's origin: the area keeps shrinking
     assert results.stages[2].reduced.curve["area_mm2"].iloc[-1] == pytest.approx(60 * (60 - 12.0), rel=0.01)
     env = results.envelope("synthetic", "critical_state")
@@ -151,9 +152,9 @@ def test_manual_residual_pick_on_a_pass(tmp_path: Path) -> None:
     write_project(tmp_path / "p", {"R1": (cols, 360.0, "reversal")})
     interp = Interpretation().with_residual("R1", 5, 6.0, 8.0, "tester", "last pass, end of travel")
     s = interpret(tmp_path / "p", interp).stage("R1")
-    assert s.residual_source == "manual" and s.residual is not None and s.residual.reached
-    assert s.residual.tau_kpa == pytest.approx(ends[4], rel=0.01)  # the model's end-of-pass stress on pass 5
-    assert s.residual_suggested is not None and not s.residual_suggested.reached  # the rule's view stays recorded
+    assert s.residual is not None and s.residual.source == "manual" and s.residual.chosen.reached
+    assert s.residual.chosen.tau_kpa == pytest.approx(ends[4], rel=0.01)  # the model's end-of-pass stress on pass 5
+    assert s.residual.suggested is not None and not s.residual.suggested.reached  # the rule's view stays recorded
     assert not any(f.startswith("residual not reached") for f in s.flags)
     env = interpret(tmp_path / "p", interp).envelope("synthetic", "residual")
     assert env.stage_ids == ("R1",)

@@ -13,7 +13,7 @@ import pytest
 from scipy.optimize import minimize_scalar
 
 from kernels_helpers import Interpretation, interpret, load_project, save_interpretation
-from kernels_helpers.interpretation import PeakChoice, StageDecision
+from kernels_helpers.interpretation import Pick, StageDecision
 from kernels_helpers.project import Project
 from kernels_helpers.results import Results
 
@@ -80,18 +80,18 @@ def test_manual_peak_snaps_to_the_nearest_reading(example: Project, baseline: Re
     picks = {"BH03-D1": 3.0, "BH03-L1": 4.2}
     interp = Interpretation()
     for sid, x in picks.items():
-        interp = interp.with_decision(sid, StageDecision(peak=PeakChoice(source="manual", x_mm=x, author="T")))
+        interp = interp.with_decision(sid, StageDecision(peak=Pick(source="manual", x_mm=x, author="T")))
     results = interpret(example, interp)
     for sid, x in picks.items():
         stage = results.stage(sid)
         curve = stage.reduced.curve[stage.reduced.curve["in_shear"]]
         nearest = curve.index[int(np.argmin(np.abs(curve["x_mm"].to_numpy() - x)))]
-        assert stage.peak.index == nearest
-        assert stage.peak.x_mm == curve.loc[nearest, "x_mm"]
-        assert stage.peak.tau_kpa == curve.loc[nearest, "tau_smooth_kpa"]
-        assert stage.peak_source == "manual" and stage.no_distinct_peak is None
-        assert stage.peak_suggested == baseline.stage(sid).peak_suggested  # the suggestion is kept
-    assert results.stage("BH03-D1").peak.x_mm != baseline.stage("BH03-D1").peak.x_mm
+        assert stage.peak.chosen.index == nearest
+        assert stage.peak.chosen.x_mm == curve.loc[nearest, "x_mm"]
+        assert stage.peak.chosen.tau_kpa == curve.loc[nearest, "tau_smooth_kpa"]
+        assert stage.peak.source == "manual" and stage.no_distinct_peak is None
+        assert stage.peak.suggested == baseline.stage(sid).peak.suggested  # the suggestion is kept
+    assert results.stage("BH03-D1").peak.chosen.x_mm != baseline.stage("BH03-D1").peak.chosen.x_mm
     # the loose stage had no distinct peak; picked on purpose it joins the stratum's peak envelope
     assert "BH03-L1" not in baseline.envelope("stratum B (all sets)", "peak").stage_ids
     assert "BH03-L1" in results.envelope("stratum B (all sets)", "peak").stage_ids
@@ -100,7 +100,7 @@ def test_manual_peak_snaps_to_the_nearest_reading(example: Project, baseline: Re
 def test_stale_raw_file_is_flagged(dense: Project) -> None:
     good = hashlib.sha256((EXAMPLE / "readings/BH03-D3.csv").read_bytes()).hexdigest()
     interp = Interpretation(raw_files={"readings/BH03-D1.csv": "0" * 64, "readings/BH03-D3.csv": good})
-    interp = interp.with_decision("BH03-D1", StageDecision(peak=PeakChoice(source="manual", x_mm=2.0)))
+    interp = interp.with_decision("BH03-D1", StageDecision(peak=Pick(source="manual", x_mm=2.0)))
     results = interpret(dense, interp)
     d1 = results.stage("BH03-D1")
     assert d1.stale
@@ -170,8 +170,8 @@ def test_synthetic_critical_state_and_no_distinct_peak(tmp_path: Path) -> None:
     root = _synthetic(tmp_path / "p", {"S50": 180.0, "S100": 360.0, "S200": 720.0}, tanh_ratio)
     results = interpret(root)
     for stage in results.stages:
-        assert stage.critical_state.ratio == pytest.approx(0.6, rel=0.005)  # the curve's own limit, tanh -> 1
-        assert stage.critical_state.flags == ()  # steady ratio and no dilation: critical state reached
+        assert stage.critical_state.chosen.ratio == pytest.approx(0.6, rel=0.005)  # the curve's own limit, tanh -> 1
+        assert stage.critical_state.chosen.flags == ()  # steady ratio and no dilation: critical state reached
         assert stage.no_distinct_peak is not None and stage.no_distinct_peak.startswith("no distinct peak")
     env = results.envelope("synthetic", "critical_state")
     assert env.origin is not None and env.free is not None
@@ -203,13 +203,13 @@ def test_synthetic_dilating_peak(tmp_path: Path) -> None:
         return -1000.0 * 360.0 * float(dilating_ratio(np.array(u))) / (SIDE * (SIDE - u))
 
     best = minimize_scalar(neg_tau, bounds=(0.3, 6.0), method="bounded", options={"xatol": 1e-8})
-    assert stage.no_distinct_peak is None and stage.peak_source == "suggested"
-    assert stage.peak.x_mm == pytest.approx(best.x, rel=0.01)
-    assert stage.peak.tau_kpa == pytest.approx(-best.fun, rel=0.01)
-    assert stage.peak.tau_raw_kpa == pytest.approx(-best.fun, rel=0.01)
+    assert stage.no_distinct_peak is None and stage.peak.source == "suggested"
+    assert stage.peak.chosen.x_mm == pytest.approx(best.x, rel=0.01)
+    assert stage.peak.chosen.tau_kpa == pytest.approx(-best.fun, rel=0.01)
+    assert stage.peak.chosen.tau_raw_kpa == pytest.approx(-best.fun, rel=0.01)
     # REFERENCES sec. 5: the peak comes with the maximum rate of dilation; computed: the closed-form
     # dy/du at the analytic peak (A at u = UP; the shrinking area moves the tau peak a little later)
-    assert stage.peak.dydx == pytest.approx(A * (best.x / UP) * math.exp(1.0 - best.x / UP), rel=0.02)
+    assert stage.peak.chosen.dydx == pytest.approx(A * (best.x / UP) * math.exp(1.0 - best.x / UP), rel=0.02)
     # dilation reaches the gauge with the right sign: y grows to A e UP (computed limit)
     assert stage.reduced.curve["y_mm"].iloc[-1] == pytest.approx(float(dilating_y(np.array(TRAVEL))), rel=1e-4)
 

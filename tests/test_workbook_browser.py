@@ -220,7 +220,7 @@ def test_one_screen_drag_previews_and_refits_at_1366_and_1920(browser, lab: str,
         choose_stage(page, STAGE)
         _check_one_screen(page, (1366, 768))
         before = interpret(example_copy).stage(STAGE)
-        x_new = before.peak.x_mm + 1.5
+        x_new = before.peak.chosen.x_mm + 1.5
         mid: dict[str, object] = {}
 
         def look_mid_drag() -> None:
@@ -229,7 +229,7 @@ def test_one_screen_drag_previews_and_refits_at_1366_and_1920(browser, lab: str,
             page.screenshot(path=str(artifacts / "workbook-1366-mid-drag.png"))
 
         saved = drag_until_saved(
-            page, "live-tau", before.peak.x_mm, before.peak.tau_kpa, x_new,
+            page, "live-tau", before.peak.chosen.x_mm, before.peak.chosen.tau_kpa, x_new,
             lambda: _file(example_copy).get("stages", {}).get(STAGE, {}).get("peak", {}).get("author") == "B. Browser"
             and _file(example_copy), "dragged peak in the interpretation file", halfway=look_mid_drag)
         assert any(t.startswith("peak preview (browser, release to refit): phi' ") for t in mid["titles"]), mid

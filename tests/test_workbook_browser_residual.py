@@ -58,7 +58,8 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
         page.locator(".sb-author input").press("Tab")
         choose_stage(page, STAGE)
         before = interpret(project).stage(STAGE)
-        assert before.residual is not None and not before.residual.reached and before.residual_source == "suggested"
+        assert before.residual is not None and before.residual.source == "suggested"
+        assert not before.residual.chosen.reached
         ends = page.evaluate(f"""() => {{ const v = Bokeh.index.query_one(v => v.model.name === '{name}');
             const r = v.model.renderers.find(r => r.glyph.marker && r.glyph.marker.value === 'square'
                                                  && r.data_source.data.x && r.data_source.data.x.length === 2
@@ -75,12 +76,12 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
         assert abs(saved["x_from_mm"] - x_from) < 0.05, saved  # the other end stayed
         assert abs(saved["x_to_mm"] - target) < 0.1, saved  # snapped to a reading near the drop
         after = interpret(project).stage(STAGE)
-        assert after.residual_source == "manual" and after.residual is not None and after.residual.reached
-        assert after.residual.tau_kpa != before.residual.tau_kpa
+        assert after.residual is not None and after.residual.source == "manual" and after.residual.chosen.reached
+        assert after.residual.chosen.tau_kpa != before.residual.chosen.tau_kpa
         shown = _wait(lambda: (p := page.evaluate(RESIDUAL_POINTS, [envelope])) != shown_before and p, 20,
                       "the page's envelope plot to draw the new residual point")
         assert STAGE in shown[0]
-        assert shown[1][shown[0].index(STAGE)] == pytest.approx(after.residual.tau_kpa, rel=1e-12)
+        assert shown[1][shown[0].index(STAGE)] == pytest.approx(after.residual.chosen.tau_kpa, rel=1e-12)
         panel = page.evaluate(PLOT_BOX, [name, 0, 0])
         page.screenshot(path=str(artifacts / "workbook-residual-drag.png"),
                         clip={"x": max(panel["left"] - 10, 0), "y": max(panel["top"] - 40, 0), "width": 1100,

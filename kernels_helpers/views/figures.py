@@ -115,28 +115,28 @@ def stage_figure(s: StageResult, u: Display = SI):
     lfmt, sfmt = ("0.000", "0.0") if u.is_si else ("0.0000", "0")
     hover = [("x", f"@x_mm{{{lfmt}}} {F('length')}"), ("tau", f"@tau_kpa{{{sfmt}}} {F('stress')}"),
              ("y", f"@y_mm{{{lfmt}}} {F('length')}"), ("e", "@e{0.0000}"), ("dy/dx", "@dydx{+0.0000}")]
+    cs = s.critical_state.chosen
     for p in (tau, vert, void):
-        p.add_layout(BoxAnnotation(left=s.critical_state.x_from_mm * L, right=s.critical_state.x_to_mm * L,
+        p.add_layout(BoxAnnotation(left=cs.x_from_mm * L, right=cs.x_to_mm * L,
                                    fill_color=CRIT, fill_alpha=0.12))
         p.add_tools(HoverTool(tooltips=hover, mode="vline"))
-    sug = s.critical_state_suggested
-    cs = s.critical_state
+    sug = s.critical_state.suggested
     windows = ColumnDataSource({"x": [cs.x_from_mm * L, cs.x_to_mm * L], "tau": [cs.tau_kpa * S] * 2,
                                 "x_sug": [sug.x_from_mm * L, sug.x_to_mm * L], "tau_sug": [sug.tau_kpa * S] * 2})
     items["critical state (window mean)"] = [_draw(tau, Line(x="x", y="tau", line_color=CRIT, line_width=3), windows)]
-    if s.critical_state_source == "manual":
+    if s.critical_state.source == "manual":
         items["critical state suggested"] = [_draw(tau, Line(x="x_sug", y="tau_sug", line_color=SUGGESTED, line_width=2,
                                                              line_dash="dashed"), windows)]
-    p, q = s.peak, s.peak_suggested
-    points = ColumnDataSource({"x": [p.x_mm * L], "tau": [p.tau_kpa * S], "y": [float(c["y_mm"].iloc[p.index]) * L],
-                               "e": [p.e], "x_sug": [q.x_mm * L], "tau_sug": [q.tau_kpa * S]})
-    if not (s.no_distinct_peak and s.peak_source == "suggested"):
+    pk, q = s.peak.chosen, s.peak.suggested
+    points = ColumnDataSource({"x": [pk.x_mm * L], "tau": [pk.tau_kpa * S], "y": [float(c["y_mm"].iloc[pk.index]) * L],
+                               "e": [pk.e], "x_sug": [q.x_mm * L], "tau_sug": [q.tau_kpa * S]})
+    if not (s.no_distinct_peak and s.peak.source == "suggested"):
         items["peak"] = [_draw(tau, Scatter(x="x", y="tau", size=11, fill_color=PEAK, line_color=PEAK,
                                             marker="diamond"), points)]
         _draw(vert, Scatter(x="x", y="y", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
         _draw(void, Scatter(x="x", y="e", size=9, fill_color=PEAK, line_color=PEAK, marker="diamond"), points)
-        vert.add_layout(Span(location=p.x_mm * L, dimension="height", line_color=PEAK, line_dash="dotted"))
-    if s.peak_source == "manual":
+        vert.add_layout(Span(location=pk.x_mm * L, dimension="height", line_color=PEAK, line_dash="dotted"))
+    if s.peak.source == "manual":
         items["peak suggested"] = [_draw(tau, Scatter(x="x_sug", y="tau_sug", size=10, line_color=SUGGESTED,
                                                       fill_color=None, marker="diamond", line_width=2), points)]
     tau.add_layout(Legend(items=list(items.items()), location="bottom_right", label_text_font_size="9px"))

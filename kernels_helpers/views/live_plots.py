@@ -63,12 +63,12 @@ def _xy(u: Display, xs: list[float], ys: list[float]) -> dict[str, list[float]]:
 
 def marker_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
     """The peak marker: the chosen peak reading (x, smoothed tau), in display units."""
-    return _xy(u, [s.peak.x_mm], [s.peak.tau_kpa])
+    return _xy(u, [s.peak.chosen.x_mm], [s.peak.chosen.tau_kpa])
 
 
 def window_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
     """The two ends of the critical-state window, drawn at the window's mean shear stress (display units)."""
-    cs = s.critical_state
+    cs = s.critical_state.chosen
     return _xy(u, [cs.x_from_mm, cs.x_to_mm], [cs.tau_kpa, cs.tau_kpa])
 
 
@@ -77,14 +77,15 @@ def residual_data(s: StageResult, pick: ResidualPick | None, u: Display = SI) ->
     if pick is None:
         return {"x": [], "y": []}
     _, lo, hi = pick
-    tau = s.residual.tau_kpa if s.residual is not None and s.residual.tau_kpa is not None else _window_mean(s, pick)
+    r = None if s.residual is None else s.residual.chosen
+    tau = r.tau_kpa if r is not None and r.tau_kpa is not None else _window_mean(s, pick)
     return _xy(u, [lo, hi], [tau, tau])
 
 
 def _strip_data(s: StageResult, u: Display = SI) -> dict[str, list[float]]:
     """The critical-state window as a strip across a plot (display units)."""
     k = u.factor("length")
-    return {"x0": [s.critical_state.x_from_mm * k], "x1": [s.critical_state.x_to_mm * k]}
+    return {"x0": [s.critical_state.chosen.x_from_mm * k], "x1": [s.critical_state.chosen.x_to_mm * k]}
 
 
 def _spike_data(s: StageResult, u: Display = SI) -> dict[str, list]:
@@ -139,7 +140,7 @@ def flag_places(s: StageResult, row_of_line: RowOfLine | None = None) -> list[tu
         elif found := [float(v) for v in _AT_MM.findall(f)]:
             span = (min(found), max(found))
         elif "critical state" in f:
-            span = (s.critical_state.x_from_mm, s.critical_state.x_to_mm)
+            span = (s.critical_state.chosen.x_from_mm, s.critical_state.chosen.x_to_mm)
         if span is not None:
             lo, hi = sorted(span)
             places.append((lo - half if hi - lo < 2 * half else lo, hi + half if hi - lo < 2 * half else hi, f))
@@ -208,13 +209,13 @@ class StagePlots:
         self.curve = ColumnDataSource(_scaled(_curve_data(s), u))
         self.peak = ColumnDataSource(marker_data(s, u))
         self.window = ColumnDataSource(window_data(s, u))
-        self.peak_suggested = ColumnDataSource(_xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
+        self.peak_suggested = ColumnDataSource(_xy(u, [s.peak.suggested.x_mm], [s.peak.suggested.tau_kpa]))
         self.plots = [self._plot(i, key, label, title, q) for i, (key, label, title, q) in enumerate(CURVES)]
         k = u.factor("length")
         # the window and the peak across all four plots, each from one source (one change per edit, not four),
         # drawn on the overlay layer: moving them repaints no curve
         self.window_strip = ColumnDataSource(_strip_data(s, u))
-        self.peak_line = ColumnDataSource({"x": [s.peak.x_mm * k]})
+        self.peak_line = ColumnDataSource({"x": [s.peak.chosen.x_mm * k]})
         for p in self.plots:
             p.vstrip(x0="x0", x1="x1", source=self.window_strip, fill_color=CRIT, fill_alpha=0.13, line_alpha=0,
                      level="overlay")
@@ -322,7 +323,7 @@ class StagePlots:
             self.curve.data = _scaled(_curve_data(s), self.u)
             _set(self.flagged, _spike_data(s, self.u))
         # what the shaded places are read from, with the curve
-        placed = (s.flags, s.critical_state.x_from_mm, s.critical_state.x_to_mm)
+        placed = (s.flags, s.critical_state.chosen.x_from_mm, s.critical_state.chosen.x_to_mm)
         if new_curve or placed != self._placed_for:
             self._placed_for = placed
             _set(self.places, _places_data(s, self.u, self.row_of_line))
@@ -332,14 +333,14 @@ class StagePlots:
             p.background_fill_color = "white" if s.included else "#f1f2f3"
         u, k = self.u, self.u.factor("length")
         _set(self.window_strip, _strip_data(s, u))
-        _set(self.peak_line, {"x": [s.peak.x_mm * k]})
+        _set(self.peak_line, {"x": [s.peak.chosen.x_mm * k]})
         _set(self.peak, marker_data(s, u))
         _set(self.window, window_data(s, u))
         shown = marker_data(s, u)
-        words = ("no distinct peak" if s.no_distinct_peak and s.peak_source == "suggested"
-                 else "manual peak" if s.peak_source == "manual" else "suggested peak")
+        words = ("no distinct peak" if s.no_distinct_peak and s.peak.source == "suggested"
+                 else "manual peak" if s.peak.source == "manual" else "suggested peak")
         _set(self.peak_label, {"x": shown["x"], "y": shown["y"], "text": [words]})
-        _set(self.peak_suggested, _xy(u, [s.peak_suggested.x_mm], [s.peak_suggested.tau_kpa]))
+        _set(self.peak_suggested, _xy(u, [s.peak.suggested.x_mm], [s.peak.suggested.tau_kpa]))
         in_set = f" ({s.test_set})" if s.test_set else ""
         self.plots[0].title.text = (f"{s.stage_id}{in_set} - shear stress, sigma'n "
                                     f"{u.with_unit('stress', s.sigma_nominal_kpa, 0)}"
@@ -362,13 +363,12 @@ class StagePlots:
             return
         _, lo, hi = pick
         self.residual_box.update(left=lo * k, right=hi * k, visible=True)
-        value = ("not reached" if s.residual is None or s.residual.tau_kpa is None
-                 else u.with_unit("stress", s.residual.tau_kpa, 1))
-        if s.residual is not None and s.residual_source == "suggested" and not s.residual.reached \
-                and s.residual.tau_kpa is not None:
+        source = "suggested" if s.residual is None else s.residual.source
+        r = None if s.residual is None else s.residual.chosen
+        value = "not reached" if r is None or r.tau_kpa is None else u.with_unit("stress", r.tau_kpa, 1)
+        if r is not None and source == "suggested" and not r.reached and r.tau_kpa is not None:
             value += " (upper bound)"
-        self.residual_label.update(x=hi * k, y=data["y"][0],
-                                   text=f"residual {value}, pass {pass_no}, {s.residual_source}")
+        self.residual_label.update(x=hi * k, y=data["y"][0], text=f"residual {value}, pass {pass_no}, {source}")
 
 
 def _set(source: ColumnDataSource, data: dict[str, list[float]]) -> None:
@@ -471,7 +471,8 @@ class EnvelopePlot:
 
     def update(self, results: Results) -> None:
         members = [s for s in results.stages if s.in_group(self.group)]
-        sigma_max = max([1.0, *(s.critical_state.sigma_kpa for s in members), *(s.peak.sigma_kpa for s in members)])
+        sigmas = [s.critical_state.chosen.sigma_kpa for s in members] + [s.peak.chosen.sigma_kpa for s in members]
+        sigma_max = max([1.0, *sigmas])
         k = self.u.factor("stress")
         for kind, _, _ in self.kinds:
             src = self.sources[kind]
@@ -625,7 +626,7 @@ class LivePlots:
             return (None if env is None or env.chosen is None else env.chosen.through_origin), words
 
         (po, pw), (co, cw) = chosen("peak"), chosen("critical_state")
-        cs = s.critical_state
-        _set(self.state, {"stage": [s.stage_id], "peak_x": [s.peak.x_mm * k], "cs_from": [cs.x_from_mm * k],
+        cs = s.critical_state.chosen
+        _set(self.state, {"stage": [s.stage_id], "peak_x": [s.peak.chosen.x_mm * k], "cs_from": [cs.x_from_mm * k],
                           "cs_to": [cs.x_to_mm * k], "peak_origin": [po], "cs_origin": [co], "peak_words": [pw],
                           "cs_words": [cw]})

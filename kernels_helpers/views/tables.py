@@ -188,21 +188,21 @@ def method_html(results: Results, u: Display = SI) -> str:
 
 
 def _pick_cells(s: StageResult, u: Display = SI) -> list[str]:
-    p, ps = s.peak, s.peak_suggested
-    if s.no_distinct_peak and s.peak_source == "suggested":
+    p, ps = s.peak.chosen, s.peak.suggested
+    if s.no_distinct_peak and s.peak.source == "suggested":
         peak = ["no distinct peak (see flags)"] + ["&ndash;"] * 3
     else:
         peak = [u.fmt("length", p.x_mm, 2), u.fmt("stress", p.tau_kpa, 1), u.fmt("stress", p.sigma_kpa, 1),
                 num(math.degrees(math.atan(p.ratio)), 1)]
-    peak_src = esc(s.peak_source) + (
+    peak_src = esc(s.peak.source) + (
         f" (suggested at {u.with_unit('length', ps.x_mm, 2)}, {u.with_unit('stress', ps.tau_kpa, 1)})"
-        if s.peak_source == "manual" else ""
+        if s.peak.source == "manual" else ""
     )
-    c, cs = s.critical_state, s.critical_state_suggested
-    cs_src = esc(s.critical_state_source) + (
+    c, cs = s.critical_state.chosen, s.critical_state.suggested
+    cs_src = esc(s.critical_state.source) + (
         f" (suggested {u.fmt('length', cs.x_from_mm, 2)}-{u.with_unit('length', cs.x_to_mm, 2)}, "
         f"{u.with_unit('stress', cs.tau_kpa, 1)})"
-        if s.critical_state_source == "manual" else "") + (
+        if s.critical_state.source == "manual" else "") + (
         "; not reached: left out of the critical-state fit" if s.critical_state_left_out else "") + (
         f"; not reached, used in the fit: {esc(s.critical_state_reason)}" if s.critical_state_used else ""
     )
@@ -219,7 +219,7 @@ def picks_table(results: Results, u: Display = SI) -> str:
     rows = []
     for s in results.stages:
         inc = "yes" if s.included else f"<b>excluded</b>: {esc(s.exclusion_reason)}"
-        notes = "; ".join(esc(n) for n in (s.note, s.peak_note, s.critical_state_note) if n)
+        notes = "; ".join(esc(n) for n in (s.note, s.peak.note, s.critical_state.note) if n)
         rows.append([esc(s.stage_id), u.fmt("stress", s.sigma_nominal_kpa, 0), inc, *_pick_cells(s, u), notes])
     L, S = u.unit("length"), u.unit("stress")
     headers = (
@@ -271,7 +271,7 @@ def residual_table(results: Results, u: Display = SI) -> str:
         passes = "<br>".join(f"pass {p.pass_no} ({'forward' if p.forward else 'back'}, "
                              f"{u.with_unit('length', p.travel_mm, 1)}): "
                              f"{u.with_unit('stress', p.tau_kpa, 1)}, tau/sigma {p.ratio:.3f}" for p in s.passes)
-        r = s.residual
+        r = s.residual.chosen
         value = (f"{u.with_unit('stress', r.tau_kpa, 1)} at {u.with_unit('stress', r.sigma_kpa, 1)}"
                  if r.tau_kpa is not None else "&ndash;")
         rows.append((esc(s.stage_id), passes, value, esc(u.annotate(r.message))))

@@ -70,9 +70,9 @@ class StagePanel:
         reversal = any(c.stage(sid).residual is not None for sid in c.stage_ids)
         self.plots = StagePlots(s, self.on_peak_drag, self.on_window_drag, self.on_residual_drag, reversal, u,
                                 c.row_of_line(s.stage_id))
-        self.peak_x = _float_text("peak at x", s.peak.x_mm, "sb-peak-x", u)
-        self.cs_from = _float_text("window from", s.critical_state.x_from_mm, "sb-cs-from", u)
-        self.cs_to = _float_text("window to", s.critical_state.x_to_mm, "sb-cs-to", u)
+        self.peak_x = _float_text("peak at x", s.peak.chosen.x_mm, "sb-peak-x", u)
+        self.cs_from = _float_text("window from", s.critical_state.chosen.x_from_mm, "sb-cs-from", u)
+        self.cs_to = _float_text("window to", s.critical_state.chosen.x_to_mm, "sb-cs-to", u)
         required = c.project.manual_pick_reason == "require"
         self.reason = W.Text(continuous_update=False, layout=W.Layout(width="265px"),
                              placeholder="reason for a manual pick" + (" (required)" if required else ""))
@@ -172,9 +172,9 @@ class StagePanel:
         u = self.wb.u
 
         def write() -> None:
-            self.peak_x.value = _shown_mm(u, s.peak.x_mm)
-            self.cs_from.value = _shown_mm(u, s.critical_state.x_from_mm)
-            self.cs_to.value = _shown_mm(u, s.critical_state.x_to_mm)
+            self.peak_x.value = _shown_mm(u, s.peak.chosen.x_mm)
+            self.cs_from.value = _shown_mm(u, s.critical_state.chosen.x_from_mm)
+            self.cs_to.value = _shown_mm(u, s.critical_state.chosen.x_to_mm)
             if self.residual_pass is not None:
                 self.residual_box.layout.display = "none" if pick is None else ""
                 if pick is not None:
@@ -185,18 +185,19 @@ class StagePanel:
                     self.res_from.value = _shown_mm(u, pick[1])
                     self.res_to.value = _shown_mm(u, pick[2])
         self.wb.guard.run(write)
-        peak = "suggested" if s.peak_source == "suggested" else (
-            f"manual (suggested {u.with_unit('length', s.peak_suggested.x_mm, 2)})")
-        cs = "suggested" if s.critical_state_source == "suggested" else (
-            f"manual (suggested {u.fmt('length', s.critical_state_suggested.x_from_mm, 2)}-"
-            f"{u.with_unit('length', s.critical_state_suggested.x_to_mm, 2)})")
+        peak = "suggested" if s.peak.source == "suggested" else (
+            f"manual (suggested {u.with_unit('length', s.peak.suggested.x_mm, 2)})")
+        cs = "suggested" if s.critical_state.source == "suggested" else (
+            f"manual (suggested {u.fmt('length', s.critical_state.suggested.x_from_mm, 2)}-"
+            f"{u.with_unit('length', s.critical_state.suggested.x_to_mm, 2)})")
         distinct = f"<br><i>{tables.esc(u.annotate(s.no_distinct_peak))}</i>" if s.no_distinct_peak else ""
         residual = "" if pick is None else f"<br>residual: {tables.esc(residual_words(s, pick, u))}"
         excluded = ("" if s.included else
                     f'<br><span class="sb-flag">excluded: {tables.esc(s.exclusion_reason)}</span>')
+        tau_peak, tau_cs = s.peak.chosen.tau_kpa, s.critical_state.chosen.tau_kpa
         self.info.value = (f"<small><b>{tables.esc(s.stage_id)}</b>: peak {tables.esc(peak)}, tau "
-                           f"{u.with_unit('stress', s.peak.tau_kpa, 1)}{distinct}<br>critical state: {tables.esc(cs)}, "
-                           f"tau {u.with_unit('stress', s.critical_state.tau_kpa, 1)}{residual}{excluded}</small>"
+                           f"{u.with_unit('stress', tau_peak, 1)}{distinct}<br>critical state: {tables.esc(cs)}, "
+                           f"tau {u.with_unit('stress', tau_cs, 1)}{residual}{excluded}</small>"
                            + stage_flags_html(s, u))
 
 
@@ -266,14 +267,16 @@ def stage_flags_html(s: StageResult, u: Display = SI) -> str:
 
 def residual_words(s: StageResult, pick: tuple[int, float, float], u: Display = SI) -> str:
     """The residual in use, in words: value, pass, window and source (e.g. for the stage table)."""
-    r = s.residual
-    if r is None or r.tau_kpa is None:
+    if s.residual is None:
+        return "none (not a reversal test)"
+    r = s.residual.chosen
+    if r.tau_kpa is None:
         value = "not reached"
     else:
         bound = "" if r.reached else " (not reached: an upper bound)"
         value = f"{u.with_unit('stress', r.tau_kpa, 1)}{bound}"
     return (f"{value} on pass {pick[0]}, {u.fmt('length', pick[1], 2)}-{u.with_unit('length', pick[2], 2)} "
-            f"({s.residual_source})")
+            f"({s.residual.source})")
 
 
 def _same(new: Any, drawn: dict[str, list[float]]) -> bool:
@@ -362,12 +365,13 @@ class StageTable:
             for s in results.stages:
                 r = self.rows[s.stage_id]
                 r["sigma"].value = u.fmt("stress", s.sigma_nominal_kpa, 0)
-                no_peak = s.no_distinct_peak and s.peak_source == "suggested"
-                peak = "no distinct peak" if no_peak else u.fmt("stress", s.peak.tau_kpa, 1)
-                r["peak"].value = f"{tables.esc(peak)} at {u.with_unit('length', s.peak.x_mm, 2)} ({s.peak_source})"
-                cs = s.critical_state
+                no_peak = s.no_distinct_peak and s.peak.source == "suggested"
+                pk = s.peak.chosen
+                peak = "no distinct peak" if no_peak else u.fmt("stress", pk.tau_kpa, 1)
+                r["peak"].value = f"{tables.esc(peak)} at {u.with_unit('length', pk.x_mm, 2)} ({s.peak.source})"
+                cs = s.critical_state.chosen
                 r["cs"].value = (f"{u.fmt('stress', cs.tau_kpa, 1)} over {u.fmt('length', cs.x_from_mm, 2)}-"
-                                 f"{u.with_unit('length', cs.x_to_mm, 2)} ({s.critical_state_source})"
+                                 f"{u.with_unit('length', cs.x_to_mm, 2)} ({s.critical_state.source})"
                                  + ('<br><span class="sb-flag">not reached: left out of the critical-state fit'
                                     "</span>" if s.critical_state_left_out else "")
                                  + (f"<br>not reached, used: {tables.esc(s.critical_state_reason)}"
@@ -725,8 +729,8 @@ _NOWRAP = "<style>.sb-live td:nth-child(4), .sb-live td:nth-child(5) {white-spac
 def summary_html(results: Results, controller: Controller, u: Display = SI) -> str:
     """Chosen parameters, the flags still open and the sign-off state, in a few lines."""
     interp = controller.interpretation
-    manual = sum((s.peak_source == "manual") + (s.critical_state_source == "manual") + (s.residual_source == "manual")
-                 for s in results.stages)
+    manual = sum(p is not None and p.source == "manual" for s in results.stages
+                 for p in (s.peak, s.critical_state, s.residual))
     out = [s for s in results.stages if not s.included]
     params = "; ".join(
         f"{e.group} {e.kind.replace('_', ' ')}: phi' {e.chosen.phi_deg:.1f} deg, "

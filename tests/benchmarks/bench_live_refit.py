@@ -49,14 +49,14 @@ def python_side(root: Path, repeats: int) -> None:
         sid = c.stage_ids[k % len(c.stage_ids)]
         panel = wb.select(sid)
         s = c.stage(sid)
-        x = 3.0 if abs(s.peak.x_mm - 3.0) > 0.1 else 3.6  # always a real move
+        x = 3.0 if abs(s.peak.chosen.x_mm - 3.0) > 0.1 else 3.6  # always a real move
         bm = wb.bokeh
         content = {"event": "jsevent", "kind": "ModelChanged", "model": {"id": panel.plots.peak.id}, "attr": "data",
-                   "new": Serializer().encode({"x": [x], "y": [s.peak.tau_kpa]})}
+                   "new": Serializer().encode({"x": [x], "y": [s.peak.chosen.tau_kpa]})}
         start = time.perf_counter()
         bm._sync_model(bm, content, [])  # what a drop in the page does: the callback runs twice
         totals.append(time.perf_counter() - start)
-        assert c.stage(sid).peak_source == "manual", wb.last_message
+        assert c.stage(sid).peak.source == "manual", wb.last_message
         spec, part, _ = c._units[sid]
         t = time.perf_counter()
         analyse_stage(spec, part, c.interpretation.decision(sid), c.interpretation.settings,
@@ -105,7 +105,7 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
         page.locator(".sb-author input").press("Tab")
         name = "live-tau"
         times = []
-        x, tau = results.stage(sid).peak.x_mm, results.stage(sid).peak.tau_kpa
+        x, tau = results.stage(sid).peak.chosen.x_mm, results.stage(sid).peak.chosen.tau_kpa
 
         def drag(x_from: float, y: float, x_to: float) -> None:
             a = page.evaluate(mod.PLOT_BOX, [name, x_from, y])
@@ -121,11 +121,11 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
         for attempt in range(1, 11):  # a drag the kernel never answers would be an edit lost: count them
             drag(x, tau, x + 1.5)
             deadline = time.monotonic() + 5
-            while time.monotonic() < deadline and abs(interpret(root).stage(sid).peak.x_mm - x) < 0.5:
+            while time.monotonic() < deadline and abs(interpret(root).stage(sid).peak.chosen.x_mm - x) < 0.5:
                 time.sleep(0.2)
             moved = interpret(root).stage(sid)
-            if abs(moved.peak.x_mm - x) >= 0.5:
-                x, tau = moved.peak.x_mm, moved.peak.tau_kpa
+            if abs(moved.peak.chosen.x_mm - x) >= 0.5:
+                x, tau = moved.peak.chosen.x_mm, moved.peak.chosen.tau_kpa
                 print(f"first drag after ready answered at attempt {attempt}")
                 break
         else:
@@ -146,7 +146,7 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
             times.append(page.evaluate("() => (window.__sb_env - window.__sb_up) / 1000"))
             page.wait_for_function(mod.KERNEL_IDLE, timeout=30_000)
             page.wait_for_timeout(300)
-            x, tau = x_new, interpret(root).stage(sid).peak.tau_kpa
+            x, tau = x_new, interpret(root).stage(sid).peak.chosen.tau_kpa
         print(f"Browser side, mouse-up -> the kernel's phi' and c' over the envelope ({repeats} drags): {_ms(times)}"
               "   aim: median under 100 ms")
         ctx.close()

@@ -87,8 +87,8 @@ def one_run(scratch: Path) -> dict[str, float]:
 
         while not saved() and drags < 10:
             drags += 1
-            a = page.evaluate(mod.PLOT_BOX, ["live-tau", first.peak.x_mm, first.peak.tau_kpa])
-            b = page.evaluate(mod.PLOT_BOX, ["live-tau", first.peak.x_mm + 1.5, first.peak.tau_kpa])
+            a = page.evaluate(mod.PLOT_BOX, ["live-tau", first.peak.chosen.x_mm, first.peak.chosen.tau_kpa])
+            b = page.evaluate(mod.PLOT_BOX, ["live-tau", first.peak.chosen.x_mm + 1.5, first.peak.chosen.tau_kpa])
             page.mouse.move(a["x"], a["y"])
             page.mouse.down()
             page.mouse.move(b["x"], b["y"], steps=8)
