@@ -24,6 +24,7 @@ from typing import Literal
 import numpy as np
 import pandas as pd
 
+from .decisions import Cohesion
 from .errors import ShearbookError
 from .interpretation import INTERPRETATION_FILE, Interpretation, PickKind, check_stage_ids, load_interpretation
 from .picks import at_point
@@ -241,17 +242,17 @@ class Controller:
             return self._unchanged(f"{stage_id}: note unchanged")
         return self._edit(lambda i: i.with_note(stage_id, note, self.author), stage_id, f"{stage_id}: note saved")
 
-    def set_cohesion(self, cohesion: Literal["free", "zero"]) -> bool:
+    def set_cohesion(self, cohesion: Cohesion) -> bool:
         """Which fit gives the reported c' and phi': c' free or through the origin (c' = 0)."""
         fit = self.interpretation.settings.fit
+        words = "c' = 0 (envelopes through the origin)" if cohesion == Cohesion.ORIGIN else "c' free"
         if fit.cohesion == cohesion:
-            return self._unchanged(f"c' is already {cohesion}")
+            return self._unchanged(f"the reported fits are already {words}")
 
         def edit(i: Interpretation) -> Interpretation:
             settings = dataclasses.replace(i.settings, fit=dataclasses.replace(fit, cohesion=cohesion))
             return dataclasses.replace(i, settings=settings)
 
-        words = "c' = 0 (envelopes through the origin)" if cohesion == "zero" else "c' free"
         return self._edit(edit, None, f"reported fits: {words}")
 
     def sign_off(self, state: Literal["draft", "checked", "approved"], note: str = "") -> bool:

@@ -9,6 +9,7 @@ no file, so the file models can be built from it.
 from __future__ import annotations
 
 import dataclasses
+import enum
 import hashlib
 import json
 from collections.abc import Mapping
@@ -23,7 +24,7 @@ from typing import (
 
 from typing_extensions import TypedDict
 
-from .settings import PARTIAL_FACTOR_SETS, STRICT_FILE, PickSettings, RateSettings, ReductionSettings
+from .settings import PARTIAL_FACTOR_SETS, STRICT_FILE, PickSettings, RateSettings, ReductionSettings, file_key
 from .signatures import Digests, StepSignature
 
 __all__ = [
@@ -31,6 +32,7 @@ __all__ = [
     "PICK_PLACE",
     "SCHEMA",
     "SCHEMA_VERSION",
+    "Cohesion",
     "DesignChoices",
     "DesignKind",
     "FitSettings",
@@ -76,6 +78,18 @@ def utc_now() -> str:
     return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
+class Cohesion(enum.StrEnum):
+    """Which fit gives the reported c' and phi': c' free, or the line through the origin (c' = 0).
+
+    The value is the files' spelling (interpretation and results, schema 1): the through-origin fit is written
+    "zero" there, as it was first written, because a signed sign-off digests the files' content (as for
+    :data:`~.settings.FILE_KEYS`). In code and on screen it is the origin.
+    """
+
+    FREE = "free"
+    ORIGIN = "zero"
+
+
 @dataclass(frozen=True)
 class FitSettings:
     """Envelope options: which c' the reported parameters use, the confidence level, the outlier test.
@@ -88,17 +102,25 @@ class FitSettings:
 
     __pydantic_config__ = STRICT_FILE
 
-    cohesion: Literal["free", "zero"] = "free"
+    cohesion: Cohesion = Cohesion.FREE
     level: float = 0.95
     outlier_level: float = 0.95
 
     def __post_init__(self) -> None:
-        if self.cohesion not in ("free", "zero"):
-            raise ValueError(f"cohesion must be 'free' or 'zero', not {self.cohesion!r}")
+        try:  # "free" and "zero" given as text (code, or an older caller) are the members they spell
+            object.__setattr__(self, "cohesion", Cohesion(self.cohesion))
+        except ValueError:
+            raise ValueError(f"cohesion must be 'free' or 'zero' (the fit through the origin), not "
+                             f"{self.cohesion!r}") from None
         if not 0.5 < self.level < 1:
             raise ValueError(f"level must be between 0.5 and 1, not {self.level!r}")
         if not 0.5 < self.outlier_level < 1:
             raise ValueError(f"outlier_level must be between 0.5 and 1, not {self.outlier_level!r}")
+
+    @property
+    def through_origin(self) -> bool:
+        """Whether the reported c' and phi' are the line's through the origin (c' = 0)."""
+        return self.cohesion == Cohesion.ORIGIN
 
 
 @dataclass(frozen=True)
@@ -111,6 +133,11 @@ class Settings:
     picks: PickSettings = field(default_factory=PickSettings)
     fit: FitSettings = field(default_factory=FitSettings)
     rate: RateSettings = field(default_factory=RateSettings)
+
+    def to_dict(self) -> dict[str, dict[str, Any]]:
+        """The file's form: each section's fields under their file keys (:data:`~.settings.FILE_KEYS`)."""
+        return {section.name: {file_key(k): v for k, v in dataclasses.asdict(getattr(self, section.name)).items()}
+                for section in dataclasses.fields(self)}
 
 
 # where each kind of pick lies on its curve: the peak at one displacement, the critical state over a window,
@@ -396,7 +423,7 @@ class Interpretation:
             "schema": self.schema,
             "schema_version": SCHEMA_VERSION,
             "revision": self.revision,
-            "settings": dataclasses.asdict(self.settings),
+            "settings": self.settings.to_dict(),
             "stages": {k: v.to_dict() for k, v in sorted(self.stages.items())},
             "raw_files": dict(sorted(self.raw_files.items())),
             "signoff": {"state": self.signoff.state, "history": [dict(h) for h in self.signoff.history]},

@@ -11,7 +11,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from .decisions import Interpretation
+from .decisions import Cohesion, Interpretation
 from .pipeline import interpret
 from .project import Project
 from .results import Results, StageResult
@@ -109,7 +109,7 @@ def _f(value: float, sign: str = "") -> str:
 
 
 def _form(reported: str) -> str:
-    return "c' = 0" if reported == "zero" else "c' free"
+    return "c' = 0" if reported == Cohesion.ORIGIN else "c' free"
 
 
 def _envelope_lines(ra: Results, rb: Results) -> list[str]:
@@ -173,7 +173,7 @@ def diff_interpretations(project: Project, before: Interpretation, after: Interp
     notes = {sid: d.residual.note for sid, d in after.stages.items()}
     stages = [line for sa, sb in zip(ra.stages, rb.stages, strict=True)
               for line in _stage_lines(sa, sb, notes.get(sb.stage_id, ""))]
-    fa, fb = _flat(dataclasses.asdict(before.settings)), _flat(dataclasses.asdict(after.settings))
+    fa, fb = _flat(before.settings.to_dict()), _flat(after.settings.to_dict())
     settings = [f"{k}: {fa.get(k)!r} -> {fb.get(k)!r}" for k in sorted(set(fa) | set(fb)) if fa.get(k) != fb.get(k)]
     signoff = []
     if before.signoff.state != after.signoff.state:

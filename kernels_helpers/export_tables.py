@@ -16,6 +16,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any, Final
 
+from .decisions import Cohesion
 from .display_units import SI, Display
 from .results import Results
 
@@ -101,7 +102,7 @@ def envelope_rows(results: Results | Mapping[str, Any]) -> list[dict[str, Any]]:
             phi_ci, c_ci = f.get("phi_interval_deg") or (None, None), f.get("c_interval_kpa") or (None, None)
             rows.append({
                 "group": e["group"], "kind": e["kind"], "fit": form,
-                "reported": (e["reported"] == "zero") == (form == "origin"),
+                "reported": (e["reported"] == Cohesion.ORIGIN) == (form == "origin"),
                 "n": f.get("n"), "dof": f.get("dof"), "phi_deg": f.get("phi_deg"),
                 "phi_ci_low_deg": phi_ci[0], "phi_ci_high_deg": phi_ci[1], "c_kpa": f.get("c_kpa"),
                 "c_ci_low_kpa": c_ci[0], "c_ci_high_kpa": c_ci[1], "level": f.get("level"), "r2": f.get("r2"),

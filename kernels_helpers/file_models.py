@@ -38,6 +38,7 @@ from .decisions import (
     pick_keys,
 )
 from .decisions import SCHEMA as INTERPRETATION_SCHEMA
+from .settings import FILE_KEYS, file_key
 
 __all__ = ["Problem", "check_interpretation_data", "check_interpretation_text", "check_project_table", "json_schemas",
            "listing"]
@@ -262,7 +263,7 @@ class InterpretationFile(_Table):
     schema_: Literal["shearbook.interpretation/1"] = Field(alias="schema")
     schema_version: Annotated[int, Field(ge=1, le=SCHEMA_VERSION)]
     revision: Annotated[int, Field(ge=0)] = 0
-    settings: Settings = Settings()
+    settings: Settings = Field(default_factory=Settings)  # (a default object would be shown by field name)
     stages: dict[str, StageDecision] = {}
     raw_files: dict[str, Annotated[str, Field(pattern=SHA256_PATTERN)]] = {}
     signoff: SignOff = SignOff()
@@ -318,7 +319,7 @@ def _field_types(tp: Any) -> dict[str, Any]:
         return {f.alias or name: f.annotation for name, f in tp.model_fields.items()}
     if dataclasses.is_dataclass(tp):
         hints = typing.get_type_hints(tp, include_extras=True)
-        return {f.name: hints[f.name] for f in dataclasses.fields(tp)}
+        return {file_key(f.name): hints[f.name] for f in dataclasses.fields(tp)}  # read under its file key
     if typing.is_typeddict(tp):
         return dict(typing.get_type_hints(tp, include_extras=True))
     return {}
@@ -344,7 +345,9 @@ def _type_at(root: Any, loc: Sequence[int | str]) -> Any:
 def _allowed(error: Mapping[str, Any]) -> str:
     ctx = error.get("ctx") or {}
     kind = error["type"]
-    if kind == "literal_error":
+    if kind == "enum" and error.get("loc", ())[-1:] == ("cohesion",):
+        return f"allowed: {ctx.get('expected')} ('zero' is the fit through the origin, c' = 0)"
+    if kind in ("literal_error", "enum"):
         return f"allowed: {ctx.get('expected')}"
     if kind == "string_pattern_mismatch" and ctx.get("pattern") == SHA256_PATTERN:
         return "allowed: a SHA-256, 64 hexadecimal digits 0-9 and a-f (Shearbook writes it: do not edit it by hand)"
@@ -389,6 +392,8 @@ def _problems(exc: ValidationError, root: Any, file: str, prefix: Sequence[int |
             known = _known_keys(root, loc[:-1])
             near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
             hint = f"did you mean {near[0]}?" if near else f"known keys here: {', '.join(known)}"
+            if str(loc[-1]) in FILE_KEYS and FILE_KEYS[str(loc[-1])] in known:  # the word in code, not the file's
+                hint = f"the file spells it {FILE_KEYS[str(loc[-1])]} (schema 1)"
             out.append(Problem(file, where, f"unknown key {str(loc[-1])!r}; {hint}"))
             continue
         if kind == "missing":

@@ -9,7 +9,7 @@ fitted). Plain data in, sentences out.
 
 from __future__ import annotations
 
-from .decisions import PickKind
+from .decisions import Cohesion, PickKind
 from .results import EnvelopeResult, Results
 
 __all__ = ["fit_changes", "standing_notices"]
@@ -43,7 +43,7 @@ def fit_changes(before: Results, after: Results) -> list[str]:
                                           if e.chosen is None else "fitted again"))
         elif b.reported != e.reported:
             out.append(f"{_name(e)}: now " + ("c' = 0 (through the origin): " + (e.not_fitted or "")
-                                              if e.reported == "zero" else "c' free (enough stages again)"))
+                                              if e.reported == Cohesion.ORIGIN else "c' free (enough stages again)"))
         if e.chosen is not None and e.chosen.negative_cohesion and not (b.chosen and b.chosen.negative_cohesion):
             out.append(f"{_name(e)}: c' became negative ({e.chosen.intercept:.3g} kPa): consider c' = 0")
         for sid in sorted(set(b.stage_ids) - set(e.stage_ids)):
@@ -60,7 +60,7 @@ def standing_notices(results: Results) -> list[str]:
         if e.chosen is None:
             out.append(f"{_name(e)}: not fitted ({e.not_fitted or 'too few stages'})")
             continue
-        if e.reported == "zero" and e.not_fitted:
+        if e.reported == Cohesion.ORIGIN and e.not_fitted:
             out.append(f"{_name(e)}: c' = 0 reported because a fit with c' free is not possible ({e.not_fitted})")
         if e.chosen.negative_cohesion:
             out.append(f"{_name(e)}: negative c' ({e.chosen.intercept:.3g} kPa): consider c' = 0")

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .decisions import Cohesion
 from .envelope import fit_line, fit_through_origin, t_quantile
 from .results import EnvelopeResult
 
@@ -70,7 +71,7 @@ def studentised_external(sigma: np.ndarray, tau: np.ndarray, origin: bool) -> np
 def envelope_outliers(env: EnvelopeResult, level: float) -> list[Outlier]:
     """The stages of ``env`` outside the ``level`` prediction interval of the envelope fitted without them."""
     fit = env.chosen
-    origin = env.reported == "zero"
+    origin = env.reported == Cohesion.ORIGIN
     x, y = np.asarray(env.sigma_kpa, dtype=float), np.asarray(env.tau_kpa, dtype=float)
     p = 1 if origin else 2
     n = len(x)

@@ -8,10 +8,10 @@ Rules (also stated in the contributor guide and the record):
   takes no part in the peak envelope. A record that stops a short way past a clear peak, so that
   the end window reaches back over it, keeps its peak when the curve falls after it by at least
   ``distinct_peak_margin`` (wherever the window starts); its critical state is then "not reached".
-* **Critical state** - the mean shear stress over the last ``cs_window_mm`` of travel. It is
-  "reached" when, over that window, the mean rate of dilation is within ``cs_rate_tolerance`` of
+* **Critical state** - the mean shear stress over the last ``critical_state_window_mm`` of travel. It is
+  "reached" when, over that window, the mean rate of dilation is within ``critical_state_rate_tolerance`` of
   zero and the fitted trend of the stress ratio tau/sigma changes it by less than
-  ``cs_trend_tolerance`` (a fraction of the mean) across the window (the ratio, not tau: on the
+  ``critical_state_trend_tolerance`` (a fraction of the mean) across the window (the ratio, not tau: on the
   corrected area both stresses grow as the contact shrinks while the strength is steady).
   Otherwise the value is still reported, with the flag "critical state not reached" and the numbers.
 """
@@ -117,17 +117,17 @@ def over_window(reduced: ReducedStage, x_from_mm: float, x_to_mm: float, setting
     trend = slope * (hi - lo) / float(np.mean(ratio))
     rate = float(np.mean(sel["dydx"].to_numpy()))
     flags: list[str] = []
-    if abs(rate) > settings.cs_rate_tolerance:
+    if abs(rate) > settings.critical_state_rate_tolerance:
         sense = "dilating" if rate > 0 else "contracting"
         flags.append(
             f"critical state not reached: still {sense}, mean dy/dx {rate:+.4f} over {lo:.2f}-{hi:.2f} mm "
-            f"(tolerance {settings.cs_rate_tolerance:g})"
+            f"(tolerance {settings.critical_state_rate_tolerance:g})"
         )
-    if abs(trend) > settings.cs_trend_tolerance:
+    if abs(trend) > settings.critical_state_trend_tolerance:
         sense = "rising" if trend > 0 else "falling"
         flags.append(
             f"critical state not reached: stress ratio still {sense}, {trend * 100:+.1f} % across "
-            f"{lo:.2f}-{hi:.2f} mm (tolerance {settings.cs_trend_tolerance * 100:g} %)"
+            f"{lo:.2f}-{hi:.2f} mm (tolerance {settings.critical_state_trend_tolerance * 100:g} %)"
         )
     return WindowValues(
         x_from_mm=lo,
@@ -144,10 +144,10 @@ def over_window(reduced: ReducedStage, x_from_mm: float, x_to_mm: float, setting
 
 
 def suggest_critical_state(reduced: ReducedStage, settings: PickSettings) -> tuple[float, float]:
-    """Suggested critical-state window: the last ``cs_window_mm`` of travel, as (from, to) in mm."""
+    """Suggested critical-state window: the last ``critical_state_window_mm`` of travel, as (from, to) in mm."""
     x = _shear_rows(reduced)["x_mm"].to_numpy()
     x_end = float(np.max(x))
-    return max(float(np.min(x)), x_end - settings.cs_window_mm), x_end
+    return max(float(np.min(x)), x_end - settings.critical_state_window_mm), x_end
 
 
 def suggest_peak(reduced: ReducedStage, cs: WindowValues, settings: PickSettings) -> tuple[float, str | None]:
@@ -188,7 +188,7 @@ def peak_flags(reduced: ReducedStage, peak: PointValues, settings: PickSettings)
     x = rows["x_mm"].to_numpy()
     flags = []
     rate = rows["dydx"].to_numpy()
-    if np.isfinite(rate).any() and np.nanmax(rate) > settings.cs_rate_tolerance:
+    if np.isfinite(rate).any() and np.nanmax(rate) > settings.critical_state_rate_tolerance:
         x_dil = float(x[int(np.nanargmax(rate))])
         limit = max(settings.peak_dilation_offset_mm, 0.25 * peak.x_mm)
         if abs(x_dil - peak.x_mm) > limit:

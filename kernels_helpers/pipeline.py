@@ -18,6 +18,7 @@ from typing import Literal, TypeVar
 import numpy as np
 
 from .apparatus import Correction, correction_flags, corrections_at
+from .decisions import Cohesion
 from .derived import derive
 from .envelope import fit_line, fit_through_origin
 from .errors import InterpretationFileError
@@ -163,7 +164,7 @@ def _suggestions(reduced: ReducedStage, p: PickSettings) -> _Suggested:
     if no_peak is None and x_peak >= cs.x_from_mm:
         cs = dataclasses.replace(cs, flags=(*cs.flags, (
             f"critical state not reached: the record ends {cs.x_to_mm - x_peak:.2f} mm after the peak at "
-            f"{x_peak:.2f} mm, inside the last {p.cs_window_mm:g} mm taken for critical state")))
+            f"{x_peak:.2f} mm, inside the last {p.critical_state_window_mm:g} mm taken for critical state")))
     return _Suggested(cs, x_peak, no_peak)
 
 
@@ -368,7 +369,7 @@ def _envelope(group: str, kind: PickKind, members: list[StageResult], fit: FitSe
         if kind == "critical_state" and len(used) < len(members):
             reason += " (excluded stages and critical states not reached do not count)"
         if origin is not None:
-            reported = "zero"
+            reported = Cohesion.ORIGIN
             reason += "; the through-origin fit (c' = 0) is reported instead"
     return EnvelopeResult(group, kind, ids, sigma, tau, free, origin, reported, reason)
 
@@ -477,11 +478,11 @@ def assemble_results(proj: Project, readings: Mapping[str, StageReadings], inter
             "vertical_displacement": "positive for dilation",
             "horizontal_displacement": "positive in the direction of shearing, seating slack removed",
         },
-        settings=dataclasses.asdict(interp.settings),
+        settings=interp.settings.to_dict(),
         stages=stages,
         envelopes=envelopes,
         provenance=provenance(proj, readings, interp),
         sensitivity=tuple(row for e in envelopes for row in leave_one_out(e, interp.settings.fit.level)),
         **derive(stages, envelopes, interp.design, proj.design_stress_range_kpa,
-                 {s.id: s.specimen.relative_density for s in proj.stages}, interp.settings.fit.cohesion == "zero"),
+                 {s.id: s.specimen.relative_density for s in proj.stages}, interp.settings.fit.through_origin),
     )

@@ -19,7 +19,7 @@ from .apparatus import Correction
 from .compare import SetComparison
 from .consolidation import ConsolidationResult, RateCheck, consolidation_dict
 from .critical_state import CriticalStateLine
-from .decisions import DesignChoices, DesignKind, PickKind, Source
+from .decisions import Cohesion, DesignChoices, DesignKind, PickKind, Source
 from .design import DESIGN_CAUTION, DesignValues, RegressionCharacteristic, TanPhiStatistics
 from .dilatancy import StageDilatancy
 from .envelope import CurvatureComparison, LineFit, PowerLawFit
@@ -122,12 +122,12 @@ class EnvelopeResult:
     tau_kpa: tuple[float, ...]
     free: LineFit | None
     origin: LineFit | None
-    reported: str  # "free" or "zero": which fit gives the reported c' and phi'
+    reported: Cohesion  # which fit gives the reported c' and phi' (written "free" or "zero" in the results)
     not_fitted: str | None = None
 
     @property
     def chosen(self) -> LineFit | None:
-        return self.origin if self.reported == "zero" else self.free
+        return self.origin if self.reported == Cohesion.ORIGIN else self.free
 
 
 def _fit_dict(fit: LineFit | None) -> dict[str, Any] | None:

@@ -10,15 +10,29 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Final, Literal
 
-__all__ = ["PARTIAL_FACTOR_SETS", "TIME_TO_FAILURE_RULES", "AreaConvention", "PickSettings", "RateSettings",
-           "ReductionSettings"]
+__all__ = ["FILE_KEYS", "PARTIAL_FACTOR_SETS", "TIME_TO_FAILURE_RULES", "AreaConvention", "PickSettings",
+           "RateSettings", "ReductionSettings", "file_key"]
 
 AreaConvention = Literal["corrected", "nominal"]
 
+#: The interpretation file's spelling (schema 1) of the settings whose word in code is "critical_state": the keys
+#: keep the spelling they were first written with, because a signed sign-off digests the file's content
+#: (signatures.py), so renaming a key in the file would make every earlier signature fail. A new schema version
+#: may rename them, re-signing as it migrates. DEVELOPERS.md lists them.
+FILE_KEYS: Final = {"critical_state_window_mm": "cs_window_mm", "critical_state_rate_tolerance": "cs_rate_tolerance",
+                    "critical_state_trend_tolerance": "cs_trend_tolerance"}
+
+
+def file_key(name: str) -> str:
+    """The key in the interpretation file of the record field ``name`` (:data:`FILE_KEYS`, else the name itself)."""
+    return FILE_KEYS.get(name, name)
+
+
 #: how the file models (:mod:`.file_models`, pydantic) read these dataclasses from a file: unknown keys are
-#: errors, a number is a number (never true or "3"), NaN and Infinity are refused. A plain dict, so that this
-#: module imports no validation library.
-STRICT_FILE: Final = {"extra": "forbid", "strict": True, "allow_inf_nan": False}
+#: errors, a number is a number (never true or "3"), NaN and Infinity are refused, a field is read under its
+#: file key. A plain dict, so that this module imports no validation library.
+STRICT_FILE: Final = {"extra": "forbid", "strict": True, "allow_inf_nan": False, "alias_generator": file_key,
+                      "serialize_by_alias": True}
 
 # EN 1997-1 Annex A, Table A.4 (recommended values): set -> (gamma_phi' on tan phi', gamma_c')
 PARTIAL_FACTOR_SETS: Final = {"M1": (1.0, 1.0), "M2": (1.25, 1.25)}
@@ -67,9 +81,9 @@ class PickSettings:
 
     __pydantic_config__ = STRICT_FILE
 
-    cs_window_mm: float = 2.0
-    cs_rate_tolerance: float = 0.01
-    cs_trend_tolerance: float = 0.02
+    critical_state_window_mm: float = 2.0  # in the file: cs_window_mm (FILE_KEYS)
+    critical_state_rate_tolerance: float = 0.01  # cs_rate_tolerance
+    critical_state_trend_tolerance: float = 0.02  # cs_trend_tolerance
     distinct_peak_margin: float = 0.03
     peak_rule: Literal["tau", "ratio"] = "tau"  # maximum shear stress, or maximum stress ratio tau/sigma
     peak_dilation_offset_mm: float = 0.5  # flag when the peak is further than this from the maximum dilation rate
@@ -82,11 +96,11 @@ class PickSettings:
     jump_range_fraction: float = 0.05  # ... and this fraction of the channel's range, kept afterwards, is a jump
 
     def __post_init__(self) -> None:
-        for name in ("cs_window_mm", "cs_rate_tolerance", "cs_trend_tolerance", "distinct_peak_margin",
-                     "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance", "stuck_max_values",
-                     "still_vertical_mm", "jump_robust_sd", "jump_range_fraction"):
-            if not getattr(self, name) > 0:
-                raise ValueError(f"{name} must be positive, not {getattr(self, name)!r}")
+        for name in ("critical_state_window_mm", "critical_state_rate_tolerance", "critical_state_trend_tolerance",
+                     "distinct_peak_margin", "peak_dilation_offset_mm", "stick_slip_fraction", "residual_tolerance",
+                     "stuck_max_values", "still_vertical_mm", "jump_robust_sd", "jump_range_fraction"):
+            if not getattr(self, name) > 0:  # named by its file key: that is where a person types it
+                raise ValueError(f"{file_key(name)} must be positive, not {getattr(self, name)!r}")
         if self.peak_rule not in ("tau", "ratio"):
             raise ValueError(f"peak_rule must be 'tau' or 'ratio', not {self.peak_rule!r}")
 

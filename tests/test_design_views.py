@@ -8,6 +8,7 @@ import pytest
 from bokeh.models import GlyphRenderer, Legend, MultiLine, VArea
 
 from kernels_helpers import Interpretation, interpret
+from kernels_helpers.decisions import Cohesion
 from kernels_helpers.design import DESIGN_CAUTION
 from kernels_helpers.views import design_views
 from kernels_helpers.views.figures import envelope_figure
@@ -43,7 +44,7 @@ def test_envelope_figure_draws_the_stored_bands_of_every_pick_type(results) -> N
                   and results.envelope(group, st.kind).chosen is not None]
         assert len(areas) == len(banded) > 0  # one confidence band per fitted pick type
         for st in banded:
-            reported = "origin" if results.envelope(group, st.kind).reported == "zero" else "free"
+            reported = "origin" if results.envelope(group, st.kind).reported is Cohesion.ORIGIN else "free"
             band = next(b for b in st.bands if b.fit == reported)
             assert any(list(r.data_source.data["y1"]) == list(band.mean_lower_kpa)
                        and list(r.data_source.data["y2"]) == list(band.mean_upper_kpa) for r in areas)

@@ -12,6 +12,7 @@ from conftest import EXAMPLE
 from scipy import stats
 
 from kernels_helpers.cli import main
+from kernels_helpers.decisions import Cohesion
 from kernels_helpers.export_tables import (
     ENVELOPE_COLUMNS,
     SENSITIVITY_COLUMNS,
@@ -69,7 +70,7 @@ def test_envelope_rows_match_the_fits_and_scipy(results: Results, tables: dict[s
     for e in results.envelopes:
         for form, fit in (("free", e.free), ("origin", e.origin)):
             row = env[(env["group"] == e.group) & (env["kind"] == e.kind) & (env["fit"] == form)].iloc[0]
-            assert bool(row["reported"]) is ((e.reported == "zero") == (form == "origin"))
+            assert bool(row["reported"]) is ((e.reported is Cohesion.ORIGIN) == (form == "origin"))
             if fit is None:
                 assert math.isnan(row["phi_deg"]) and row["not_fitted"]
                 continue

@@ -15,6 +15,7 @@ import pytest
 from bokeh.core.serialization import Serializer
 
 from kernels_helpers import interpret
+from kernels_helpers.decisions import Cohesion
 from kernels_helpers.pipeline import raw_file_hashes
 from kernels_helpers.views.widgets import LiveWorkbook, live_workbook
 
@@ -154,8 +155,8 @@ def test_exclusion_needs_a_reason_and_greys_the_point(wb: LiveWorkbook) -> None:
 def test_cohesion_toggle_parameters_and_summary(wb: LiveWorkbook) -> None:
     assert "sb-phi" in wb.parameters.value and "Caution" in wb.parameters.value
     wb.cohesion.value = True
-    assert _file(wb)["settings"]["fit"]["cohesion"] == "zero"
-    assert all(e.reported == "zero" for e in wb.controller.results.envelopes if e.chosen)
+    assert _file(wb)["settings"]["fit"]["cohesion"] == "zero"  # the file's spelling of the fit through the origin
+    assert all(e.reported is Cohesion.ORIGIN for e in wb.controller.results.envelopes if e.chosen)
     assert "0 (fixed)" in wb.parameters.value
     fit = wb.controller.results.envelope("BH03 dense", "critical_state").chosen
     assert f'data-kind="critical_state">{fit.phi_deg:.1f}<' in wb.parameters.value

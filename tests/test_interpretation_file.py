@@ -13,6 +13,7 @@ import pytest
 
 from kernels_helpers.errors import InterpretationFileError
 from kernels_helpers.interpretation import (
+    Cohesion,
     FitSettings,
     Interpretation,
     Pick,
@@ -41,9 +42,10 @@ def _full() -> Interpretation:
         settings=Settings(
             reduction=ReductionSettings(area_convention="nominal", smoothing_window_mm=0.8, seating_fraction=0.03,
                                         peak_smoothing_mm=0.3),
-            picks=PickSettings(cs_window_mm=3.0, cs_rate_tolerance=0.02, cs_trend_tolerance=0.03,
+            picks=PickSettings(critical_state_window_mm=3.0, critical_state_rate_tolerance=0.02,
+                               critical_state_trend_tolerance=0.03,
                                distinct_peak_margin=0.05),
-            fit=FitSettings(cohesion="zero", level=0.9),
+            fit=FitSettings(cohesion=Cohesion.ORIGIN, level=0.9),
         ),
         raw_files={"readings/S2.csv": "b" * 64, "readings/S1.csv": "a" * 64},
         signoff=SignOff(
@@ -247,7 +249,8 @@ def test_every_problem_of_the_file_is_reported_at_once(tmp_path: Path) -> None:
     lines = str(info.value).splitlines()
     assert lines[0] == f"{path}: 4 problem(s); nothing was read or changed:"
     assert sorted(lines[1:]) == sorted([
-        "  settings.fit.cohesion: found \"some\"; allowed: 'free' or 'zero'",
+        "  settings.fit.cohesion: found \"some\"; allowed: 'free' or 'zero' ('zero' is the fit through the origin, "
+        "c' = 0)",
         "  settings.fit.levle: unknown key 'levle'; did you mean level?",
         "  stages.S1.included: Input should be a valid boolean (found 0)",
         "  stages.S1.peak.x_mm: Input should be a valid number (found \"x\")",
@@ -258,6 +261,12 @@ def test_every_problem_of_the_file_is_reported_at_once(tmp_path: Path) -> None:
     ("section", "value", "part"),
     [
         ("fit", {"cohesion": "some"}, "settings.fit.cohesion: found \"some\"; allowed: 'free' or 'zero'"),
+        # the word in code and on screen is the origin; the file keeps its first spelling, and says so
+        ("fit", {"cohesion": "origin"}, "settings.fit.cohesion: found \"origin\"; allowed: 'free' or 'zero' ('zero' is "
+                                        "the fit through the origin, c' = 0)"),
+        ("picks", {"critical_state_window_mm": 3.0}, "settings.picks.critical_state_window_mm: unknown key "
+                                                     "'critical_state_window_mm'; the file spells it cs_window_mm "
+                                                     "(schema 1)"),
         ("fit", {"level": 1.5}, "settings.fit: level must be between 0.5 and 1, not 1.5"),
         ("reduction", {"area_convention": "shrunk"},
          "settings.reduction.area_convention: found \"shrunk\"; allowed: 'corrected' or 'nominal'"),
@@ -295,3 +304,30 @@ def test_missing_file_gives_all_suggested(tmp_path: Path) -> None:
     assert loaded == Interpretation()
     assert loaded.decision("anything") == StageDecision()
     assert not (tmp_path / "interpretation.json").exists()  # loading never creates the file
+
+
+def test_the_files_keep_their_schema_1_spellings(tmp_path: Path, example_copy: Path) -> None:
+    """In code the words are critical_state_* and the origin; the files keep the spellings they were first
+    written with (a signed sign-off digests their content): cs_window_mm and friends, and "zero"."""
+    from kernels_helpers import interpret
+    from kernels_helpers.settings import FILE_KEYS
+
+    picks = PickSettings(critical_state_window_mm=3.0, critical_state_rate_tolerance=0.02,
+                         critical_state_trend_tolerance=0.04)
+    interp = Interpretation(settings=Settings(picks=picks, fit=FitSettings(cohesion=Cohesion.ORIGIN)))
+    path = tmp_path / "interpretation.json"
+    save_interpretation(interp, path)
+    saved = json.loads(path.read_text(encoding="utf-8"))["settings"]
+    assert {k: saved["picks"][k] for k in FILE_KEYS.values()} == {
+        "cs_window_mm": 3.0, "cs_rate_tolerance": 0.02, "cs_trend_tolerance": 0.04}
+    assert not set(FILE_KEYS) & set(saved["picks"]) and saved["fit"]["cohesion"] == "zero"
+    back = load_interpretation(path)
+    assert back.settings == interp.settings and back.settings.fit.cohesion is Cohesion.ORIGIN
+    assert back.settings.picks.critical_state_window_mm == 3.0
+    results = json.loads(interpret(example_copy, back).to_json())
+    assert results["settings"] == saved  # the results state the settings as the file does
+    assert {e["reported"] for e in results["envelopes"] if e["origin"]} == {"zero"}
+    # text given in code is the member it spells; the word of the code is not the file's
+    assert FitSettings(cohesion="zero").cohesion is Cohesion.ORIGIN  # type: ignore[arg-type]
+    with pytest.raises(ValueError, match="cohesion must be 'free' or 'zero'"):
+        FitSettings(cohesion="origin")  # type: ignore[arg-type]

@@ -10,6 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from kernels_helpers import interpret
+from kernels_helpers.decisions import Cohesion
 from kernels_helpers.interpretation import load_interpretation
 from kernels_helpers.notices import fit_changes, standing_notices
 from kernels_helpers.views.widgets import live_workbook
@@ -21,7 +22,7 @@ def test_excluding_a_stage_says_the_fit_fell_back_to_c_zero_and_why(example_copy
     assert wb.controller.exclude("BH03-D2", "disturbed on trimming (test)")
     after = wb.controller.results
     env = after.envelope("BH03 dense", "critical_state")
-    assert env.reported == "zero" and before.envelope("BH03 dense", "critical_state").reported == "free"
+    assert env.reported is Cohesion.ORIGIN and before.envelope("BH03 dense", "critical_state").reported == "free"
     changes = fit_changes(before, after)
     assert any(c.startswith("BH03 dense, critical state: now c' = 0 (through the origin): ") for c in changes)
     assert "BH03 dense, peak: BH03-D2 left the fit (excluded: disturbed on trimming (test))" in changes

@@ -25,6 +25,7 @@ from bokeh.models import (
 from bokeh.plotting import figure
 from tsdownsample import LTTBDownsampler
 
+from ..decisions import Cohesion
 from ..display_units import SI, Display
 from ..results import EnvelopeResult, Results, StageResult
 
@@ -188,7 +189,7 @@ def envelope_figure(results: Results, group: str, u: Display = SI):
         if fit is None:
             items.insert(0, (f"{name}: not fitted", [r]))
             continue
-        reported = "origin" if env.reported == "zero" else "free"
+        reported = "origin" if env.reported == Cohesion.ORIGIN else "free"
         band = next((b for b in stat.bands if b.fit == reported), None) if stat else None
         if band is not None:
             xs, ys = list(band.sigma_kpa), list(band.line_kpa)

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from ..decisions import Interpretation
+from ..decisions import Cohesion, Interpretation
 from ..display_units import SI, Display
 from ..escaping import css_string
 from ..results import EnvelopeResult, Results
@@ -61,12 +61,12 @@ def _envelope_row(results: Results, e: EnvelopeResult, u: Display) -> tuple[str,
     c = "0 (through origin)" if fit.through_origin else (
         f"{u.fmt('stress', fit.intercept, 1)} [{u.fmt('stress', c_lo, 1)}, {u.fmt('stress', c_hi, 1)}]")
     notes = ['<span class="sb-flag">negative c\'</span>'] if fit.negative_cohesion else []
-    if e.not_fitted and e.reported == "zero":
+    if e.not_fitted and e.reported == Cohesion.ORIGIN:
         notes.append("too few stages for c' free: c' = 0 reported")
     elif e.not_fitted:
         notes.append("see Envelopes")
     note = "; ".join(notes)
-    return (esc(e.group), esc(_kind(e.kind)), "c' free" if e.reported == "free" else "c' = 0",
+    return (esc(e.group), esc(_kind(e.kind)), "c' free" if e.reported == Cohesion.FREE else "c' = 0",
             f"{fit.phi_deg:.1f} [{lo:.1f}, {hi:.1f}]", c, str(fit.n), out or "none", note)
 
 

@@ -22,7 +22,7 @@ from bokeh.protocol import Protocol
 from jupyter_bokeh.widgets import BokehModel
 
 from ..controller import Controller
-from ..decisions import utc_now
+from ..decisions import Cohesion, utc_now
 from ..display_units import SI, Display, display_for
 from ..escaping import dom_key
 from ..notices import fit_changes, standing_notices
@@ -459,7 +459,7 @@ class LiveWorkbook:
                                 style={"description_width": "80px"}, layout=W.Layout(width="300px"))
         self.group.add_class("sb-group-choice")
         self.group.observe(lambda ch: None if self.guard.active else self.show_group(ch["new"]), "value")
-        self.cohesion = W.Checkbox(value=controller.interpretation.settings.fit.cohesion == "zero", indent=False,
+        self.cohesion = W.Checkbox(value=controller.interpretation.settings.fit.through_origin, indent=False,
                                    description="c' = 0 (through the origin)", layout=W.Layout(width="auto"))
         self.curved = W.Checkbox(value=False, indent=False, description="curved envelope tau = a sigma'^b",
                                  layout=W.Layout(width="auto"))
@@ -600,8 +600,9 @@ class LiveWorkbook:
     def on_cohesion(self, change: dict[str, Any]) -> None:
         if self.guard.active:
             return
-        if not self.act(lambda c: c.set_cohesion("zero" if change["new"] else "free")):  # refused: show the file's
-            zero = self.controller.interpretation.settings.fit.cohesion == "zero"
+        chosen = Cohesion.ORIGIN if change["new"] else Cohesion.FREE
+        if not self.act(lambda c: c.set_cohesion(chosen)):  # refused: show the file's
+            zero = self.controller.interpretation.settings.fit.through_origin
             self.guard.run(lambda: setattr(self.cohesion, "value", zero))
 
     def on_curved(self, change: dict[str, Any]) -> None:
@@ -632,7 +633,7 @@ class LiveWorkbook:
                                   for f in dataclasses.fields(results) if f.name != "provenance"):
             self.show_plots(results, changed)  # not shown before the save (a reload, the first view)
         self.stage_table.update(results)  # flags comparing stages may change on other rows
-        zero = self.controller.interpretation.settings.fit.cohesion == "zero"
+        zero = self.controller.interpretation.settings.fit.through_origin
         choices = self._choices(results)
 
         def write() -> None:
