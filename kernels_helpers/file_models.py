@@ -24,7 +24,7 @@ import typing
 from collections.abc import Mapping, Sequence
 from typing import Annotated, Any, Final, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, TypeAdapter, ValidationError, field_validator
 
 from .decisions import (
     PICK_PLACE,
@@ -40,8 +40,8 @@ from .decisions import (
 from .decisions import SCHEMA as INTERPRETATION_SCHEMA
 from .settings import FILE_KEYS, file_key
 
-__all__ = ["Problem", "check_interpretation_data", "check_interpretation_text", "check_project_table", "json_schemas",
-           "listing"]
+__all__ = ["Problem", "ResultsBlock", "check_interpretation_data", "check_interpretation_text", "check_project_table",
+           "check_results_data", "json_schemas", "listing"]
 
 PROJECT_SCHEMA: Final = "shearbook.project/1"
 SHA256_PATTERN: Final = r"^[0-9a-f]{64}$"
@@ -270,8 +270,53 @@ class InterpretationFile(_Table):
     design: DesignChoices = DesignChoices()
 
 
+def _inside_the_project(name: str) -> str:
+    parts = name.replace("\\", "/").split("/")
+    if not name or name.startswith(("/", "\\")) or ":" in parts[0] or any(p in ("", ".", "..") for p in parts):
+        raise ValueError(f"a raw file is named by its path inside the project folder (e.g. readings/S1.csv), "
+                         f"not {name!r}: a record naming a file outside the project is not verified")
+    return name
+
+
+RawFileName = Annotated[str, AfterValidator(_inside_the_project)]
+
+
+class RawFileEntry(_Table):
+    """One raw file the results were computed from: its SHA-256 and size."""
+
+    sha256: Annotated[str, Field(pattern=SHA256_PATTERN)]
+    size_bytes: Annotated[int, Field(ge=0)]
+
+
+class Provenance(BaseModel):
+    """What the results were computed from and with; verify reads these keys (others are compared as numbers)."""
+
+    model_config = ConfigDict(extra="allow", strict=True, allow_inf_nan=False, frozen=True)
+
+    raw_files: dict[RawFileName, RawFileEntry]
+    interpretation_sha256: Annotated[str, Field(pattern=SHA256_PATTERN)]
+    versions: dict[str, str]
+    python: str
+
+
+class ResultsBlock(BaseModel):
+    """The results JSON as a record embeds it (schema ``shearbook.results/1``), read back by verify.
+
+    Only the parts verify acts on are typed (the schema, the provenance, the lists it walks); every value
+    is then compared leaf by leaf against the re-run, so nothing else needs a type of its own here.
+    """
+
+    model_config = ConfigDict(extra="allow", strict=True, allow_inf_nan=False, frozen=True)
+
+    schema_: Literal["shearbook.results/1"] = Field(alias="schema")
+    provenance: Provenance
+    stages: list[dict[str, Any]]
+    envelopes: list[dict[str, Any]]
+
+
 _PROJECT = TypeAdapter(ProjectFile)
 _INTERPRETATION = TypeAdapter(InterpretationFile)
+_RESULTS = TypeAdapter(ResultsBlock)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -385,7 +430,7 @@ def _each_pick_problem(errors: Sequence[Any]) -> list[Any]:
 def _problems(exc: ValidationError, root: Any, file: str, prefix: Sequence[int | str] = ()) -> list[Problem]:
     out = []
     for error in _each_pick_problem(exc.errors(include_url=False)):
-        loc = tuple(part for part in error["loc"] if not str(part).startswith("function-"))
+        loc = tuple(part for part in error["loc"] if not str(part).startswith("function-") and part != "[key]")
         where = _path((*prefix, *loc))
         kind, value = error["type"], error.get("input")
         if kind in ("extra_forbidden", "unexpected_keyword_argument"):
@@ -456,6 +501,18 @@ def check_interpretation_data(data: Any, file: str) -> tuple[InterpretationFile 
     except (TypeError, ValueError) as exc:
         return None, [Problem(file, "", f"holds a value JSON cannot carry ({exc}); NaN and Infinity are refused")]
     return check_interpretation_text(text, file)
+
+
+def check_results_data(data: Any, where: str) -> tuple[ResultsBlock | None, list[Problem]]:
+    """The results block of a record read back: validated, or None and every problem of it."""
+    try:
+        text = json.dumps(data, allow_nan=False)
+    except (TypeError, ValueError) as exc:
+        return None, [Problem(where, "", f"holds a value JSON cannot carry ({exc}); NaN and Infinity are refused")]
+    try:
+        return _RESULTS.validate_json(text), []
+    except ValidationError as exc:
+        return None, _problems(exc, ResultsBlock, where)
 
 
 def json_schemas() -> dict[str, dict[str, Any]]:

@@ -63,9 +63,16 @@ def _text(path: str | Path) -> tuple[Path, str]:
 
 
 def read_record(path: str | Path) -> tuple[dict[str, Any], dict[str, Any]]:
-    """The results JSON and the interpretation JSON embedded in a record."""
+    """The results JSON and the interpretation JSON embedded in a record, read back through their models
+    (:func:`_read_back`): a damaged or edited block raises :class:`RecordError` naming every problem."""
     p, text = _text(path)
-    return _block(text, "shearbook-results", p), _block(text, "shearbook-interpretation", p)
+    return _blocks(text, p)
+
+
+def _blocks(text: str, path: Path) -> tuple[dict[str, Any], dict[str, Any]]:
+    recorded, interp_json = _block(text, "shearbook-results", path), _block(text, "shearbook-interpretation", path)
+    _read_back(recorded, interp_json, path)
+    return recorded, interp_json
 
 
 def record_schema(text: str) -> str:
@@ -156,6 +163,20 @@ class Verification:
         return "\n".join(lines) + "\n"
 
 
+def _read_back(recorded: Any, interp_json: Any, path: Path) -> None:
+    """The record's two data blocks read back through their models: a damaged or hand-edited block is named,
+    key by key, before anything is compared (never a fault inside Shearbook, never a quiet comparison of less)."""
+    from .file_models import check_interpretation_data, check_results_data
+
+    problems = check_results_data(recorded, "results")[1] + check_interpretation_data(interp_json, "interpretation")[1]
+    if problems:
+        raise RecordError(f"{path}: the record's embedded data is damaged or was edited, {len(problems)} problem(s); "
+                          "the record cannot be verified (ask for the record as it was written, or make a new "
+                          "one with `shearbook record`):\n" + "\n".join(
+                              f"  {p.file}{'' if not p.path or p.path.startswith('[') else '.'}{p.path}: "
+                              + p.message.removesuffix("; add it") for p in problems))
+
+
 def signature_checks(recorded: dict[str, Any], interp_json: dict[str, Any],
                      allowed: list[AllowedSigner] | None) -> tuple[tuple[str, Check], ...]:
     """Every sign-off step of the record's interpretation, checked against the record's own data."""
@@ -175,13 +196,13 @@ def verify_record(record: str | Path, project_dir: str | Path, allowed_signers: 
     allowed = read_allowed_signers(Path(allowed_signers)) if allowed_signers else None
     rec_path, root = Path(record).resolve(), Path(project_dir).resolve()
     rec_path, text = _text(rec_path)
-    recorded = _block(text, "shearbook-results", rec_path)
-    interp_json = _block(text, "shearbook-interpretation", rec_path)
+    recorded, interp_json = _blocks(text, rec_path)
     signed = {"signatures": signature_checks(recorded, interp_json, allowed), "trust_checked": allowed is not None,
               "require_signed": require_signed}
     project = load_project(root)
-    then_files = recorded.get("provenance", {}).get("raw_files", {})
-    now_files = {name: {"sha256": sha256_of(root / name)} for name in then_files if (root / name).is_file()}
+    then_files = recorded["provenance"]["raw_files"]
+    now_files = {name: {"sha256": sha256_of(root / name)} for name in then_files
+                 if (root / name).resolve().is_relative_to(root) and (root / name).is_file()}
     changed = tuple(
         f"{name} (SHA-256 was {info['sha256'][:16]}..., now "
         + (f"{now_files[name]['sha256'][:16]}...)" if name in now_files else "missing)")

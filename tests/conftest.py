@@ -47,7 +47,7 @@ def example_record(tmp_path_factory: pytest.TempPathFactory) -> ExampleRecord:
     root = tmp_path_factory.mktemp("example_record") / "example_project"
     shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
     before = {p.name: p.read_bytes() for p in (root / "readings").iterdir()}
-    return ExampleRecord(root, write_record(root, root / "records" / "record.html").path, before)
+    return ExampleRecord(root, write_record(root, root / "records" / "r1.html").path, before)
 
 
 @pytest.fixture(scope="session")

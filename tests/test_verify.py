@@ -9,6 +9,7 @@ import re
 import shutil
 import socket
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
@@ -17,17 +18,19 @@ from kernels_helpers.interpretation import load_interpretation
 from kernels_helpers.record import write_record
 from kernels_helpers.verify import REL_TOL, verify_record
 
+if TYPE_CHECKING:
+    from conftest import ExampleRecord
+
 pytestmark = pytest.mark.notebook
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"
 
 
-@pytest.fixture(scope="module")
-def recorded(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """A project copy with one record in records/ (made once: executing the workbook takes seconds)."""
-    root = tmp_path_factory.mktemp("verify") / "project"
-    shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
-    write_record(root, root / "records" / "r1.html")
-    return root
+@pytest.fixture
+def recorded(example_record: ExampleRecord) -> Path:
+    """The example project's copy with its one record, records/r1.html (the suite's shared record: only read
+    here, every test that changes the project or the record works on its own copy)."""
+    assert example_record.path == example_record.project / "records" / "r1.html"
+    return example_record.project
 
 
 def _copy(recorded: Path, tmp_path: Path) -> Path:
@@ -347,3 +350,60 @@ def test_a_record_without_marked_sections_says_only_its_data_was_compared(record
     v = verify_record(rec, root)
     assert v.ok and v.shown_compared == 0
     assert any("only its embedded data was compared" in n for n in v.notes)
+
+
+def _edit_interpretation(record: Path, change) -> None:
+    text = record.read_text(encoding="utf-8")
+    m = re.search(r'(<script type="application/json" id="shearbook-interpretation">)(.*?)(</script>)', text, re.S)
+    data = json.loads(m.group(2))
+    change(data)
+    body = json.dumps(data).replace("<", "\\u003c")
+    record.write_text(text[: m.start(2)] + body + text[m.end(2) :], encoding="utf-8")
+
+
+WRAP = object()  # the whole data block wrapped in a list
+
+
+@pytest.mark.parametrize(
+    ("block", "change", "line"),
+    [
+        # a hostile or careless editor of the record's data: each is named key by key, never a fault inside
+        # Shearbook and never a quieter comparison (removing the versions would have compared within a tolerance)
+        ("results", lambda d: d.pop("provenance"), "results.provenance: this key is required"),
+        ("results", WRAP, "results: Input should be an object (found a list)"),
+        ("results", lambda d: d["provenance"].pop("versions"), "results.provenance.versions: this key is required"),
+        ("results", lambda d: d["provenance"].__setitem__("raw_files", []),
+         "results.provenance.raw_files: Input should be an object (found a list)"),
+        ("results", lambda d: d["provenance"]["raw_files"]["readings/BH03-D1.csv"].__setitem__("sha256", 5),
+         'results.provenance.raw_files["readings/BH03-D1.csv"].sha256: Input should be a valid string (found 5)'),
+        ("results", lambda d: d["provenance"]["raw_files"].__setitem__("../../etc/passwd", {"sha256": "0" * 64,
+                                                                                            "size_bytes": 1}),
+         'results.provenance.raw_files["../../etc/passwd"]: a raw file is named by its path inside the project '
+         "folder (e.g. readings/S1.csv), not '../../etc/passwd': a record naming a file outside the project is not "
+         "verified"),
+        ("results", lambda d: d.__setitem__("schema", "shearbook.results/9"),
+         "results.schema: found \"shearbook.results/9\"; allowed: 'shearbook.results/1'"),
+        ("interpretation", WRAP, "interpretation: Input should be an object (found a list)"),
+        ("interpretation", lambda d: d["signoff"].__setitem__("history", [1]),
+         "interpretation.signoff.history[0]: Input should be an object (found 1)"),
+        ("interpretation", lambda d: d["stages"]["BH03-D2"]["peak"].__setitem__("x_to_mm", 9.0),
+         'interpretation.stages["BH03-D2"].peak.x_to_mm: unknown key \'x_to_mm\'; known keys here: author, note, '
+         "source, time_utc, x_mm"),
+    ],
+)
+def test_a_damaged_or_edited_data_block_is_named_before_anything_is_compared(
+        recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str], block: str, change, line: str) -> None:
+    root = _copy(recorded, tmp_path)
+    rec = root / "records" / "r1.html"
+    if change is WRAP:  # the whole block made a list: written as such
+        text = rec.read_text(encoding="utf-8")
+        m = re.search(rf'(<script type="application/json" id="shearbook-{block}">)(.*?)(</script>)', text, re.S)
+        rec.write_text(text[: m.start(2)] + "[" + m.group(2) + "]" + text[m.end(2) :], encoding="utf-8")
+    else:
+        (_edit_results if block == "results" else _edit_interpretation)(rec, change)
+    before = rec.read_bytes()
+    assert main(["verify", str(rec)]) == 2
+    err = capsys.readouterr().err
+    assert "the record's embedded data is damaged or was edited, 1 problem(s); the record cannot be verified" in err
+    assert f"\n  {line}\n" in err + "\n", err
+    assert "inside Shearbook" not in err and rec.read_bytes() == before  # named, and the record left as it was
