@@ -544,9 +544,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     A numerical warning (numpy, scipy) is an error here, not a line on the terminal: a computation
     that warns has met data it was not written for, and its result is not given. ``--debug`` adds
     the traceback.
+
+    This process does without the rfc3987_syntax package: jsonschema (imported by nbformat) builds its
+    38 grammars at import when it is installed, over a second, a sixth of a record here, for the "iri"
+    string format that no notebook schema uses. An import of it here then fails as if it were not installed.
     """
+    import sys
     import warnings
 
+    sys.modules.setdefault("rfc3987_syntax", None)  # type: ignore[arg-type]  (None: "not importable", by design)
     args = build_parser().parse_args(argv)
     try:
         with warnings.catch_warnings():

@@ -50,6 +50,25 @@ def example_record(tmp_path_factory: pytest.TempPathFactory) -> ExampleRecord:
     return ExampleRecord(root, write_record(root, root / "records" / "r1.html").path, before)
 
 
+@dataclass(frozen=True)
+class HostileRecord:
+    """A record of the example project with markup in every user text field (synthetic.hostile_project)."""
+
+    project: Path
+    path: Path
+
+
+@pytest.fixture(scope="session")
+def hostile_record(tmp_path_factory: pytest.TempPathFactory) -> HostileRecord:
+    """One record of the hostile project per test process, only read by the tests that take it."""
+    from synthetic import hostile_project
+
+    from kernels_helpers.record import write_record
+
+    project = hostile_project(tmp_path_factory.mktemp("hostile_record"))
+    return HostileRecord(project, write_record(project, project / "records" / "record-hostile.html").path)
+
+
 @pytest.fixture(scope="session")
 def browser() -> Iterator[object]:
     """Headless Debian chromium driven by Playwright. In CI a missing browser fails, never skips."""

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -30,8 +31,14 @@ def test_record_command_writes_the_file_it_prints(example_copy: Path, tmp_path: 
     out = tmp_path / "out" / "rec.html"
     done = subprocess.run([sys.executable, "-m", "kernels_helpers.cli", "record", str(example_copy), "-o", str(out)],
                           capture_output=True, text=True, check=True, timeout=300)
-    assert done.stdout.strip() == str(out.resolve())
+    assert done.stdout == f"{out.resolve()}\n"
     assert out.stat().st_size > 100_000
+    # only Shearbook's own lines on stderr: what it does, then the flags; no library's log line or warning
+    assert done.stderr.startswith(f"Running the workbook on {example_copy.resolve()} and exporting the record ...\n")
+    assert [line for line in done.stderr.splitlines()[1:]
+            if not re.fullmatch(r"  flag: .+|\d+ flag\(s\) on included stages:", line)] == []
+    for noise in ("[IPKernelApp]", "WARNING", "Warning:", "Traceback", "[I ", "[W "):
+        assert noise not in done.stdout + done.stderr
 
 
 def test_workbook_copy_points_at_its_own_project(example_copy: Path) -> None:
@@ -106,3 +113,18 @@ def test_open_refuses_a_port_in_use(example_copy: Path, capsys: pytest.CaptureFi
     assert capsys.readouterr().err == (f"shearbook: error: port {port} on 127.0.0.1 is already in use "
                                        "(another JupyterLab?); choose a free one with --port.\n")
     assert not (example_copy / "shear_interpretation.ipynb").exists()  # nothing written before the refusal
+
+
+def test_the_command_does_without_the_iri_grammars_and_still_reads_notebooks(example_copy: Path) -> None:
+    """A command blocks rfc3987_syntax (built at import by jsonschema, over a second), and notebooks still
+    validate: nbformat's schema has no "iri" format (the figure is in DEVELOPERS.md, Record size and speed)."""
+    probe = ("import sys\n"
+             "from kernels_helpers.cli import main\n"
+             "from kernels_helpers.resources import workbook_template\n"
+             f"assert main(['check', {str(example_copy)!r}, '-q']) == 0\n"
+             "import nbformat\n"
+             "nbformat.validate(nbformat.read(workbook_template(), as_version=4))\n"
+             "print(sys.modules.get('rfc3987_syntax', 'absent'))\n")
+    done = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().splitlines()[-1] == "None"

@@ -12,6 +12,7 @@ import math
 import re
 import shutil
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pint
 import pytest
@@ -31,6 +32,9 @@ UREG = pint.UnitRegistry()
 # quantity -> (canonical unit, US unit) in pint's spelling
 PINT = {"stress": ("kPa", "lbf/ft**2"), "length": ("mm", "inch"), "force": ("N", "lbf"),
         "cv": ("m**2/year", "ft**2/year"), "rate": ("mm/min", "inch/min")}
+
+if TYPE_CHECKING:
+    from conftest import ExampleRecord
 
 
 def test_factors_agree_with_nist_sp_811_appendix_b() -> None:
@@ -178,16 +182,17 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
 
 
 @pytest.mark.notebook
-def test_a_us_record_shows_us_units_embeds_si_and_verifies(example_copy: Path, tmp_path: Path) -> None:
+def test_a_us_record_shows_us_units_embeds_si_and_verifies(example_copy: Path, tmp_path: Path,
+                                                           example_record: ExampleRecord) -> None:
     from kernels_helpers.record import write_record
-    from kernels_helpers.verify import verify_record
+    from kernels_helpers.verify import read_record, verify_record
 
-    si = write_record(example_copy, example_copy / "records" / "si.html")
+    si_results = read_record(example_record.path)[0]  # the suite's SI record of the same unchanged project
     us = write_record(example_copy, example_copy / "records" / "us.html", units="US")
-    assert us.results == si.results  # the embedded results are SI and the same
+    assert us.results == si_results  # the embedded results are SI and the same
     text = us.path.read_text(encoding="utf-8")
     assert "Display units: US customary (psf, in, lbf)" in text
-    env = next(e for e in si.results["envelopes"] if e["free"] and e["reported"] == "free")
+    env = next(e for e in si_results["envelopes"] if e["free"] and e["reported"] == "free")
     c_psf = US.fmt("stress", env["free"]["c_kpa"], 1)
     assert f"<td>{c_psf} [" in text and "(psf) [95 % CI]" in text
     assert "horizontal displacement (in)" in text and "shear stress tau (psf)" in text

@@ -11,14 +11,13 @@ from typing import TYPE_CHECKING
 import nbformat
 import pytest
 
-from kernels_helpers import interpret, save_interpretation
+from kernels_helpers import interpret
 from kernels_helpers.errors import InterpretationFileError, RecordError
-from kernels_helpers.interpretation import Interpretation, StageDecision
 from kernels_helpers.record import execute_workbook, network_references, write_record
 from kernels_helpers.resources import workbook_template
 
 if TYPE_CHECKING:
-    from conftest import ExampleRecord
+    from conftest import ExampleRecord, HostileRecord
 
 pytestmark = pytest.mark.notebook
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"  # the bundled project: a record must not change it
@@ -95,27 +94,12 @@ def test_record_shows_bands_curved_fit_and_design_values_with_cautions(record: t
     assert "EN 1997-1 Annex A Table A.4, recommended" in text
 
 
-def test_user_text_is_escaped_in_the_record(example_copy: Path, tmp_path: Path) -> None:
-    evil = "<script>alert(1)</script><img src=x onerror=alert(2)>"
-    interp = Interpretation().with_decision("BH03-D2", StageDecision(note=evil))
-    interp = interp.with_decision("BH03-L1", StageDecision(included=False, exclusion_reason=evil))
-    save_interpretation(interp, example_copy / "interpretation.json")
-    text = write_record(example_copy, tmp_path / "r.html").path.read_text(encoding="utf-8")
-    assert "<script>alert(1)</script>" not in text and "<img src=x onerror" not in text
-    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text
+def test_user_text_is_escaped_in_the_record(hostile_record: HostileRecord) -> None:
+    """Markup in a stage note, an exclusion reason and every other user field (the suite's hostile record)."""
+    text = hostile_record.path.read_text(encoding="utf-8")
+    assert "<script>alert(2)</script>" not in text and "<img src=x onerror" not in text
+    assert "&lt;script&gt;alert(2)&lt;/script&gt;" in text
     assert network_references(text) == []
-
-
-def test_failed_cell_stops_the_export(example_copy: Path, tmp_path: Path) -> None:
-    nb = nbformat.read(workbook_template(), as_version=4)
-    nb.cells.append(nbformat.v4.new_code_cell("raise RuntimeError('stage table is inconsistent')"))
-    broken = tmp_path / "broken.ipynb"
-    nbformat.write(nb, broken)
-    out = tmp_path / "never.html"
-    with pytest.raises(RecordError, match=r"broken\.ipynb: cell \d+ \(\"raise RuntimeError.*\) raised RuntimeError: "
-                                          r"stage table is inconsistent\. No record was written"):
-        write_record(example_copy, out, template=broken)
-    assert not out.exists()
 
 
 def test_record_does_not_touch_the_raw_readings(example_record: ExampleRecord) -> None:
@@ -153,11 +137,14 @@ def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_re
     assert example_record.path.is_file()  # a record was written by this process
     assert _kernels_of_this_process() == []
     nb = nbformat.read(workbook_template(), as_version=4)
-    nb.cells.insert(3, nbformat.v4.new_code_cell("raise RuntimeError('early')"))
+    nb.cells.insert(3, nbformat.v4.new_code_cell("raise RuntimeError('stage table is inconsistent')"))
     broken = tmp_path / "broken.ipynb"
     nbformat.write(nb, broken)
-    with pytest.raises(RecordError):
-        write_record(example_copy, tmp_path / "never.html", template=broken)
+    out = tmp_path / "never.html"
+    with pytest.raises(RecordError, match=r"broken\.ipynb: cell \d+ \(\"raise RuntimeError.*\) raised RuntimeError: "
+                                          r"stage table is inconsistent\. No record was written"):
+        write_record(example_copy, out, template=broken)  # a failed cell stops the export: no record
+    assert not out.exists()
     assert _kernels_of_this_process() == []
 
 

@@ -12,12 +12,10 @@ from typing import TYPE_CHECKING
 
 import pytest
 from PIL import Image, ImageStat
-from synthetic import PAYLOAD, hostile_project
-
-from kernels_helpers.record import write_record
+from synthetic import PAYLOAD
 
 if TYPE_CHECKING:
-    from conftest import ExampleRecord
+    from conftest import ExampleRecord, HostileRecord
 
 pytestmark = pytest.mark.browser
 
@@ -67,31 +65,15 @@ def test_record_renders_offline_with_plots(browser, example_record: ExampleRecor
     page.close()
 
 
-def test_escaped_note_does_not_run_in_the_browser(browser, example_copy: Path, artifacts: Path) -> None:
-    from kernels_helpers import save_interpretation
-    from kernels_helpers.interpretation import Interpretation, StageDecision
+def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, hostile_record: HostileRecord,
+                                                                 artifacts: Path) -> None:
+    """OWASP XSS prevention rules 1, 2 and 3.1 (common practice): text in HTML, attributes and script JSON.
 
-    note = "<script>alert(1)</script><img src=x onerror=alert(2)>"
-    save_interpretation(Interpretation().with_decision("BH03-D3", StageDecision(note=note)),
-                        example_copy / "interpretation.json")
-    record = write_record(example_copy, artifacts / "record-escaped.html").path
-    page = browser.new_page()
-    dialogs: list[str] = []
-    page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
-    page.route("**/*", lambda r: r.continue_() if r.request.url.startswith(("file:", "data:", "blob:")) else r.abort())
-    page.goto(record.as_uri())
-    page.wait_for_timeout(1500)
-    assert dialogs == []
-    assert note in page.inner_text("body")  # shown as typed
-    page.close()
-
-
-def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, tmp_path: Path, artifacts: Path) -> None:
-    """OWASP XSS prevention rules 1, 2 and 3.1 (common practice): text in HTML, attributes and script JSON."""
+    One hostile record serves every field, the stage note among them (a script and an onerror image in it)."""
     from kernels_helpers.verify import verify_record
 
-    project = hostile_project(tmp_path)
-    record = write_record(project, artifacts / "record-hostile.html").path
+    project = hostile_record.project
+    record = Path(shutil.copy(hostile_record.path, artifacts / "record-hostile.html"))
     text = record.read_text(encoding="utf-8")
     v = verify_record(record, project)  # the escaped text reads back as the same text
     assert v.ok and v.shown_compared > 1000, v.to_text()
@@ -118,6 +100,7 @@ def test_markup_in_every_field_is_shown_as_text_and_runs_nothing(browser, tmp_pa
     assert dialogs == [] and errors == [] and requests == []
     assert page.evaluate("document.querySelectorAll('[data-evil], img, [onerror]').length") == 0
     body = page.inner_text("body")
+    assert PAYLOAD.split("\u2028")[0] in body  # a note of script and markup is shown as typed (up to the U+2028)
     assert body.count("data-evil") >= 8  # shown literally: names, id, set, description, note, reason, sign-off
     # every Bokeh document of the file was embedded and drawn: none was cut short by a "</script>" in its data
     docs = text.count("const docs_json = ")
@@ -140,7 +123,8 @@ def _pdf_pages(pdf: Path) -> list[str]:
 
 @pytest.mark.parametrize("paper, size", [("a4", "595.92 x 842.88|594.96 x 841.92"), ("letter", "612 x 792")])
 def test_record_pdf_has_the_numbers_digest_and_every_stage_on_paper(example_copy: Path, artifacts: Path,
-                                                                   paper: str, size: str) -> None:
+                                                                   example_record: ExampleRecord, paper: str,
+                                                                   size: str) -> None:
     """Printed with Debian chromium; read back with pdftotext (poppler-utils)."""
     if shutil.which("pdftotext") is None:  # in CI a missing tool fails, never skips (tests/run.sh installs it)
         if os.environ.get("CI"):
@@ -149,9 +133,13 @@ def test_record_pdf_has_the_numbers_digest_and_every_stage_on_paper(example_copy
     import subprocess
 
     from kernels_helpers.cli import main
+    from kernels_helpers.record import write_pdf
 
     out = artifacts / f"record-{paper}.html"
-    assert main(["record", str(example_copy), "-o", str(out), "--pdf", "--paper", paper, "-q"]) == 0
+    if paper == "a4":  # the command: record and print in one
+        assert main(["record", str(example_copy), "-o", str(out), "--pdf", "--paper", paper, "-q"]) == 0
+    else:  # the paper size is the print's alone: the suite's record of the same project, printed
+        write_pdf(shutil.copy(example_record.path, out), out.with_suffix(".pdf"), paper)
     pdf = out.with_suffix(".pdf")
     pages = _pdf_pages(pdf)
     text = "\n".join(pages)
