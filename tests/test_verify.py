@@ -8,6 +8,7 @@ import json
 import re
 import shutil
 import socket
+from collections.abc import Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -187,14 +188,31 @@ def _batch_of_three(recorded: Path, tmp_path: Path) -> Path:
     return root
 
 
+@pytest.fixture(scope="module")
+def dask_scheduler() -> Iterator[str]:
+    """One local dask cluster (2 worker processes) for the tests that verify on an existing cluster."""
+    import logging
+
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
+                      silence_logs=logging.ERROR) as cluster:
+        yield cluster.scheduler_address
+
+
 def test_batch_on_a_local_dask_cluster_gives_the_same_report_and_summary(recorded: Path, tmp_path: Path) -> None:
     from kernels_helpers.verify import Runner, verify_folder
 
     root = _batch_of_three(recorded, tmp_path)
     seen: list[tuple[int, int]] = []
     on_pool = verify_folder(root / "records", tmp_path / "pool.csv", runner=Runner(jobs=2))
-    on_dask = verify_folder(root / "records", tmp_path / "dask.csv", runner=Runner(workers=2),
-                            progress=lambda done, total, record: seen.append((done, total)))
+    assert Runner(workers=2).describe() == "a local dask cluster of 2 worker(s)"
+    with contextlib.closing(socket.socket()) as taken:  # dask's default HTTP port is taken (another cluster)
+        with contextlib.suppress(OSError):  # already taken by someone else: the same case
+            taken.bind(("127.0.0.1", 8787))
+            taken.listen()
+        on_dask = verify_folder(root / "records", tmp_path / "dask.csv", runner=Runner(workers=2),
+                                progress=lambda done, total, record: seen.append((done, total)))
     assert seen == [(1, 3), (2, 3), (3, 3)]
     assert [(r, v.to_text() if v else e) for r, v, e in on_dask] == [(r, v.to_text() if v else e)
                                                                      for r, v, e in on_pool]
@@ -202,29 +220,26 @@ def test_batch_on_a_local_dask_cluster_gives_the_same_report_and_summary(recorde
     assert [v.ok for _, v, _ in on_dask] == [True, True, False]  # r1, r3, sub/r2
 
 
-def test_a_broken_record_on_the_cluster_is_reported_and_the_others_still_verified(recorded: Path,
-                                                                                  tmp_path: Path) -> None:
+def test_a_broken_record_on_the_cluster_is_reported_and_the_others_still_verified(recorded: Path, tmp_path: Path,
+                                                                                  dask_scheduler: str) -> None:
     from kernels_helpers.verify import Runner, verify_folder
 
     root = _copy(recorded, tmp_path)
     (root / "records" / "junk.html").write_text("<html>not a record</html>", encoding="utf-8")
-    with contextlib.closing(socket.socket()) as taken:  # dask's default HTTP port is taken (another cluster)
-        with contextlib.suppress(OSError):  # already taken by someone else: the same case
-            taken.bind(("127.0.0.1", 8787))
-            taken.listen()
-        out = verify_folder(root / "records", tmp_path / "s.csv", runner=Runner(workers=1))
+    out = verify_folder(root / "records", tmp_path / "s.csv", runner=Runner(scheduler=dask_scheduler))
     by_name = {r.name: (v, e) for r, v, e in out}
     assert by_name["r1.html"][0].ok
     assert by_name["junk.html"][0] is None
     assert "not a Shearbook record (no shearbook-results block)" in by_name["junk.html"][1]
 
 
-def test_verify_command_on_a_dask_cluster(recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_verify_command_on_a_dask_cluster(recorded: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                          dask_scheduler: str) -> None:
     root = _batch_of_three(recorded, tmp_path)
     summary = tmp_path / "summary.csv"
-    assert main(["verify", str(root / "records"), "--workers", "2", "--summary", str(summary)]) == 1
+    assert main(["verify", str(root / "records"), "--scheduler", dask_scheduler, "--summary", str(summary)]) == 1
     out, err = capsys.readouterr()
-    assert err == f"Verifying the records under {root / 'records'} on a local dask cluster of 2 worker(s) ...\n"
+    assert err == f"Verifying the records under {root / 'records'} on the dask cluster at {dask_scheduler} ...\n"
     assert out.count(": MATCH - ") == 2 and out.count(": MISMATCH - ") == 1
     assert out.endswith(f"2 of 3 records match; summary table: {summary}\n")
     # -q: only the failure (the report is the runner's to gather, the printing the command's: one process will do)
