@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 import shutil
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -38,16 +38,37 @@ class ExampleRecord:
     readings_before: dict[str, bytes]
 
 
+def _made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: str,
+               make: Callable[[Path], Path]) -> Path:
+    """What ``make(folder)`` writes, made once for the whole run (every xdist worker takes the same, under a file
+    lock) in a folder of the run's base temp; returns what ``make`` returned (a path inside that folder)."""
+    from filelock import FileLock
+
+    base = tmp_path_factory.getbasetemp()
+    shared = base if worker_id == "master" else base.parent  # the run's folder, above each worker's own
+    folder, done = shared / name, shared / f"{name}.done"
+    with FileLock(str(shared / f"{name}.lock")):
+        if not done.is_file():
+            shutil.rmtree(folder, ignore_errors=True)  # what a worker that failed half-way left
+            made = make(folder)
+            done.write_text(str(made.relative_to(folder)), encoding="utf-8")
+    return folder / done.read_text(encoding="utf-8")
+
+
 @pytest.fixture(scope="session")
-def example_record(tmp_path_factory: pytest.TempPathFactory) -> ExampleRecord:
-    """One record of the unchanged example project per test process (a record takes seconds), only read by the
+def example_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> ExampleRecord:
+    """One record of the unchanged example project for the whole run (a record takes seconds), only read by the
     tests that take it: a test that changes the project or the record makes its own."""
     from kernels_helpers.record import write_record
 
-    root = tmp_path_factory.mktemp("example_record") / "example_project"
-    shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
-    before = {p.name: p.read_bytes() for p in (root / "readings").iterdir()}
-    return ExampleRecord(root, write_record(root, root / "records" / "r1.html").path, before)
+    def make(folder: Path) -> Path:
+        root = folder / "example_project"
+        shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+        return write_record(root, root / "records" / "r1.html").path
+
+    path = _made_once(tmp_path_factory, worker_id, "example_record", make)
+    before = {p.name: p.read_bytes() for p in (EXAMPLE / "readings").iterdir()}  # the copy's bytes, as copied
+    return ExampleRecord(path.parent.parent, path, before)
 
 
 @dataclass(frozen=True)
@@ -59,14 +80,18 @@ class HostileRecord:
 
 
 @pytest.fixture(scope="session")
-def hostile_record(tmp_path_factory: pytest.TempPathFactory) -> HostileRecord:
-    """One record of the hostile project per test process, only read by the tests that take it."""
+def hostile_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> HostileRecord:
+    """One record of the hostile project for the whole run, only read by the tests that take it."""
     from synthetic import hostile_project
 
     from kernels_helpers.record import write_record
 
-    project = hostile_project(tmp_path_factory.mktemp("hostile_record"))
-    return HostileRecord(project, write_record(project, project / "records" / "record-hostile.html").path)
+    def make(folder: Path) -> Path:
+        project = hostile_project(folder)
+        return write_record(project, project / "records" / "record-hostile.html").path
+
+    path = _made_once(tmp_path_factory, worker_id, "hostile_record", make)
+    return HostileRecord(path.parent.parent, path)
 
 
 @pytest.fixture(scope="session")

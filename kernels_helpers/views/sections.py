@@ -194,13 +194,22 @@ SECTIONS: dict[str, Callable[[Context], list[Part]]] = {
 
 def build_section(name: str, ctx: Context) -> list[Part]:
     """The parts of section ``name``, each figure tagged with its place."""
-    parts = SECTIONS[name](ctx)
-    for i, part in enumerate(parts):
+    return [part for part, _ in build_section_with_sources(name, ctx)]
+
+
+def build_section_with_sources(name: str, ctx: Context) -> list[tuple[Part, list[ColumnDataSource]]]:
+    """The parts of section ``name``, each figure tagged with its place and given with its data sources in their
+    tagged order (one walk of the figure's models: the walk is most of the cost of a figure's sources)."""
+    out: list[tuple[Part, list[ColumnDataSource]]] = []
+    for i, part in enumerate(SECTIONS[name](ctx)):
+        sources: list[ColumnDataSource] = []
         if isinstance(part, Model):
             part.tags = [*part.tags, f"{PART_TAG}{name}:{i}"]
-            for n, source in enumerate(sources_of(part), start=1):
+            sources = sources_of(part)
+            for n, source in enumerate(sources, start=1):
                 source.tags = [*source.tags, f"{SOURCE_TAG}{n}"]
-    return parts
+        out.append((part, sources))
+    return out
 
 
 def sources_of(part: Model) -> list[ColumnDataSource]:

@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from .sections import PART_TAG, SECTIONS, SOURCE_TAG, Context, build_section, part_html, sources_of
+from .sections import PART_TAG, SECTIONS, SOURCE_TAG, Context, build_section_with_sources, part_html
 
 __all__ = ["Shown", "compare_visible", "read_visible"]
 
@@ -197,11 +197,11 @@ def read_visible(html_text: str) -> dict[str, Shown]:
 
 def _rebuilt(name: str, ctx: Context) -> dict[int, list[Item]]:
     parts: dict[int, list[Item]] = {}
-    for i, part in enumerate(build_section(name, ctx)):
+    for i, (part, sources) in enumerate(build_section_with_sources(name, ctx)):
         if isinstance(part, str):
             parts[i] = read_visible(part_html(name, i, part, ctx.extra))[name].parts[i]
         else:  # the sources' own data, in their tagged order: no serialisation of the whole figure
-            parts[i] = [("plot", [{k: _plain(v) for k, v in s.data.items()} for s in sources_of(part)])]
+            parts[i] = [("plot", [{k: _plain(v) for k, v in s.data.items()} for s in sources])]
     return parts
 
 
