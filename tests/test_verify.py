@@ -40,13 +40,18 @@ def _copy(recorded: Path, tmp_path: Path) -> Path:
     return dst
 
 
-def _edit_results(record: Path, change) -> None:
+def _edit_block(record: Path, block: str, change) -> None:
+    """Change the record's embedded ``shearbook-{block}`` JSON in place with ``change(data)``."""
     text = record.read_text(encoding="utf-8")
-    m = re.search(r'(<script type="application/json" id="shearbook-results">)(.*?)(</script>)', text, re.S)
+    m = re.search(rf'(<script type="application/json" id="shearbook-{block}">)(.*?)(</script>)', text, re.S)
     data = json.loads(m.group(2))
     change(data)
     body = json.dumps(data).replace("<", "\\u003c")
     record.write_text(text[: m.start(2)] + body + text[m.end(2) :], encoding="utf-8")
+
+
+def _edit_results(record: Path, change) -> None:
+    _edit_block(record, "results", change)
 
 
 def test_unchanged_project_matches_bit_for_bit(recorded: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -368,15 +373,6 @@ def test_a_record_without_marked_sections_says_only_its_data_was_compared(record
     assert any("only its embedded data was compared" in n for n in v.notes)
 
 
-def _edit_interpretation(record: Path, change) -> None:
-    text = record.read_text(encoding="utf-8")
-    m = re.search(r'(<script type="application/json" id="shearbook-interpretation">)(.*?)(</script>)', text, re.S)
-    data = json.loads(m.group(2))
-    change(data)
-    body = json.dumps(data).replace("<", "\\u003c")
-    record.write_text(text[: m.start(2)] + body + text[m.end(2) :], encoding="utf-8")
-
-
 WRAP = object()  # the whole data block wrapped in a list
 
 
@@ -416,7 +412,7 @@ def test_a_damaged_or_edited_data_block_is_named_before_anything_is_compared(
         m = re.search(rf'(<script type="application/json" id="shearbook-{block}">)(.*?)(</script>)', text, re.S)
         rec.write_text(text[: m.start(2)] + "[" + m.group(2) + "]" + text[m.end(2) :], encoding="utf-8")
     else:
-        (_edit_results if block == "results" else _edit_interpretation)(rec, change)
+        _edit_block(rec, block, change)
     before = rec.read_bytes()
     assert main(["verify", str(rec)]) == 2
     err = capsys.readouterr().err
