@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import shutil
+import sys
 import tempfile
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -19,6 +20,11 @@ CHROMIUM_ARGS = [
     "--disable-component-update", "--disable-sync",
 ]
 ARTIFACTS = REPO / "test-artifacts"
+
+# As Shearbook's commands do (cli.main): without rfc3987_syntax, whose 38 grammars jsonschema builds at import
+# (over a second in every test process). The tests validate without a format checker, which never reads it;
+# test_cli checks that a command without it still reads and validates notebooks.
+sys.modules.setdefault("rfc3987_syntax", None)  # type: ignore[arg-type]  (None: "not importable", by design)
 
 
 @pytest.fixture

@@ -2,20 +2,22 @@
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
 from bokeh.layouts import gridplot
-from bokeh.models import Span
+from bokeh.model import Model
+from bokeh.models import ColumnDataSource, Span
 from bokeh.plotting import figure
 
 from ..consolidation import MM2_S_TO_M2_YR
 from ..display_units import SI, Display
 from ..results import Results, StageResult
 from . import tables
-from .figures import CRIT, INK, PEAK, SUGGESTED, TOOLS
+from .figures import CRIT, INK, PEAK, SUGGESTED, TOOLS, Plot, Sources
 
-__all__ = ["consolidation_figure", "rate_table"]
+__all__ = ["consolidation_figure", "consolidation_plot", "rate_table"]
 
 
 def _panel(title: str, x_label: str, name: str, x_axis_type: str = "linear", u: Display = SI) -> figure:
@@ -27,44 +29,76 @@ def _panel(title: str, x_label: str, name: str, x_axis_type: str = "linear", u: 
     return p
 
 
-def consolidation_figure(s: StageResult, u: Display = SI):
-    """Settlement against log time (Casagrande) and against root time (Taylor), constructions drawn."""
+def consolidation_plot(s: StageResult, u: Display = SI) -> Plot:
+    """Settlement against log time (Casagrande) and against root time (Taylor), constructions drawn.
+
+    Sources: on log time the readings, the tangent at the steepest point and the secondary branch, the
+    labels d_0, d_50 and d_100 and t_50; on root time the readings, the early line, its abscissae x 1.15
+    and t_90 (each construction only when it was made).
+    """
     c = s.consolidation
     assert c is not None
     ok = c.time_s > 0
     L = u.factor("length")
     t, d = c.time_s[ok], c.settlement_mm[ok] * L
-    log = _panel(f"{s.stage_id}: consolidation - log time (Casagrande)", "time (s, log scale)",
-                 f"consolidation-{s.stage_id}-log", "log", u)
-    log.scatter(t, d, size=4, color=INK, legend_label="readings")
+    sources: Sources = {"log:readings": {"x": t, "y": d}}
     cas = c.casagrande
     if cas is not None:
         lt = np.log10(t)
         span = np.array([lt[0], lt[-1]])
-        log.line(10**span, (cas.tangent[0] + cas.tangent[1] * span) * L, color=PEAK, line_dash="dashed",
-                 legend_label="tangent at the steepest point")
-        log.line(10**span, (cas.secondary[0] + cas.secondary[1] * span) * L, color=SUGGESTED, line_dash="dashed",
-                 legend_label="secondary branch")
+        sources["log:tangent"] = {"x": 10**span, "y": (cas.tangent[0] + cas.tangent[1] * span) * L}
+        sources["log:secondary"] = {"x": 10**span, "y": (cas.secondary[0] + cas.secondary[1] * span) * L}
         for level, label in ((cas.d0_mm, "d_0"), (cas.d50_mm, "d_50"), (cas.d100_mm, "d_100")):
-            log.add_layout(Span(location=level * L, dimension="width", line_color=CRIT, line_dash="dotted"))
-            log.text([t[0]], [level * L], text=[label], text_font_size="9px", text_color=CRIT)
-        log.add_layout(Span(location=cas.t50_s, dimension="height", line_color=CRIT))
-        log.scatter([cas.t50_s], [cas.d50_mm * L], size=9, color=CRIT, marker="diamond",
-                    legend_label=f"t_50 = {cas.t50_s:.3g} s")
-    root = _panel(f"{s.stage_id}: consolidation - root time (Taylor)", "sqrt(time) (s^0.5)",
-                  f"consolidation-{s.stage_id}-root", u=u)
+            sources[f"log:{label}"] = {"x": [t[0]], "y": [level * L], "text": [label]}
+        sources["log:t_50"] = {"x": [cas.t50_s], "y": [cas.d50_mm * L]}
     r = np.sqrt(t)
-    root.scatter(r, d, size=4, color=INK, legend_label="readings")
+    sources["root:readings"] = {"x": r, "y": d}
     tay = c.taylor
     if tay is not None:
         rr = np.array([0.0, min(r[-1], 2.0 * math.sqrt(tay.t90_s))])
-        root.line(rr, (tay.d0_mm + tay.k_mm_per_sqrt_s * rr) * L, color=PEAK, line_dash="dashed",
-                  legend_label="early line")
-        root.line(rr, (tay.d0_mm + tay.k_mm_per_sqrt_s / 1.15 * rr) * L, color=SUGGESTED, line_dash="dashed",
-                  legend_label="abscissae x 1.15")
-        root.scatter([math.sqrt(tay.t90_s)], [tay.d90_mm * L], size=9, color=CRIT, marker="diamond",
-                     legend_label=f"t_90 = {tay.t90_s:.3g} s")
-        root.x_range.end = float(rr[-1]) * 1.05
+        sources["root:early line"] = {"x": rr, "y": (tay.d0_mm + tay.k_mm_per_sqrt_s * rr) * L}
+        sources["root:x 1.15"] = {"x": rr, "y": (tay.d0_mm + tay.k_mm_per_sqrt_s / 1.15 * rr) * L}
+        sources["root:t_90"] = {"x": [math.sqrt(tay.t90_s)], "y": [tay.d90_mm * L]}
+    return Plot(sources, functools.partial(_draw_consolidation, s, u))
+
+
+def consolidation_figure(s: StageResult, u: Display = SI) -> Model:
+    """The stage's consolidation plots side by side (:func:`consolidation_plot`, drawn)."""
+    return consolidation_plot(s, u).figure()
+
+
+def _draw_consolidation(s: StageResult, u: Display, sources: Sources) -> Model:
+    c = s.consolidation
+    assert c is not None
+    cas, tay = c.casagrande, c.taylor
+    log = _panel(f"{s.stage_id}: consolidation - log time (Casagrande)", "time (s, log scale)",
+                 f"consolidation-{s.stage_id}-log", "log", u)
+    root = _panel(f"{s.stage_id}: consolidation - root time (Taylor)", "sqrt(time) (s^0.5)",
+                  f"consolidation-{s.stage_id}-root", u=u)
+    for role, columns in sources.items():
+        where, _, what = role.partition(":")
+        p, src = (log if where == "log" else root), ColumnDataSource(columns)
+        if what == "readings":
+            p.scatter("x", "y", source=src, size=4, color=INK, legend_label="readings")
+        elif what in ("tangent", "early line"):
+            p.line("x", "y", source=src, color=PEAK, line_dash="dashed",
+                   legend_label="tangent at the steepest point" if what == "tangent" else "early line")
+        elif what in ("secondary", "x 1.15"):
+            p.line("x", "y", source=src, color=SUGGESTED, line_dash="dashed",
+                   legend_label="secondary branch" if what == "secondary" else "abscissae x 1.15")
+        elif what in ("d_0", "d_50", "d_100"):
+            p.add_layout(Span(location=columns["y"][0], dimension="width", line_color=CRIT, line_dash="dotted"))
+            p.text("x", "y", text="text", source=src, text_font_size="9px", text_color=CRIT)
+        elif what == "t_50":
+            assert cas is not None
+            log.add_layout(Span(location=cas.t50_s, dimension="height", line_color=CRIT))
+            p.scatter("x", "y", source=src, size=9, color=CRIT, marker="diamond",
+                      legend_label=f"t_50 = {cas.t50_s:.3g} s")
+        else:
+            assert what == "t_90" and tay is not None
+            p.scatter("x", "y", source=src, size=9, color=CRIT, marker="diamond",
+                      legend_label=f"t_90 = {tay.t90_s:.3g} s")
+            root.x_range.end = float(sources["root:early line"]["x"][-1]) * 1.05
     for p in (log, root):
         p.legend.location = "top_right"
         p.legend.label_text_font_size = "9px"

@@ -31,17 +31,17 @@ from ..results import Results
 from ..signatures import Check, check_history
 from . import design_views as dv
 from . import tables
-from .consolidation_views import consolidation_figure, rate_table
-from .figures import DISPLAY_POINTS, envelope_figure, stage_figure
+from .consolidation_views import consolidation_plot, rate_table
+from .figures import DISPLAY_POINTS, Plot, envelope_plot, stage_plot
 from .first_page import first_page_html
-from .strength_figures import critical_state_figure, taylor_figure
+from .strength_figures import critical_state_plot, taylor_plot
 
 __all__ = ["PART_TAG", "SECTIONS", "SOURCE_TAG", "Context", "build_section", "show_section", "show_static",
            "sources_of", "use_units"]
 
 PART_TAG = "sb-part:"  # the tag on a figure's root: "sb-part:<section>:<index>"
 SOURCE_TAG = "sb-source:"  # the tag on each data source of a figure: "sb-source:<n>", in model order
-Part = str | Model
+Part = str | Plot  # HTML text, or a figure before it is drawn (its data and how to draw it)
 
 
 @dataclass(frozen=True)
@@ -104,7 +104,7 @@ def _stages(ctx: Context) -> list[Part]:
     out: list[Part] = []
     for s in ctx.results.stages:
         out.append(tables.stage_heading(s, ctx.u))
-        out.append(stage_figure(s, ctx.u))
+        out.append(stage_plot(s, ctx.u))
     return out
 
 
@@ -126,7 +126,7 @@ def _consolidation(ctx: Context) -> list[Part]:
     rule = results.settings.get("rate", {}).get("time_to_failure", "largest")
     said = ("the largest of 50 t_50, 11.6 t_90 and 12.7 t_100 that the constructions give (the cautious choice)"
             if rule == "largest" else f"t_f = {tables.esc(rule)}, as chosen in the interpretation file's settings")
-    return [*(consolidation_figure(s, ctx.u) for s in stages),
+    return [*(consolidation_plot(s, ctx.u) for s in stages),
             f"<p>Required time to failure: {said}; settings.rate.time_to_failure in the interpretation "
             "file chooses the rule the governing standard states.</p>" + rate_table(results, ctx.u)]
 
@@ -134,7 +134,7 @@ def _consolidation(ctx: Context) -> list[Part]:
 def _envelopes(ctx: Context) -> list[Part]:
     results = ctx.results
     groups = dict.fromkeys(e.group for e in results.envelopes)
-    figures: list[Part] = [envelope_figure(results, g, ctx.u) for g in groups]
+    figures: list[Part] = [envelope_plot(results, g, ctx.u) for g in groups]
     return [*figures, tables.envelope_table(results, ctx.u) + _h("Sensitivity: each stage left out in turn")
             + tables.sensitivity_table(results, ctx.u) + tables.caution_html()]
 
@@ -151,7 +151,7 @@ def _sets(ctx: Context) -> list[Part]:
 def _critical_state_line(ctx: Context) -> list[Part]:
     lines = ctx.results.critical_state_lines
     pooled = [line for line in lines if line.group.startswith("stratum ")]
-    return [*(critical_state_figure(ctx.results, line, ctx.u) for line in pooled or lines),  # dense and loose
+    return [*(critical_state_plot(ctx.results, line, ctx.u) for line in pooled or lines),  # dense and loose
             dv.critical_state_table(ctx.results, ctx.u)]
 
 
@@ -159,7 +159,7 @@ def _dilatancy(ctx: Context) -> list[Part]:
     sets: dict[str, list[str]] = {}
     for s in ctx.results.stages:
         sets.setdefault(s.test_set or "all stages", []).append(s.stage_id)
-    return [*(taylor_figure(ctx.results, ids, ctx.u) for ids in sets.values()), dv.dilatancy_table(ctx.results)]
+    return [*(taylor_plot(ctx.results, ids, ctx.u) for ids in sets.values()), dv.dilatancy_table(ctx.results)]
 
 
 def _design(ctx: Context) -> list[Part]:
@@ -192,23 +192,19 @@ SECTIONS: dict[str, Callable[[Context], list[Part]]] = {
 }
 
 
-def build_section(name: str, ctx: Context) -> list[Part]:
-    """The parts of section ``name``, each figure tagged with its place."""
-    return [part for part, _ in build_section_with_sources(name, ctx)]
-
-
-def build_section_with_sources(name: str, ctx: Context) -> list[tuple[Part, list[ColumnDataSource]]]:
-    """The parts of section ``name``, each figure tagged with its place and given with its data sources in their
-    tagged order (one walk of the figure's models: the walk is most of the cost of a figure's sources)."""
-    out: list[tuple[Part, list[ColumnDataSource]]] = []
+def build_section(name: str, ctx: Context) -> list[str | Model]:
+    """The parts of section ``name``: HTML text, and each figure drawn and tagged with its place and its data
+    sources with their order (:data:`PART_TAG`, :data:`SOURCE_TAG`)."""
+    out: list[str | Model] = []
     for i, part in enumerate(SECTIONS[name](ctx)):
-        sources: list[ColumnDataSource] = []
-        if isinstance(part, Model):
-            part.tags = [*part.tags, f"{PART_TAG}{name}:{i}"]
-            sources = sources_of(part)
-            for n, source in enumerate(sources, start=1):
+        if isinstance(part, Plot):
+            figure = part.figure()
+            figure.tags = [*figure.tags, f"{PART_TAG}{name}:{i}"]
+            for n, source in enumerate(sources_of(figure), start=1):
                 source.tags = [*source.tags, f"{SOURCE_TAG}{n}"]
-        out.append((part, sources))
+            out.append(figure)
+        else:
+            out.append(part)
     return out
 
 

@@ -22,7 +22,8 @@ from typing import Any
 
 import numpy as np
 
-from .sections import PART_TAG, SECTIONS, SOURCE_TAG, Context, build_section_with_sources, part_html
+from .figures import Plot
+from .sections import PART_TAG, SECTIONS, SOURCE_TAG, Context, part_html
 
 __all__ = ["Shown", "compare_visible", "read_visible"]
 
@@ -196,12 +197,13 @@ def read_visible(html_text: str) -> dict[str, Shown]:
 
 
 def _rebuilt(name: str, ctx: Context) -> dict[int, list[Item]]:
+    """The parts of section ``name`` as the re-run gives them; a figure as its sources' data, not drawn."""
     parts: dict[int, list[Item]] = {}
-    for i, (part, sources) in enumerate(build_section_with_sources(name, ctx)):
-        if isinstance(part, str):
+    for i, part in enumerate(SECTIONS[name](ctx)):
+        if isinstance(part, Plot):
+            parts[i] = [("plot", [{k: _plain(v) for k, v in columns.items()} for columns in part.sources.values()])]
+        else:
             parts[i] = read_visible(part_html(name, i, part, ctx.extra))[name].parts[i]
-        else:  # the sources' own data, in their tagged order: no serialisation of the whole figure
-            parts[i] = [("plot", [{k: _plain(v) for k, v in s.data.items()} for s in sources])]
     return parts
 
 
