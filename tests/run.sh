@@ -16,6 +16,10 @@ if ! command -v chromium >/dev/null 2>&1 || ! command -v pdftotext >/dev/null 2>
   else sudo apt-get update -qq && sudo apt-get install -y -qq chromium poppler-utils; fi
 fi
 
+# Python's own bytecode cache, on even where the machine turns it off: the suite starts some forty Python processes
+# (test workers, kernels, JupyterLab, commands), and each would compile Shearbook again (__pycache__ is ignored by git)
+unset PYTHONDONTWRITEBYTECODE
+
 set +e
 # one worker per core (pytest-xdist); a worker that runs dry takes tests from the other's queue
 .venv/bin/python -m pytest -n auto --dist worksteal "$@"

@@ -6,25 +6,23 @@ import functools
 import math
 
 import numpy as np
-from bokeh.layouts import gridplot
 from bokeh.model import Model
-from bokeh.models import ColumnDataSource, Span
+from bokeh.models import ColumnDataSource, GlyphRenderer, Legend, Line, Scatter, Span, Text
 from bokeh.plotting import figure
 
 from ..consolidation import MM2_S_TO_M2_YR
 from ..display_units import SI, Display
 from ..results import Results, StageResult
 from . import tables
-from .figures import CRIT, INK, PEAK, SUGGESTED, TOOLS, Plot, Sources
+from .figures import CRIT, INK, PEAK, SUGGESTED, TOOLS, Plot, Sources, _draw, linked_row
 
 __all__ = ["consolidation_figure", "consolidation_plot", "rate_table"]
 
 
 def _panel(title: str, x_label: str, name: str, x_axis_type: str = "linear", u: Display = SI) -> figure:
     p = figure(title=title, height=260, width=420, tools=TOOLS, name=name, x_axis_label=x_label,
-               y_axis_label=u.label("settlement", "length"), x_axis_type=x_axis_type)
+               y_axis_label=u.label("settlement", "length"), x_axis_type=x_axis_type, toolbar_location=None)
     p.y_range.flipped = True  # settlement downwards, as it is drawn by hand
-    p.toolbar.logo = None
     p.title.text_font_size = "11px"
     return p
 
@@ -68,6 +66,8 @@ def consolidation_figure(s: StageResult, u: Display = SI) -> Model:
 
 
 def _draw_consolidation(s: StageResult, u: Display, sources: Sources) -> Model:
+    """Each glyph drawn without the selection and mute variants (as the stage plots: nothing here selects or
+    mutes); the two plots under one toolbar."""
     c = s.consolidation
     assert c is not None
     cas, tay = c.casagrande, c.taylor
@@ -75,34 +75,36 @@ def _draw_consolidation(s: StageResult, u: Display, sources: Sources) -> Model:
                  f"consolidation-{s.stage_id}-log", "log", u)
     root = _panel(f"{s.stage_id}: consolidation - root time (Taylor)", "sqrt(time) (s^0.5)",
                   f"consolidation-{s.stage_id}-root", u=u)
+    items: dict[str, list[tuple[str, list[GlyphRenderer]]]] = {"log": [], "root": []}
     for role, columns in sources.items():
         where, _, what = role.partition(":")
         p, src = (log if where == "log" else root), ColumnDataSource(columns)
         if what == "readings":
-            p.scatter("x", "y", source=src, size=4, color=INK, legend_label="readings")
+            label, glyph = "readings", Scatter(x="x", y="y", size=4, fill_color=INK, line_color=INK)
         elif what in ("tangent", "early line"):
-            p.line("x", "y", source=src, color=PEAK, line_dash="dashed",
-                   legend_label="tangent at the steepest point" if what == "tangent" else "early line")
+            label = "tangent at the steepest point" if what == "tangent" else "early line"
+            glyph = Line(x="x", y="y", line_color=PEAK, line_dash="dashed")
         elif what in ("secondary", "x 1.15"):
-            p.line("x", "y", source=src, color=SUGGESTED, line_dash="dashed",
-                   legend_label="secondary branch" if what == "secondary" else "abscissae x 1.15")
+            label = "secondary branch" if what == "secondary" else "abscissae x 1.15"
+            glyph = Line(x="x", y="y", line_color=SUGGESTED, line_dash="dashed")
         elif what in ("d_0", "d_50", "d_100"):
             p.add_layout(Span(location=columns["y"][0], dimension="width", line_color=CRIT, line_dash="dotted"))
-            p.text("x", "y", text="text", source=src, text_font_size="9px", text_color=CRIT)
+            _draw(p, Text(x="x", y="y", text="text", text_font_size="9px", text_color=CRIT), src)
+            continue
         elif what == "t_50":
             assert cas is not None
             log.add_layout(Span(location=cas.t50_s, dimension="height", line_color=CRIT))
-            p.scatter("x", "y", source=src, size=9, color=CRIT, marker="diamond",
-                      legend_label=f"t_50 = {cas.t50_s:.3g} s")
+            label = f"t_50 = {cas.t50_s:.3g} s"
+            glyph = Scatter(x="x", y="y", size=9, fill_color=CRIT, line_color=CRIT, marker="diamond")
         else:
             assert what == "t_90" and tay is not None
-            p.scatter("x", "y", source=src, size=9, color=CRIT, marker="diamond",
-                      legend_label=f"t_90 = {tay.t90_s:.3g} s")
+            label = f"t_90 = {tay.t90_s:.3g} s"
+            glyph = Scatter(x="x", y="y", size=9, fill_color=CRIT, line_color=CRIT, marker="diamond")
             root.x_range.end = float(sources["root:early line"]["x"][-1]) * 1.05
-    for p in (log, root):
-        p.legend.location = "top_right"
-        p.legend.label_text_font_size = "9px"
-    return gridplot([[log, root]], toolbar_location="right", merge_tools=True)
+        items[where].append((label, [_draw(p, glyph, src)]))
+    for p, where in ((log, "log"), (root, "root")):
+        p.add_layout(Legend(items=items[where], location="top_right", label_text_font_size="9px"))
+    return linked_row([log, root])
 
 
 def rate_table(results: Results, u: Display = SI) -> str:
