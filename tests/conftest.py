@@ -27,6 +27,18 @@ ARTIFACTS = REPO / "test-artifacts"
 sys.modules.setdefault("rfc3987_syntax", None)  # type: ignore[arg-type]  (None: "not importable", by design)
 
 
+def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
+    """The slow tests first, the live-screen browser sessions (the longest) first of all; then the others in file
+    order. tests/run.sh hands tests to its workers one at a time (pytest-xdist ``--dist load --maxschedchunk 1``):
+    longest first, the workers finish together instead of one waiting on the other's last browser session."""
+    def rank(item: pytest.Item) -> int:
+        if item.get_closest_marker("slow") is None:
+            return 2
+        return 0 if item.get_closest_marker("browser") and "browser" in getattr(item, "fixturenames", ()) else 1
+
+    items.sort(key=rank)  # stable: file order kept within each rank
+
+
 @pytest.fixture
 def example_copy(tmp_path: Path) -> Path:
     """A copy of the example project (project file and readings only) that a test may change."""
@@ -44,7 +56,7 @@ class ExampleRecord:
     readings_before: dict[str, bytes]
 
 
-def _made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: str,
+def made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: str,
                make: Callable[[Path], Path]) -> Path:
     """What ``make(folder)`` writes, made once for the whole run (every xdist worker takes the same, under a file
     lock) in a folder of the run's base temp; returns what ``make`` returned (a path inside that folder)."""
@@ -72,7 +84,7 @@ def example_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> 
         shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
         return write_record(root, root / "records" / "r1.html").path
 
-    path = _made_once(tmp_path_factory, worker_id, "example_record", make)
+    path = made_once(tmp_path_factory, worker_id, "example_record", make)
     before = {p.name: p.read_bytes() for p in (EXAMPLE / "readings").iterdir()}  # the copy's bytes, as copied
     return ExampleRecord(path.parent.parent, path, before)
 
@@ -96,7 +108,7 @@ def hostile_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> 
         project = hostile_project(folder)
         return write_record(project, project / "records" / "record-hostile.html").path
 
-    path = _made_once(tmp_path_factory, worker_id, "hostile_record", make)
+    path = made_once(tmp_path_factory, worker_id, "hostile_record", make)
     return HostileRecord(path.parent.parent, path)
 
 

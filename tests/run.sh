@@ -21,8 +21,9 @@ fi
 unset PYTHONDONTWRITEBYTECODE
 
 set +e
-# one worker per core (pytest-xdist); a worker that runs dry takes tests from the other's queue
-.venv/bin/python -m pytest -n auto --dist worksteal "$@"
+# one worker per core (pytest-xdist), handed one test at a time, the slow ones first (tests/conftest.py): the
+# workers finish together
+.venv/bin/python -m pytest -n auto --dist load --maxschedchunk 1 "$@"
 rc=$?
 set -e
 if [ "$rc" -eq 5 ]; then

@@ -217,6 +217,7 @@ def test_the_hand_logging_templates_read_with_the_hand_logged_column_map() -> No
 
 
 @pytest.mark.notebook
+@pytest.mark.slow
 def test_the_record_of_the_hand_logged_set_states_calibrations_and_corrections(tmp_path: Path) -> None:
     from kernels_helpers.record import write_record
     from kernels_helpers.verify import verify_record

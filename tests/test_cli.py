@@ -27,6 +27,7 @@ def test_results_of_a_folder_without_project_file(tmp_path: Path, capsys: pytest
 
 
 @pytest.mark.notebook
+@pytest.mark.slow
 def test_record_command_writes_the_file_it_prints(example_copy: Path, tmp_path: Path) -> None:
     out = tmp_path / "out" / "rec.html"
     done = subprocess.run([sys.executable, "-m", "kernels_helpers.cli", "record", str(example_copy), "-o", str(out)],

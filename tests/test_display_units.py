@@ -182,6 +182,7 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
 
 
 @pytest.mark.notebook
+@pytest.mark.slow
 def test_a_us_record_shows_us_units_embeds_si_and_verifies(example_copy: Path, tmp_path: Path,
                                                            example_record: ExampleRecord) -> None:
     from kernels_helpers.record import write_record

@@ -198,6 +198,7 @@ def test_reopening_finds_the_decisions(example_copy: Path) -> None:
 
 
 @pytest.mark.notebook
+@pytest.mark.slow
 def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) -> None:
     from kernels_helpers.record import LIVE_TAG, execute_workbook, export_html
 
@@ -218,6 +219,7 @@ def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) 
 
 
 @pytest.mark.notebook
+@pytest.mark.slow
 def test_the_record_part_is_computed_on_request_from_the_live_state(example_copy: Path, tmp_path: Path) -> None:
     import nbformat
 

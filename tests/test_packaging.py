@@ -28,6 +28,8 @@ from pathlib import Path
 
 import pytest
 
+pytestmark = pytest.mark.slow  # a wheel built, installed in a new environment and run
+
 REPO = Path(__file__).resolve().parents[1]
 EXAMPLE = REPO / "example_project"
 PACKAGE = REPO / "kernels_helpers"
@@ -45,13 +47,18 @@ def test_every_subpackage_is_listed_in_pyproject() -> None:
     assert listed == on_disk | {"kernels_helpers.workbook"}
 
 
-@pytest.fixture(scope="module")
-def wheel(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    dist = tmp_path_factory.mktemp("dist")
-    subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "--quiet",
-                    "--wheel-dir", str(dist), str(REPO)], check=True, capture_output=True, timeout=300)
-    (found,) = dist.glob("shearbook-*.whl")
-    return found
+@pytest.fixture(scope="session")
+def wheel(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> Path:
+    """The checkout's wheel, built once for the run (the test processes share it)."""
+    from conftest import made_once
+
+    def build(dist: Path) -> Path:
+        subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "--quiet",
+                        "--wheel-dir", str(dist), str(REPO)], check=True, capture_output=True, timeout=300)
+        (found,) = dist.glob("shearbook-*.whl")
+        return found
+
+    return made_once(tmp_path_factory, worker_id, "wheel", build)
 
 
 def test_the_wheel_ships_the_templates_and_no_tests(wheel: Path) -> None:

@@ -34,6 +34,7 @@ def record(example_record: ExampleRecord) -> tuple[Path, str]:
     return example_record.path, example_record.path.read_text(encoding="utf-8")
 
 
+@pytest.mark.slow
 def test_template_executes_headless_without_error(example_copy: Path) -> None:
     nb = execute_workbook(example_copy, live=True)  # every cell, the live screen too
     errors = [o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"]
@@ -132,6 +133,7 @@ def test_a_bad_interpretation_file_stops_the_export_and_the_kernel(example_copy:
     assert _kernels_of_this_process() == []
 
 
+@pytest.mark.slow
 def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_record: ExampleRecord,
                                                                      example_copy: Path, tmp_path: Path) -> None:
     assert example_record.path.is_file()  # a record was written by this process

@@ -17,7 +17,7 @@ from synthetic import PAYLOAD
 if TYPE_CHECKING:
     from conftest import ExampleRecord, HostileRecord
 
-pytestmark = pytest.mark.browser
+pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
 
 def _plot_png(page, name: str) -> bytes:

@@ -198,6 +198,7 @@ def test_fingerprint_is_openssh_s(keys: dict[str, Path]) -> None:
 
 
 @pytest.mark.notebook
+@pytest.mark.slow
 def test_signoff_record_and_verify_report_each_step_signed_or_not(example_copy: Path, keys: dict[str, Path],
                                                                   tmp_path: Path,
                                                                   capsys: pytest.CaptureFixture[str]) -> None:

@@ -4,11 +4,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pytest
 from test_architecture import PACKAGE_DIR, PURE_MODULES
 
 REPO = PACKAGE_DIR.parent
 
 
+@pytest.mark.slow
 def test_the_pure_core_is_strictly_typed() -> None:
     from mypy import api  # a test extra: tests/run.sh installs it
     files = [str(PACKAGE_DIR / f"{m}.py") for m in ["__init__", *PURE_MODULES]]

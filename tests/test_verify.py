@@ -171,6 +171,7 @@ def test_signoff_command(recorded: Path, tmp_path: Path, capsys: pytest.CaptureF
     assert interp.signoff.state == "checked" and interp.signoff.history[-1]["note"] == "picks reviewed"
 
 
+@pytest.mark.slow
 def test_a_new_record_shows_what_changed_since_the_last_one(recorded: Path, tmp_path: Path) -> None:
     from kernels_helpers import save_interpretation
 
@@ -205,6 +206,7 @@ def dask_scheduler() -> Iterator[str]:
         yield cluster.scheduler_address
 
 
+@pytest.mark.slow
 def test_batch_on_a_local_dask_cluster_gives_the_same_report_and_summary(recorded: Path, tmp_path: Path) -> None:
     from kernels_helpers.verify import Runner, verify_folder
 

@@ -23,7 +23,7 @@ import pytest
 from kernels_helpers import interpret
 from kernels_helpers.cli import workbook_in_project
 
-pytestmark = pytest.mark.browser
+pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
 STAGE, EXCLUDED, REASON = "BH03-D3", "BH03-L3", "specimen disturbed on trimming (browser test)"
 SETTINGS = {  # no news prompt over the page; every cell kept in the page (no windowed notebook)

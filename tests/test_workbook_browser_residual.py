@@ -19,7 +19,7 @@ from test_workbook_browser import PLOT_BOX, _wait, choose_stage, drag_until_save
 from kernels_helpers import interpret
 from kernels_helpers.views.figures import RESIDUAL
 
-pytestmark = pytest.mark.browser
+pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
 STAGE = "R1"
 # the data of the envelope plot's residual points, as the page holds them
