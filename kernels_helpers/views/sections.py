@@ -1,10 +1,11 @@
 """The sections of the record: what a reader sees, built by one function each, shown and verified alike.
 
 Each section is a function of the results, the project and the interpretation (and, for one
-section, a notebook argument) that returns its *parts* in order: HTML text or a Bokeh layout.
-The workbook shows them with :func:`show_section`, which marks every part (an HTML part in a
-``<div data-sb-section=... data-sb-part=...>``, a figure by a tag on its root), and
-:mod:`.visible` rebuilds the same parts from a re-run to compare them with what a record shows.
+section, a notebook argument) that returns its *parts* in order: HTML text or a figure not yet
+drawn (:class:`.figures.Plot`: its data, and how to draw it). The workbook shows them with
+:func:`show_section`, which draws each figure and marks every part (an HTML part in a
+``<div data-sb-section=... data-sb-part=...>``, a figure by a tag on its root), and :mod:`.visible`
+rebuilds the same parts from a re-run to compare them with what a record shows, figures as their data.
 A section that is not in :data:`SECTIONS` (the changes since the last record, the provenance with
 its time of making) is shown but not compared: it depends on more than the results.
 """
