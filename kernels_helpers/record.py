@@ -84,8 +84,10 @@ def start_kernel(cwd: Path) -> AsyncKernelManager:
     sockets = Path(tempfile.mkdtemp(prefix=KERNEL_DIR_PREFIX))
     # kernel_dirs=[]: the kernel is this environment's own interpreter (the native "python3"), never a python3
     # kernel spec installed for the user that may point at another environment and another Shearbook.
+    # client_class: channels that wait in short slices, so a missed socket wake-up never holds a cell (kernel_client)
     km = AsyncKernelManager(kernel_name=KERNEL, transport="ipc", connection_file=str(sockets / "kernel.json"),
-                            kernel_spec_manager=KernelSpecManager(kernel_dirs=[]))
+                            kernel_spec_manager=KernelSpecManager(kernel_dirs=[]),
+                            client_class="kernels_helpers.kernel_client.SteadyKernelClient")
     try:
         run_sync(km.start_kernel)(cwd=str(cwd), extra_arguments=[f"--IPKernelApp.exec_lines={WARM_UP}"])
     except BaseException:
