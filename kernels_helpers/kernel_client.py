@@ -13,8 +13,8 @@ with that last look, so a missed wake-up costs at most one slice, and the caller
 
 from __future__ import annotations
 
-import time
 from queue import Empty
+from time import monotonic
 from typing import Any
 
 from jupyter_client.asynchronous.client import AsyncKernelClient
@@ -28,13 +28,13 @@ class SteadyChannel(AsyncZMQSocketChannel):
     """A channel whose ``get_msg`` waits in slices, so a queued message is seen within :data:`SLICE_S`."""
 
     async def get_msg(self, timeout: float | None = None) -> dict[str, Any]:  # type: ignore[override]
-        deadline = None if timeout is None else time.monotonic() + timeout
+        deadline = None if timeout is None else monotonic() + timeout
         while True:
-            left = SLICE_S if deadline is None else max(0.0, deadline - time.monotonic())
+            left = SLICE_S if deadline is None else max(0.0, deadline - monotonic())
             try:
                 return await super().get_msg(timeout=min(SLICE_S, left))
             except Empty:
-                if deadline is not None and time.monotonic() >= deadline:
+                if deadline is not None and monotonic() >= deadline:
                     raise
 
 

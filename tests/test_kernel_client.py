@@ -10,7 +10,8 @@ nothing here waits.
 from __future__ import annotations
 
 import asyncio
-from collections.abc import Iterator
+from collections.abc import Coroutine, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from queue import Empty
 from typing import Any
 
@@ -56,7 +57,7 @@ class MissesWakeUps(zmq.asyncio.Socket):
 def pair(monkeypatch: pytest.MonkeyPatch) -> Iterator[tuple[MissesWakeUps, zmq.Socket, Session, Clock]]:
     """A socket that misses wake-ups, its sending peer (inproc), a session and the test's clock."""
     clock = Clock()
-    monkeypatch.setattr(kernel_client.time, "monotonic", clock.monotonic)
+    monkeypatch.setattr(kernel_client, "monotonic", clock.monotonic)  # the module's clock only
     ctx = zmq.asyncio.Context()
     receiver = MissesWakeUps(ctx, zmq.PAIR)
     receiver.clock, receiver.waits = clock, []
@@ -71,6 +72,13 @@ def pair(monkeypatch: pytest.MonkeyPatch) -> Iterator[tuple[MissesWakeUps, zmq.S
         ctx.term()
 
 
+def _run(coro: Coroutine[Any, Any, Any]) -> Any:
+    """``coro`` on an event loop of its own thread: a worker that ran a browser test keeps Playwright's loop running
+    on its main thread, where ``asyncio.run`` is refused."""
+    with ThreadPoolExecutor(1) as pool:
+        return pool.submit(asyncio.run, coro).result()
+
+
 def _send(sender: zmq.Socket, session: Session, msg_type: str) -> str:
     msg = session.msg(msg_type, content={"status": "ok"})
     sender.send_multipart(session.serialize(msg))
@@ -80,7 +88,7 @@ def _send(sender: zmq.Socket, session: Session, msg_type: str) -> str:
 def test_a_queued_reply_is_taken_within_one_slice_though_its_wake_up_is_missed(pair: Any) -> None:
     receiver, sender, session, clock = pair
     msg_id = _send(sender, session, "execute_reply")
-    reply = asyncio.run(SteadyChannel(receiver, session).get_msg(timeout=600))  # nbclient's wait for a cell
+    reply = _run(SteadyChannel(receiver, session).get_msg(timeout=600))  # nbclient's wait for a cell
     assert reply["header"]["msg_id"] == msg_id
     assert receiver.waits == [int(SLICE_S * 1000)] and clock.now == pytest.approx(SLICE_S)
 
@@ -89,7 +97,7 @@ def test_jupyter_client_s_own_channel_holds_the_same_reply_for_the_whole_timeout
     """Why the slices: the plain channel waits once, for all of the caller's timeout (the fault, reproduced)."""
     receiver, sender, session, _clock = pair
     msg_id = _send(sender, session, "execute_reply")
-    reply = asyncio.run(AsyncZMQSocketChannel(receiver, session).get_msg(timeout=600))
+    reply = _run(AsyncZMQSocketChannel(receiver, session).get_msg(timeout=600))
     assert reply["header"]["msg_id"] == msg_id
     assert receiver.waits == [600_000]  # ten minutes before the reply already queued is seen
 
@@ -97,7 +105,7 @@ def test_jupyter_client_s_own_channel_holds_the_same_reply_for_the_whole_timeout
 def test_the_caller_s_timeout_still_ends_the_wait_with_empty(pair: Any) -> None:
     receiver, _sender, session, clock = pair
     with pytest.raises(Empty):
-        asyncio.run(SteadyChannel(receiver, session).get_msg(timeout=1.1))
+        _run(SteadyChannel(receiver, session).get_msg(timeout=1.1))
     assert clock.now == pytest.approx(1.1)  # not a slice sooner, not a slice later
     assert all(w is not None and w <= SLICE_S * 1000 for w in receiver.waits)
     assert len(receiver.waits) == 5  # 0.25 * 4, then the last 0.1
@@ -116,7 +124,7 @@ def test_a_wait_without_a_timeout_waits_in_slices_until_the_message_comes(pair: 
         _send(sender, session, "display_data")
         return await task
 
-    msg = asyncio.run(later())
+    msg = _run(later())
     assert msg["header"]["msg_type"] == "display_data"
     assert len(receiver.waits) >= 2 and set(receiver.waits) == {int(SLICE_S * 1000)}
 
