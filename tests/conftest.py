@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import sys
 import tempfile
+import time
+import uuid
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -27,16 +30,45 @@ ARTIFACTS = REPO / "test-artifacts"
 sys.modules.setdefault("rfc3987_syntax", None)  # type: ignore[arg-type]  (None: "not importable", by design)
 
 
+# The fixtures made once for the whole run (made_once): each takes seconds, and a test that needs one waits for it
+MADE_ONCE = ("example_record", "hostile_record", "example_live_run", "wheel")
+
+
 def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
-    """The slow tests first, the live-screen browser sessions (the longest) first of all; then the others in file
-    order. tests/run.sh hands tests to its workers one at a time (pytest-xdist ``--dist load --maxschedchunk 1``):
-    longest first, the workers finish together instead of one waiting on the other's last browser session."""
+    """The slow tests first, in this order: the live-screen browser sessions (the longest); then, for each shared
+    fixture made once for the run (:data:`MADE_ONCE`), the first slow test that takes it, so the workers make
+    different ones side by side instead of one waiting under the other's lock; then the other slow tests; then the
+    rest, each rank in file order. tests/run.sh hands tests to its workers one at a time (pytest-xdist ``--dist
+    load --maxschedchunk 1``): longest first, the workers finish together instead of one waiting on the other."""
+    makers: dict[str, pytest.Item] = {}
+    for item in items:
+        if item.get_closest_marker("slow") is not None:
+            for name in MADE_ONCE:
+                if name in getattr(item, "fixturenames", ()):
+                    makers.setdefault(name, item)
+
     def rank(item: pytest.Item) -> int:
         if item.get_closest_marker("slow") is None:
-            return 2
-        return 0 if item.get_closest_marker("browser") and "browser" in getattr(item, "fixturenames", ()) else 1
+            return 3
+        if item.get_closest_marker("browser") and "lab_server" in getattr(item, "fixturenames", ()):
+            return 0
+        return 1 if item in makers.values() else 2
 
     items.sort(key=rank)  # stable: file order kept within each rank
+
+
+def kernels_of_this_process() -> list[int]:
+    """Kernel processes started by this test process (Linux /proc), still alive: a record stops its own."""
+    me, found = os.getpid(), []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+            cmdline = (stat.parent / "cmdline").read_bytes()
+        except OSError:
+            continue
+        if int(fields[1]) == me and b"ipykernel" in cmdline and fields[0] != "Z":
+            found.append(int(stat.parent.name))
+    return found
 
 
 @pytest.fixture
@@ -49,11 +81,15 @@ def example_copy(tmp_path: Path) -> Path:
 
 @dataclass(frozen=True)
 class ExampleRecord:
-    """A record of an unchanged copy of the example project, and its readings' bytes before the record."""
+    """A record of an unchanged copy of the example project made by the command (``shearbook record --pdf``, in a
+    process of its own), its readings' bytes before the record, and what the command printed."""
 
     project: Path
     path: Path
     readings_before: dict[str, bytes]
+    pdf: Path | None  # the A4 print (None where no Chromium is installed: the command was run without --pdf)
+    stdout: str
+    stderr: str
 
 
 def made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: str,
@@ -76,17 +112,61 @@ def made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: st
 @pytest.fixture(scope="session")
 def example_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> ExampleRecord:
     """One record of the unchanged example project for the whole run (a record takes seconds), only read by the
-    tests that take it: a test that changes the project or the record makes its own."""
-    from kernels_helpers.record import write_record
+    tests that take it: a test that changes the project or the record makes its own. Made the way an engineer
+    makes one, by the command in a process of its own, printed to A4 in the same run (test_cli reads what it
+    printed, test_record_browser its PDF)."""
+    import subprocess
+
+    from kernels_helpers.record import find_chromium
 
     def make(folder: Path) -> Path:
         root = folder / "example_project"
         shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
-        return write_record(root, root / "records" / "r1.html").path
+        out = root / "records" / "r1.html"
+        pdf = ["--pdf", str(folder / "r1-a4.pdf"), "--paper", "a4"] if find_chromium() else []
+        done = subprocess.run([sys.executable, "-m", "kernels_helpers.cli", "record", str(root), "-o", str(out), *pdf],
+                              capture_output=True, text=True, timeout=600, check=False)
+        if done.returncode != 0:
+            raise AssertionError(f"shearbook record on the example project failed ({done.returncode}): {done.stderr}")
+        (folder / "command.stdout").write_text(done.stdout, encoding="utf-8")
+        (folder / "command.stderr").write_text(done.stderr, encoding="utf-8")
+        return out
 
     path = made_once(tmp_path_factory, worker_id, "example_record", make)
+    folder = path.parents[2]
     before = {p.name: p.read_bytes() for p in (EXAMPLE / "readings").iterdir()}  # the copy's bytes, as copied
-    return ExampleRecord(path.parent.parent, path, before)
+    pdf = folder / "r1-a4.pdf"
+    return ExampleRecord(path.parent.parent, path, before, pdf if pdf.is_file() else None,
+                         (folder / "command.stdout").read_text(encoding="utf-8"),
+                         (folder / "command.stderr").read_text(encoding="utf-8"))
+
+
+@dataclass(frozen=True)
+class LiveRun:
+    """The whole workbook template, live screen too, executed headless on an unchanged copy of the example project
+    (as JupyterLab's "run all" does); the interpretation file's bytes before it ran."""
+
+    project: Path
+    notebook: Path  # the executed notebook, outputs and widget state with it
+    interpretation_before: bytes
+
+
+@pytest.fixture(scope="session")
+def example_live_run(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> LiveRun:
+    """One headless run of the live workbook for the whole run, only read by the tests that take it."""
+    import nbformat
+
+    from kernels_helpers.record import execute_workbook
+
+    def make(folder: Path) -> Path:
+        root = folder / "example_project"
+        shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+        out = folder / "live.ipynb"
+        nbformat.write(execute_workbook(root, live=True), out)
+        return out
+
+    path = made_once(tmp_path_factory, worker_id, "example_live_run", make)
+    return LiveRun(path.parent / "example_project", path, (EXAMPLE / "interpretation.json").read_bytes())
 
 
 @dataclass(frozen=True)
@@ -134,3 +214,112 @@ def browser() -> Iterator[object]:
 def artifacts() -> Path:
     ARTIFACTS.mkdir(exist_ok=True)
     return ARTIFACTS
+
+
+# --- JupyterLab for the live-screen browser tests -----------------------------------------------------------
+
+LAB_SETTINGS = {  # no news prompt over the page; every cell kept in the page (no windowed notebook)
+    "@jupyterlab/apputils-extension/notification.jupyterlab-settings": {"fetchNews": "false"},
+    "@jupyterlab/notebook-extension/tracker.jupyterlab-settings": {"windowingMode": "none"},
+}
+
+
+@dataclass(frozen=True)
+class LabServer:
+    """One JupyterLab on 127.0.0.1 for a test worker's browser sessions, serving the worker's temp folder (every
+    test's project is under it), with configuration folders of its own."""
+
+    root: Path
+    url: str
+
+    def _api(self, method: str, path: str) -> object:
+        """A call to the server's REST API, with the XSRF cookie and header it asks of every change."""
+        import json
+        import urllib.request
+        from http.cookiejar import CookieJar
+
+        jar = CookieJar()
+        opener = urllib.request.build_opener(urllib.request.HTTPCookieProcessor(jar))
+        opener.open(f"{self.url}/lab", timeout=30).close()  # the server sets its _xsrf cookie
+        xsrf = next((c.value for c in jar if c.name == "_xsrf"), "")
+        request = urllib.request.Request(f"{self.url}/api/{path}", method=method, headers={"X-XSRFToken": xsrf})
+        with opener.open(request, timeout=30) as answer:
+            body = answer.read()
+        return json.loads(body) if body else None
+
+    @contextlib.contextmanager
+    def workbook(self, project: Path) -> Iterator[str]:
+        """The URL of ``project``'s workbook (copied into it), in a workspace of its own, so nothing an earlier
+        session opened is restored beside it; on leaving, every kernel the session started is shut down."""
+        from urllib.parse import quote
+
+        from kernels_helpers.cli import workbook_in_project
+
+        notebook = workbook_in_project(project).resolve().relative_to(self.root)
+        workspace = f"sb{uuid.uuid4().hex[:12]}"
+        try:
+            yield f"{self.url}/lab/workspaces/{workspace}/tree/{quote(notebook.as_posix())}"
+        finally:
+            sessions = self._api("GET", "sessions")
+            assert isinstance(sessions, list)
+            for session in sessions:
+                self._api("DELETE", f"sessions/{session['id']}")  # its kernel too
+            assert self._api("GET", "kernels") == [], "a kernel of the browser session outlived it"
+
+
+@contextlib.contextmanager
+def running_lab(root: Path, scratch: Path) -> Iterator[LabServer]:
+    """JupyterLab serving ``root``, with fresh configuration folders in ``scratch``; stopped by PID on leaving."""
+    import json
+    import socket
+    import subprocess
+    import urllib.request
+
+    root = root.resolve()
+    env = {**os.environ, "JUPYTER_CONFIG_DIR": str(scratch / "config"), "JUPYTER_RUNTIME_DIR": str(scratch / "runtime"),
+           "JUPYTERLAB_SETTINGS_DIR": str(scratch / "settings"),
+           "JUPYTERLAB_WORKSPACES_DIR": str(scratch / "workspaces")}
+    for rel, value in LAB_SETTINGS.items():
+        path = scratch / "settings" / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(json.dumps(value), encoding="utf-8")
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = int(s.getsockname()[1])
+    log_path = scratch / "lab.log"
+    with log_path.open("w") as log:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "jupyterlab", "--no-browser", "--ServerApp.token=", "--ServerApp.password=",
+             "--ServerApp.ip=127.0.0.1", f"--port={port}", "--ServerApp.port_retries=0",
+             f"--ServerApp.root_dir={root}", "--LabApp.expose_app_in_browser=True", "--ServerApp.allow_root=True"],
+            env=env, stdout=log, stderr=subprocess.STDOUT, cwd=root)
+        try:
+            end = time.monotonic() + 60
+            while True:
+                if proc.poll() is not None:
+                    raise AssertionError(f"JupyterLab exited: {log_path.read_text(encoding='utf-8')}")
+                try:
+                    with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/status", timeout=2) as r:
+                        if r.status == 200:
+                            break
+                except OSError:
+                    pass
+                if time.monotonic() > end:
+                    raise AssertionError(f"JupyterLab did not answer within 60 s: {log_path.read_text('utf-8')}")
+                time.sleep(0.2)
+            yield LabServer(root, f"http://127.0.0.1:{port}")
+        finally:
+            proc.terminate()
+            try:
+                proc.wait(timeout=15)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait()
+
+
+@pytest.fixture(scope="session")
+def lab_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LabServer]:
+    """Started once per worker, on its first live-screen test, and stopped at the end of the run: it serves the
+    worker's temp folder, so every test's project is under it."""
+    with running_lab(tmp_path_factory.getbasetemp(), tmp_path_factory.mktemp("jupyterlab")) as server:
+        yield server

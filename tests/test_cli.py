@@ -7,11 +7,15 @@ import re
 import subprocess
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from kernels_helpers import interpret
 from kernels_helpers.cli import main, workbook_in_project
+
+if TYPE_CHECKING:
+    from conftest import ExampleRecord
 
 
 def test_results_prints_the_same_numbers_as_interpret(example_copy: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -28,18 +32,20 @@ def test_results_of_a_folder_without_project_file(tmp_path: Path, capsys: pytest
 
 @pytest.mark.notebook
 @pytest.mark.slow
-def test_record_command_writes_the_file_it_prints(example_copy: Path, tmp_path: Path) -> None:
-    out = tmp_path / "out" / "rec.html"
-    done = subprocess.run([sys.executable, "-m", "kernels_helpers.cli", "record", str(example_copy), "-o", str(out)],
-                          capture_output=True, text=True, check=True, timeout=300)
-    assert done.stdout == f"{out.resolve()}\n"
-    assert out.stat().st_size > 100_000
-    # only Shearbook's own lines on stderr: what it does, then the flags; no library's log line or warning
-    assert done.stderr.startswith(f"Running the workbook on {example_copy.resolve()} and exporting the record ...\n")
-    assert [line for line in done.stderr.splitlines()[1:]
-            if not re.fullmatch(r"  flag: .+|\d+ flag\(s\) on included stages:", line)] == []
+def test_record_command_writes_the_files_it_prints(example_record: ExampleRecord) -> None:
+    """The suite's record is made by the command in a process of its own (conftest.example_record): what it
+    printed is the record's path, then the PDF's, on stdout, and only Shearbook's own lines on stderr."""
+    out, pdf = example_record.path, example_record.pdf
+    assert example_record.stdout == f"{out.resolve()}\n" + (f"{pdf.resolve()}\n" if pdf else "")
+    assert out.stat().st_size > 100_000 and (pdf is None or pdf.read_bytes()[:5] == b"%PDF-")
+    # what it does, then the flags; no library's log line or warning
+    lines = example_record.stderr.splitlines()
+    assert lines[0] == f"Running the workbook on {example_record.project.resolve()} and exporting the record ..."
+    said = ["Printing it to PDF (a4) with headless Chromium ..."] if pdf else []
+    assert [line for line in lines[1:] if not re.fullmatch(r"  flag: .+|\d+ flag\(s\) on included stages:", line)
+            ] == said
     for noise in ("[IPKernelApp]", "WARNING", "Warning:", "Traceback", "[I ", "[W "):
-        assert noise not in done.stdout + done.stderr
+        assert noise not in example_record.stdout + example_record.stderr
 
 
 def test_workbook_copy_points_at_its_own_project(example_copy: Path) -> None:

@@ -185,11 +185,14 @@ def test_manual_picks_are_typed_in_inches_and_stored_in_mm(example_copy: Path) -
 @pytest.mark.slow
 def test_a_us_record_shows_us_units_embeds_si_and_verifies(example_copy: Path, tmp_path: Path,
                                                            example_record: ExampleRecord) -> None:
+    from conftest import kernels_of_this_process
+
     from kernels_helpers.record import write_record
     from kernels_helpers.verify import read_record, verify_record
 
     si_results = read_record(example_record.path)[0]  # the suite's SI record of the same unchanged project
     us = write_record(example_copy, example_copy / "records" / "us.html", units="US")
+    assert kernels_of_this_process() == []  # a record stops its kernel (test_record: after a failed cell too)
     assert us.results == si_results  # the embedded results are SI and the same
     text = us.path.read_text(encoding="utf-8")
     assert "Display units: US customary (psf, in, lbf)" in text

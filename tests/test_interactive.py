@@ -10,6 +10,7 @@ from __future__ import annotations
 import html
 import json
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 from bokeh.core.serialization import Serializer
@@ -18,6 +19,9 @@ from kernels_helpers import interpret
 from kernels_helpers.decisions import Cohesion
 from kernels_helpers.pipeline import raw_file_hashes
 from kernels_helpers.views.widgets import LiveWorkbook, live_workbook
+
+if TYPE_CHECKING:
+    from conftest import LiveRun
 
 STAGE, OTHER = "BH03-D3", "BH03-L3"  # the example file leaves both as suggested and included
 
@@ -199,11 +203,12 @@ def test_reopening_finds_the_decisions(example_copy: Path) -> None:
 
 @pytest.mark.notebook
 @pytest.mark.slow
-def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) -> None:
-    from kernels_helpers.record import LIVE_TAG, execute_workbook, export_html
+def test_live_cells_run_headless_and_stay_out_of_the_record(example_live_run: LiveRun) -> None:
+    import nbformat
 
-    before = (example_copy / "interpretation.json").read_bytes()
-    nb = execute_workbook(example_copy, live=True)  # the whole template, as JupyterLab runs it
+    from kernels_helpers.record import LIVE_TAG, export_html
+
+    nb = nbformat.read(example_live_run.notebook, as_version=4)  # the whole template, as JupyterLab runs it
     live = [c for c in nb.cells if LIVE_TAG in c.metadata.get("tags", [])]
     assert live and all(o.get("output_type") != "error" for c in live for o in c.get("outputs", []))
     assert any("application/vnd.jupyter.widget-view+json" in o.get("data", {})
@@ -215,7 +220,8 @@ def test_live_cells_run_headless_and_stay_out_of_the_record(example_copy: Path) 
     record_cells = [c for c in nb.cells if c.cell_type == "code" and c not in live and "views.show_" in c.source]
     assert record_cells and all(any("application/vnd.jupyter.widget-view+json" in o.get("data", {})
                                     for o in c.get("outputs", [])) for c in record_cells)  # a placeholder each
-    assert (example_copy / "interpretation.json").read_bytes() == before  # opening the live screen writes nothing
+    after = (example_live_run.project / "interpretation.json").read_bytes()
+    assert after == example_live_run.interpretation_before  # opening the live screen writes nothing
 
 
 @pytest.mark.notebook

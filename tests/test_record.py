@@ -10,14 +10,15 @@ from typing import TYPE_CHECKING
 
 import nbformat
 import pytest
+from conftest import kernels_of_this_process
 
 from kernels_helpers import interpret
 from kernels_helpers.errors import InterpretationFileError, RecordError
-from kernels_helpers.record import execute_workbook, network_references, write_record
+from kernels_helpers.record import network_references, write_record
 from kernels_helpers.resources import workbook_template
 
 if TYPE_CHECKING:
-    from conftest import ExampleRecord, HostileRecord
+    from conftest import ExampleRecord, HostileRecord, LiveRun
 
 pytestmark = pytest.mark.notebook
 EXAMPLE = Path(__file__).resolve().parent.parent / "example_project"  # the bundled project: a record must not change it
@@ -35,8 +36,8 @@ def record(example_record: ExampleRecord) -> tuple[Path, str]:
 
 
 @pytest.mark.slow
-def test_template_executes_headless_without_error(example_copy: Path) -> None:
-    nb = execute_workbook(example_copy, live=True)  # every cell, the live screen too
+def test_template_executes_headless_without_error(example_live_run: LiveRun) -> None:
+    nb = nbformat.read(example_live_run.notebook, as_version=4)  # every cell, the live screen too
     errors = [o for c in nb.cells for o in c.get("outputs", []) if o.get("output_type") == "error"]
     assert errors == []
     assert any("injected-parameters" in c.metadata.get("tags", []) for c in nb.cells)
@@ -108,17 +109,17 @@ def test_record_does_not_touch_the_raw_readings(example_record: ExampleRecord) -
     assert example_record.path.is_file() and after == example_record.readings_before
 
 
-def _kernels_of_this_process() -> list[int]:
-    """Kernel processes started by this test process (Linux /proc), still alive."""
-    me, found = os.getpid(), []
-    for stat in Path("/proc").glob("[0-9]*/stat"):
+def _kernels_in(folder: Path) -> list[int]:
+    """Kernel processes still alive whose working folder is ``folder`` (a record's kernel runs in its project)."""
+    found = []
+    for proc in Path("/proc").glob("[0-9]*"):
         try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-            cmdline = (stat.parent / "cmdline").read_bytes()
+            cmdline, cwd = (proc / "cmdline").read_bytes(), Path(os.readlink(proc / "cwd"))
+            state = (proc / "stat").read_text().rsplit(")", 1)[1].split()[0]
         except OSError:
             continue
-        if int(fields[1]) == me and b"ipykernel" in cmdline and fields[0] != "Z":
-            found.append(int(stat.parent.name))
+        if b"ipykernel" in cmdline and cwd == folder.resolve() and state != "Z":
+            found.append(int(proc.name))
     return found
 
 
@@ -130,14 +131,16 @@ def test_a_bad_interpretation_file_stops_the_export_and_the_kernel(example_copy:
     with pytest.raises(InterpretationFileError, match=r"interpretation\.json"):
         write_record(example_copy, out)
     assert not out.exists()
-    assert _kernels_of_this_process() == []
+    assert kernels_of_this_process() == []
 
 
 @pytest.mark.slow
-def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_record: ExampleRecord,
+def test_the_kernel_is_stopped_after_the_command_s_record_and_after_a_failed_cell(example_record: ExampleRecord,
                                                                      example_copy: Path, tmp_path: Path) -> None:
-    assert example_record.path.is_file()  # a record was written by this process
-    assert _kernels_of_this_process() == []
+    # the suite's record, made by the command in a process of its own, left no kernel running in its project (the
+    # kernel's working folder), whether or not that process is still alive
+    assert example_record.path.is_file() and _kernels_in(example_record.project) == []
+    assert kernels_of_this_process() == []
     nb = nbformat.read(workbook_template(), as_version=4)
     nb.cells.insert(3, nbformat.v4.new_code_cell("raise RuntimeError('stage table is inconsistent')"))
     broken = tmp_path / "broken.ipynb"
@@ -147,7 +150,7 @@ def test_the_kernel_is_stopped_after_a_record_and_after_a_failed_cell(example_re
                                           r"stage table is inconsistent\. No record was written"):
         write_record(example_copy, out, template=broken)  # a failed cell stops the export: no record
     assert not out.exists()
-    assert _kernels_of_this_process() == []
+    assert kernels_of_this_process() == []
 
 
 def test_the_record_opens_with_its_summary_and_no_notebook_instructions(record: tuple[Path, str]) -> None:

@@ -1,4 +1,5 @@
-"""The live workbook in a real browser: JupyterLab started here, Debian chromium driven by Playwright.
+"""The live workbook in a real browser: JupyterLab started here (conftest.lab_server), Debian chromium driven by
+Playwright.
 
 Opens the project's workbook on a copy of the example project, runs all cells, drags a peak marker,
 excludes a stage with a reason in the table, and checks the interpretation file on disk and the
@@ -7,37 +8,22 @@ phi' shown in the page against ``interpret`` on that file.
 
 from __future__ import annotations
 
-import contextlib
 import json
-import os
-import socket
-import subprocess
-import sys
 import time
-import urllib.request
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 
 from kernels_helpers import interpret
-from kernels_helpers.cli import workbook_in_project
+
+if TYPE_CHECKING:
+    from conftest import LabServer
 
 pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
 STAGE, EXCLUDED, REASON = "BH03-D3", "BH03-L3", "specimen disturbed on trimming (browser test)"
-SETTINGS = {  # no news prompt over the page; every cell kept in the page (no windowed notebook)
-    "@jupyterlab/apputils-extension/notification.jupyterlab-settings": {"fetchNews": "false"},
-    "@jupyterlab/notebook-extension/tracker.jupyterlab-settings": {"windowingMode": "none"},
-}
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 def _wait(check: Callable[[], object], timeout_s: float, what: str) -> object:
     end = time.monotonic() + timeout_s
     while time.monotonic() < end:
@@ -48,48 +34,9 @@ def _wait(check: Callable[[], object], timeout_s: float, what: str) -> object:
     raise AssertionError(f"timed out after {timeout_s} s waiting for {what}")
 
 
-@contextlib.contextmanager
-def running_lab(project: Path, scratch: Path) -> Iterator[str]:
-    """JupyterLab on 127.0.0.1 with fresh configuration dirs; yields the project workbook's URL; stops it by PID."""
-    env = {**os.environ, "JUPYTER_CONFIG_DIR": str(scratch / "config"), "JUPYTER_RUNTIME_DIR": str(scratch / "runtime"),
-           "JUPYTERLAB_SETTINGS_DIR": str(scratch / "settings"),
-           "JUPYTERLAB_WORKSPACES_DIR": str(scratch / "workspaces")}
-    for rel, value in SETTINGS.items():
-        path = scratch / "settings" / rel
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text(json.dumps(value), encoding="utf-8")
-    notebook = workbook_in_project(project)
-    port = _free_port()
-    log_path = scratch / "lab.log"
-    with log_path.open("w") as log:
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "jupyterlab", "--no-browser", "--ServerApp.token=", "--ServerApp.password=",
-             "--ServerApp.ip=127.0.0.1", f"--port={port}", "--ServerApp.port_retries=0",
-             f"--ServerApp.root_dir={project}", "--LabApp.expose_app_in_browser=True", "--ServerApp.allow_root=True"],
-            env=env, stdout=log, stderr=subprocess.STDOUT, cwd=project)
-        try:
-            def ready() -> bool:
-                if proc.poll() is not None:
-                    raise AssertionError(f"JupyterLab exited: {log_path.read_text(encoding='utf-8')}")
-                try:
-                    with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/status", timeout=2) as r:
-                        return r.status == 200
-                except OSError:
-                    return False
-            _wait(ready, 60, "JupyterLab to answer")
-            yield f"http://127.0.0.1:{port}/lab/tree/{notebook.name}"
-        finally:
-            proc.terminate()
-            try:
-                proc.wait(timeout=15)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait()
-
-
 @pytest.fixture
-def lab(tmp_path: Path, example_copy: Path) -> Iterator[str]:
-    with running_lab(example_copy, tmp_path / "jupyter") as url:
+def lab(lab_server: LabServer, example_copy: Path) -> Iterator[str]:
+    with lab_server.workbook(example_copy) as url:
         yield url
 
 
@@ -272,8 +219,8 @@ def test_one_screen_drag_previews_and_refits_at_1366_and_1920(browser, lab: str,
         page.close()
 
 
-def test_markup_in_ids_and_names_neither_runs_nor_breaks_the_live_screen(browser, tmp_path: Path,
-                                                                        artifacts: Path) -> None:
+def test_markup_in_ids_and_names_neither_runs_nor_breaks_the_live_screen(browser, lab_server: LabServer,
+                                                                        tmp_path: Path, artifacts: Path) -> None:
     """OWASP XSS rules (common practice): the live screen shows ids as text and keys its DOM by dom_key."""
     from synthetic import PAYLOAD, hostile_project
 
@@ -282,7 +229,7 @@ def test_markup_in_ids_and_names_neither_runs_nor_breaks_the_live_screen(browser
     project = hostile_project(tmp_path)
     (project / "interpretation.json").unlink()  # a fresh start: only the ids and names carry the markup
     hostile = "D1 " + PAYLOAD
-    with running_lab(project, tmp_path / "jupyter") as url:
+    with lab_server.workbook(project) as url:
         page = browser.new_page()
         dialogs: list[str] = []
         errors: list[str] = []

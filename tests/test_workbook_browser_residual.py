@@ -11,13 +11,17 @@ from __future__ import annotations
 import json
 from collections.abc import Iterator
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pytest
 from synthetic import reversal_project
-from test_workbook_browser import PLOT_BOX, _wait, choose_stage, drag_until_saved, open_and_run_all, running_lab
+from test_workbook_browser import PLOT_BOX, _wait, choose_stage, drag_until_saved, open_and_run_all
 
 from kernels_helpers import interpret
 from kernels_helpers.views.figures import RESIDUAL
+
+if TYPE_CHECKING:
+    from conftest import LabServer
 
 pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
@@ -35,8 +39,8 @@ def project(tmp_path: Path) -> Path:
 
 
 @pytest.fixture
-def lab(tmp_path: Path, project: Path) -> Iterator[str]:
-    with running_lab(project, tmp_path / "jupyter") as url:
+def lab(lab_server: LabServer, project: Path) -> Iterator[str]:
+    with lab_server.workbook(project) as url:
         yield url
 
 

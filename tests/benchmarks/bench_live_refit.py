@@ -95,7 +95,10 @@ def browser_side(root: Path, scratch: Path, repeats: int) -> None:
     refitted = f"""([before]) => {{ const now = ({titles})();
       if (now === before || now.includes('preview')) return false;
       window.__sb_env = performance.now(); return true; }}"""
-    with mod.running_lab(root, scratch) as url, sync_playwright() as pw, tempfile.TemporaryDirectory() as profile:
+    from conftest import running_lab
+
+    with running_lab(root.parent, scratch) as lab, lab.workbook(root) as url, sync_playwright() as pw, \
+            tempfile.TemporaryDirectory() as profile:
         ctx = pw.chromium.launch_persistent_context(profile, executable_path="/usr/bin/chromium", headless=True,
                                                     args=CHROMIUM_ARGS, viewport={"width": 1366, "height": 768})
         page = ctx.new_page()
