@@ -31,7 +31,7 @@ sys.modules.setdefault("rfc3987_syntax", None)  # type: ignore[arg-type]  (None:
 
 
 # The fixtures made once for the whole run (made_once): each takes seconds, and a test that needs one waits for it
-MADE_ONCE = ("example_record", "hostile_record", "example_live_run", "wheel")
+MADE_ONCE = ("example_record", "hostile_record", "example_live_run", "wheel", "probes")
 
 
 def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
@@ -141,14 +141,24 @@ def example_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> 
                          (folder / "command.stderr").read_text(encoding="utf-8"))
 
 
+# What the live screen's "compute the record part" button does, then an edit on the live screen; first, the
+# interpretation file's digest as the live screen left it on opening (before anything is asked of it)
+LIVE_REQUEST = (
+    "import hashlib\n"
+    "print('opened on', hashlib.sha256(live.controller.path.read_bytes()).hexdigest())\n"
+    "live.record_part.compute()\nprint(live.record_part.stamp.value)\n"
+    "live.controller.author = 'T. Tester'\nlive.controller.exclude('BH03-L3', 'disturbed')\n"
+    "print(live.record_part.stamp.value)")
+
+
 @dataclass(frozen=True)
 class LiveRun:
     """The whole workbook template, live screen too, executed headless on an unchanged copy of the example project
-    (as JupyterLab's "run all" does); the interpretation file's bytes before it ran."""
+    (as JupyterLab's "run all" does), then one more cell of the live screen: :data:`LIVE_REQUEST`."""
 
     project: Path
     notebook: Path  # the executed notebook, outputs and widget state with it
-    interpretation_before: bytes
+    interpretation_before: bytes  # the project's interpretation file before the run
 
 
 @pytest.fixture(scope="session")
@@ -156,13 +166,18 @@ def example_live_run(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -
     """One headless run of the live workbook for the whole run, only read by the tests that take it."""
     import nbformat
 
-    from kernels_helpers.record import execute_workbook
+    from kernels_helpers.record import LIVE_TAG, execute_workbook
+    from kernels_helpers.resources import workbook_template
 
     def make(folder: Path) -> Path:
         root = folder / "example_project"
         shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+        nb = nbformat.read(workbook_template(), as_version=4)
+        nb.cells.append(nbformat.v4.new_code_cell(LIVE_REQUEST, metadata={"tags": [LIVE_TAG]}))
+        template = folder / "with_request.ipynb"
+        nbformat.write(nb, template)
         out = folder / "live.ipynb"
-        nbformat.write(execute_workbook(root, live=True), out)
+        nbformat.write(execute_workbook(root, template=template, live=True), out)
         return out
 
     path = made_once(tmp_path_factory, worker_id, "example_live_run", make)

@@ -98,16 +98,27 @@ def _probe_forked(modules: list[str], forbidden: tuple[str, ...]) -> Probes:
     return {m: (rc, json.dumps(found), err) for m, (rc, found, err) in answers.items()}
 
 
-@pytest.fixture(scope="module")
-def probes() -> Probes:
-    jobs: dict[str, tuple[str, tuple[str, ...]]] = {}
-    # a control: the probe must be able to fail (json is imported by the probe itself)
-    jobs["control"] = ("kernels_helpers.units", ("json",))
-    for m in LIGHT_MODULES:  # these must not even load the numerical stack: fresh interpreters
-        jobs[f"light:{m}"] = (m, HEAVY)
-    return {**_probe_all(jobs), **_probe_forked(MODULES, FORBIDDEN)}
+@pytest.fixture(scope="session")
+def probes(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> Probes:
+    """Every probe's answer, probed once for the run (the tests of this module may go to different workers)."""
+    from conftest import made_once
+
+    def probe(folder: Path) -> Path:
+        jobs: dict[str, tuple[str, tuple[str, ...]]] = {}
+        # a control: the probe must be able to fail (json is imported by the probe itself)
+        jobs["control"] = ("kernels_helpers.units", ("json",))
+        for m in LIGHT_MODULES:  # these must not even load the numerical stack: fresh interpreters
+            jobs[f"light:{m}"] = (m, HEAVY)
+        folder.mkdir(parents=True)
+        answers = folder / "probes.json"
+        answers.write_text(json.dumps({**_probe_all(jobs), **_probe_forked(MODULES, FORBIDDEN)}), encoding="utf-8")
+        return answers
+
+    found = json.loads(made_once(tmp_path_factory, worker_id, "import_probes", probe).read_text(encoding="utf-8"))
+    return {key: (rc, out, err) for key, (rc, out, err) in found.items()}
 
 
+@pytest.mark.slow  # it makes the probes (seconds), early, on a worker of its own (conftest.MADE_ONCE)
 def test_the_preloaded_numerical_stack_loads_no_display_package(probes: Probes) -> None:
     returncode, stdout, stderr = probes["(preload)"]
     assert returncode == 0, stderr

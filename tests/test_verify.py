@@ -196,12 +196,13 @@ def _batch_of_three(recorded: Path, tmp_path: Path) -> Path:
 
 @pytest.fixture(scope="module")
 def dask_scheduler() -> Iterator[str]:
-    """One local dask cluster (2 worker processes) for the tests that verify on an existing cluster."""
+    """One local dask cluster for the tests that verify on an existing cluster: one worker process is enough for
+    them (the local cluster of two that Runner starts itself is the next test's)."""
     import logging
 
     from distributed import LocalCluster
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
                       silence_logs=logging.ERROR) as cluster:
         yield cluster.scheduler_address
 
