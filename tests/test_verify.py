@@ -213,7 +213,8 @@ def test_batch_on_a_local_dask_cluster_gives_the_same_report_and_summary(recorde
 
     root = _batch_of_three(recorded, tmp_path)
     seen: list[tuple[int, int]] = []
-    on_pool = verify_folder(root / "records", tmp_path / "pool.csv", runner=Runner(jobs=2))
+    # against a pool of one local process (a pool of two is the batch command's test, --jobs 2)
+    on_pool = verify_folder(root / "records", tmp_path / "pool.csv", runner=Runner(jobs=1))
     assert Runner(workers=2).describe() == "a local dask cluster of 2 worker(s)"
     with contextlib.closing(socket.socket()) as taken:  # dask's default HTTP port is taken (another cluster)
         with contextlib.suppress(OSError):  # already taken by someone else: the same case
