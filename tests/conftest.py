@@ -57,18 +57,58 @@ def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
     items.sort(key=rank)  # stable: file order kept within each rank
 
 
-def kernels_of_this_process() -> list[int]:
-    """Kernel processes started by this test process (Linux /proc), still alive: a record stops its own."""
-    me, found = os.getpid(), []
+@dataclass(frozen=True)
+class Process:
+    """A live process as Linux /proc shows it (zombies left out)."""
+
+    pid: int
+    ppid: int
+    session: int
+    cmdline: str
+    cwd: Path | None  # None where it cannot be read (another user's process, or gone meanwhile)
+
+
+def live_processes() -> list[Process]:
+    """Every live process of the machine (Linux /proc), read once."""
+    found = []
     for stat in Path("/proc").glob("[0-9]*/stat"):
         try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-            cmdline = (stat.parent / "cmdline").read_bytes()
+            fields = stat.read_text().rsplit(")", 1)[1].split()  # fields[0]: state, [1]: parent, [3]: session
+            cmdline = (stat.parent / "cmdline").read_bytes().replace(b"\0", b" ").decode(errors="replace").strip()
         except OSError:
             continue
-        if int(fields[1]) == me and b"ipykernel" in cmdline and fields[0] != "Z":
-            found.append(int(stat.parent.name))
+        try:
+            cwd: Path | None = Path(os.readlink(stat.parent / "cwd"))
+        except OSError:
+            cwd = None
+        if fields[0] != "Z":
+            found.append(Process(int(stat.parent.name), int(fields[1]), int(fields[3]), cmdline, cwd))
     return found
+
+
+def kernels_of_this_process() -> list[int]:
+    """Kernel processes started by this test process, still alive: a record stops its own."""
+    return [p.pid for p in live_processes() if p.ppid == os.getpid() and "ipykernel" in p.cmdline]
+
+
+def free_port() -> int:
+    """A TCP port on 127.0.0.1 that nothing listens on now."""
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def wait_until(check: Callable[[], object], timeout_s: float, what: str) -> object:
+    """``check()``'s first true answer, asked every 0.2 s; an AssertionError naming ``what`` after ``timeout_s``."""
+    end = time.monotonic() + timeout_s
+    while time.monotonic() < end:
+        value = check()
+        if value:
+            return value
+        time.sleep(0.2)
+    raise AssertionError(f"timed out after {timeout_s} s waiting for {what}")
 
 
 @pytest.fixture
@@ -286,7 +326,6 @@ class LabServer:
 def running_lab(root: Path, scratch: Path) -> Iterator[LabServer]:
     """JupyterLab serving ``root``, with fresh configuration folders in ``scratch``; stopped by PID on leaving."""
     import json
-    import socket
     import subprocess
     import urllib.request
 
@@ -298,9 +337,7 @@ def running_lab(root: Path, scratch: Path) -> Iterator[LabServer]:
         path = scratch / "settings" / rel
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(json.dumps(value), encoding="utf-8")
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        port = int(s.getsockname()[1])
+    port = free_port()
     log_path = scratch / "lab.log"
     with log_path.open("w") as log:
         proc = subprocess.Popen(
@@ -309,19 +346,15 @@ def running_lab(root: Path, scratch: Path) -> Iterator[LabServer]:
              f"--ServerApp.root_dir={root}", "--LabApp.expose_app_in_browser=True", "--ServerApp.allow_root=True"],
             env=env, stdout=log, stderr=subprocess.STDOUT, cwd=root)
         try:
-            end = time.monotonic() + 60
-            while True:
+            def ready() -> bool:
                 if proc.poll() is not None:
                     raise AssertionError(f"JupyterLab exited: {log_path.read_text(encoding='utf-8')}")
                 try:
                     with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/status", timeout=2) as r:
-                        if r.status == 200:
-                            break
+                        return r.status == 200
                 except OSError:
-                    pass
-                if time.monotonic() > end:
-                    raise AssertionError(f"JupyterLab did not answer within 60 s: {log_path.read_text('utf-8')}")
-                time.sleep(0.2)
+                    return False
+            wait_until(ready, 60, "JupyterLab to answer")
             yield LabServer(root, f"http://127.0.0.1:{port}")
         finally:
             proc.terminate()

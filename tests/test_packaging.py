@@ -27,6 +27,7 @@ import zipfile
 from pathlib import Path
 
 import pytest
+from conftest import free_port, live_processes
 
 pytestmark = pytest.mark.slow  # a wheel built, installed in a new environment and run
 
@@ -126,31 +127,9 @@ def test_the_installed_wheel_runs_results_record_verify_and_open_outside_the_che
     _open_starts(fresh_env, project)
 
 
-def _free_port() -> int:
-    import socket
-
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-def _session_processes(session: int) -> list[str]:
-    """The live processes of a session (Linux /proc): the command lines of those still running in it."""
-    found = []
-    for stat in Path("/proc").glob("[0-9]*/stat"):
-        try:
-            fields = stat.read_text().rsplit(")", 1)[1].split()
-            cmdline = (stat.parent / "cmdline").read_bytes().replace(b"\0", b" ").decode(errors="replace")
-        except OSError:
-            continue
-        if int(fields[3]) == session and fields[0] != "Z":  # fields[3]: the session id
-            found.append(cmdline.strip())
-    return found
-
-
 def _open_starts(env: Path, project: Path) -> None:
     """``shearbook open`` copies the workbook, serves it, and prints only its own two lines."""
-    port = _free_port()
+    port = free_port()
     scratch = project.parent
     env_vars = {**_environment(env), "JUPYTER_RUNTIME_DIR": str(scratch / "jrun"),
                 "JUPYTER_CONFIG_DIR": str(scratch / "jcfg"),
@@ -175,7 +154,8 @@ def _open_starts(env: Path, project: Path) -> None:
     finally:
         server.send_signal(signal.SIGTERM)  # to the command alone, as a process manager or `kill PID` does
         server.wait(timeout=60)
-        left = _session_processes(server.pid)  # its JupyterLab and kernels went with it: no orphan holds the port
+        # its JupyterLab and kernels went with it: no orphan holds the port
+        left = [p.cmdline for p in live_processes() if p.session == server.pid]
         if left:  # (an orphan would also hold the pipes open: reading them would never end)
             os.killpg(server.pid, signal.SIGKILL)
         out, err = server.stdout.read(), server.stderr.read()  # read(), not communicate(): readline() buffered

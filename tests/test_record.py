@@ -3,14 +3,13 @@
 from __future__ import annotations
 
 import json
-import os
 import re
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import nbformat
 import pytest
-from conftest import kernels_of_this_process
+from conftest import kernels_of_this_process, live_processes
 
 from kernels_helpers import interpret
 from kernels_helpers.errors import InterpretationFileError, RecordError
@@ -111,16 +110,7 @@ def test_record_does_not_touch_the_raw_readings(example_record: ExampleRecord) -
 
 def _kernels_in(folder: Path) -> list[int]:
     """Kernel processes still alive whose working folder is ``folder`` (a record's kernel runs in its project)."""
-    found = []
-    for proc in Path("/proc").glob("[0-9]*"):
-        try:
-            cmdline, cwd = (proc / "cmdline").read_bytes(), Path(os.readlink(proc / "cwd"))
-            state = (proc / "stat").read_text().rsplit(")", 1)[1].split()[0]
-        except OSError:
-            continue
-        if b"ipykernel" in cmdline and cwd == folder.resolve() and state != "Z":
-            found.append(int(proc.name))
-    return found
+    return [p.pid for p in live_processes() if "ipykernel" in p.cmdline and p.cwd == folder.resolve()]
 
 
 def test_a_bad_interpretation_file_stops_the_export_and_the_kernel(example_copy: Path, tmp_path: Path) -> None:

@@ -9,12 +9,12 @@ phi' shown in the page against ``interpret`` on that file.
 from __future__ import annotations
 
 import json
-import time
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import pytest
+from conftest import wait_until
 
 from kernels_helpers import interpret
 
@@ -24,16 +24,6 @@ if TYPE_CHECKING:
 pytestmark = [pytest.mark.browser, pytest.mark.slow]
 
 STAGE, EXCLUDED, REASON = "BH03-D3", "BH03-L3", "specimen disturbed on trimming (browser test)"
-def _wait(check: Callable[[], object], timeout_s: float, what: str) -> object:
-    end = time.monotonic() + timeout_s
-    while time.monotonic() < end:
-        value = check()
-        if value:
-            return value
-        time.sleep(0.2)
-    raise AssertionError(f"timed out after {timeout_s} s waiting for {what}")
-
-
 @pytest.fixture
 def lab(lab_server: LabServer, example_copy: Path) -> Iterator[str]:
     with lab_server.workbook(example_copy) as url:
@@ -109,7 +99,7 @@ def drag_until_saved(page, plot: str, x_from: float, y: float, x_to: float, save
         page.mouse.move(end["x"], end["y"], steps=6)
         page.mouse.up()
         try:
-            return _wait(saved, 8, what)
+            return wait_until(saved, 8, what)
         except AssertionError:
             continue
     raise AssertionError(f"{tries} drags on {plot} and still no {what}")
@@ -186,7 +176,7 @@ def test_one_screen_drag_previews_and_refits_at_1366_and_1920(browser, lab: str,
         assert saved["raw_files"], "the raw-file hashes are saved with the decisions"
         fit = interpret(example_copy).envelope("BH03 dense", "peak").chosen
         refit = f"peak: phi' {fit.phi_deg:.1f} deg, c' {fit.intercept:.1f} kPa (n = {fit.n})"
-        _wait(lambda: refit in page.evaluate(FIT_TITLES), 10, "the kernel's refit in place of the preview")
+        wait_until(lambda: refit in page.evaluate(FIT_TITLES), 10, "the kernel's refit in place of the preview")
         assert not any("preview" in t for t in page.evaluate(FIT_TITLES))
         page.screenshot(path=str(artifacts / "workbook-1366-after-drag.png"))
 
@@ -200,13 +190,14 @@ def test_one_screen_drag_previews_and_refits_at_1366_and_1920(browser, lab: str,
         row.fill(REASON)
         row.press("Enter")
         page.locator(f".sb-include-{EXCLUDED} input[type=checkbox]").click()
-        saved = _wait(lambda: _file(example_copy).get("stages", {}).get(EXCLUDED, {}).get("included") is False
+        saved = wait_until(lambda: _file(example_copy).get("stages", {}).get(EXCLUDED, {}).get("included") is False
                       and _file(example_copy), 20, "the exclusion in the interpretation file")
         assert saved["stages"][EXCLUDED]["exclusion_reason"] == REASON
         assert saved["stages"][STAGE]["peak"]["source"] == "manual"  # the drag is still there
         page.wait_for_timeout(300)
         page.screenshot(path=str(artifacts / "workbook-1920-table.png"))
-        expected = _wait(lambda: _shown_matches_file(page, example_copy), 20, "the page's phi' to match interpret()")
+        expected = wait_until(lambda: _shown_matches_file(page, example_copy), 20,
+                              "the page's phi' to match interpret()")
         results = interpret(example_copy)
         assert EXCLUDED not in results.envelope("BH03 loose", "critical_state").stage_ids
         assert any(kind == "peak" for _, kind, _ in expected)
@@ -249,7 +240,7 @@ def test_markup_in_ids_and_names_neither_runs_nor_breaks_the_live_screen(browser
             reason.fill("markup test: " + PAYLOAD)
             reason.press("Enter")
             page.locator(f".sb-include-{key} input[type=checkbox]").click()
-            saved = _wait(lambda: _file(project).get("stages", {}).get(hostile, {}).get("included") is False
+            saved = wait_until(lambda: _file(project).get("stages", {}).get(hostile, {}).get("included") is False
                           and _file(project), 20, "the exclusion of the stage with markup in its id")
             assert saved["stages"][hostile]["exclusion_reason"] == "markup test: " + PAYLOAD
             page.wait_for_timeout(500)

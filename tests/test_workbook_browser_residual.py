@@ -14,8 +14,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 import pytest
+from conftest import wait_until
 from synthetic import reversal_project
-from test_workbook_browser import PLOT_BOX, _wait, choose_stage, drag_until_saved, open_and_run_all
+from test_workbook_browser import PLOT_BOX, choose_stage, drag_until_saved, open_and_run_all
 
 from kernels_helpers import interpret
 from kernels_helpers.views.figures import RESIDUAL
@@ -82,7 +83,7 @@ def test_drag_a_residual_window_end(browser, lab: str, project: Path, artifacts:
         after = interpret(project).stage(STAGE)
         assert after.residual is not None and after.residual.source == "manual" and after.residual.chosen.reached
         assert after.residual.chosen.tau_kpa != before.residual.chosen.tau_kpa
-        shown = _wait(lambda: (p := page.evaluate(RESIDUAL_POINTS, [envelope])) != shown_before and p, 20,
+        shown = wait_until(lambda: (p := page.evaluate(RESIDUAL_POINTS, [envelope])) != shown_before and p, 20,
                       "the page's envelope plot to draw the new residual point")
         assert STAGE in shown[0]
         assert shown[1][shown[0].index(STAGE)] == pytest.approx(after.residual.chosen.tau_kpa, rel=1e-12)

@@ -53,7 +53,9 @@ def one_run(scratch: Path) -> dict[str, float]:
     config = scratch / "jupyter_config_dir"
     config.mkdir()  # the page's JupyterLab object, for reading the kernel's state
     (config / "jupyter_lab_config.json").write_text('{"LabApp": {"expose_app_in_browser": true}}', encoding="utf-8")
-    port = mod._free_port()
+    from conftest import free_port
+
+    port = free_port()
     t0 = time.monotonic()
     server = subprocess.Popen([sys.executable, "-m", "kernels_helpers.cli", "open", str(project), "--no-browser",
                                "--port", str(port)], env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
