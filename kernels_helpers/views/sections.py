@@ -18,7 +18,8 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-from bokeh.io import curdoc, show
+from bokeh.embed.notebook import notebook_content
+from bokeh.io.notebook import EXEC_MIME_TYPE, HTML_MIME_TYPE, JS_MIME_TYPE, publish_display_data
 from bokeh.model import Model
 from bokeh.model.util import collect_models
 from bokeh.models import ColumnDataSource
@@ -66,15 +67,16 @@ class Context:
 
 
 def show_static(obj: Model) -> None:
-    """Show a Bokeh layout as a static output cell.
+    """Show a Bokeh layout as a static output cell: the two outputs ``bokeh.io.show`` gives in a notebook.
 
-    ``bokeh.io.show`` adds every object it shows to the session document and walks all of that
-    document's models again on each call, so a record of thirty figures paid for the first figure
-    thirty times. A record's figures never talk back to the kernel, so the document is emptied first:
-    each call costs only its own figure.
+    ``bokeh.io.show`` also adds the object to the session's document (a walk of all its models), only
+    so that the page can talk back to the kernel; ``notebook_content`` serialises it in a document of
+    its own either way. A record's figures never talk back, so they stay out of the session's document:
+    each figure costs only its own models, once.
     """
-    curdoc().clear()
-    show(obj)
+    script, div, _ = notebook_content(obj)
+    publish_display_data({HTML_MIME_TYPE: div})
+    publish_display_data({JS_MIME_TYPE: script, EXEC_MIME_TYPE: ""}, metadata={EXEC_MIME_TYPE: {"id": obj.id}})
 
 
 def _h(text: str) -> str:
