@@ -196,14 +196,19 @@ def _batch_of_three(recorded: Path, tmp_path: Path) -> Path:
 
 @pytest.fixture(scope="module")
 def dask_scheduler() -> Iterator[str]:
-    """One local dask cluster for the tests that verify on an existing cluster: one worker process is enough for
-    them (the local cluster of two that Runner starts itself is the next test's)."""
+    """A running dask cluster for the tests that verify on an existing one, reached at its tcp:// address.
+
+    Its scheduler and one worker run on threads of this test process (no interpreter to start and import the
+    whole stack again), talking over TCP as a cluster elsewhere would: every task and result is still sent as
+    bytes. Worker processes of their own are the local cluster's test (Runner(workers=2), next).
+    """
     import logging
 
     from distributed import LocalCluster
 
-    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address="127.0.0.1:0",
-                      silence_logs=logging.ERROR) as cluster:
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, protocol="tcp", host="127.0.0.1",
+                      dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR) as cluster:
+        assert cluster.scheduler_address.startswith("tcp://127.0.0.1:")
         yield cluster.scheduler_address
 
 
