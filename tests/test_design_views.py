@@ -117,3 +117,41 @@ def test_stage_row_has_one_toolbar_working_all_three_plots() -> None:
     assert (drawn[("x", "tau")]["tau"] == [s.peak.chosen.tau_kpa]
             and drawn[("x_sug", "tau_sug")]["tau_sug"] == [s.peak.suggested.tau_kpa])
     assert list(drawn[("x", "tau")]["x"]) == [s.peak.chosen.x_mm]
+
+
+def test_a_figure_is_shown_as_bokeh_io_show_shows_it_in_a_notebook(results, monkeypatch: pytest.MonkeyPatch) -> None:
+    """show_static leaves the session's document out; the two outputs are bokeh.io.show's (Bokeh as the reference),
+    model for model, once ids, made at random, are numbered in order of appearance."""
+    import re
+
+    import bokeh.io.notebook
+    from bokeh.io import curdoc, output_notebook, reset_output, show
+
+    from kernels_helpers.views import sections
+    from kernels_helpers.views.figures import stage_figure
+
+    published: list[tuple[dict, dict | None]] = []
+    record = lambda data, metadata=None: published.append((data, metadata))  # noqa: E731
+    monkeypatch.setattr(bokeh.io.notebook, "publish_display_data", record)
+    monkeypatch.setattr(sections, "publish_display_data", record)
+    output_notebook(hide_banner=True)
+    published.clear()  # BokehJS itself, loaded by output_notebook
+
+    def numbered(outputs: list[tuple[dict, dict | None]]) -> str:
+        ids: dict[str, str] = {}
+        text = repr(outputs)
+        return re.sub(r"\bp\d+\b|[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}",
+                      lambda m: ids.setdefault(m.group(0), f"id{len(ids)}"), text)
+
+    stage = results.stages[0]
+    try:
+        show(stage_figure(stage))
+        by_bokeh = published[:]
+        published.clear()
+        curdoc().clear()
+        sections.show_static(stage_figure(stage))
+    finally:
+        reset_output()  # this test process is no notebook for the tests after this one
+    assert len(by_bokeh) == 2 and len(published) == 2  # the div, then the script that draws it
+    assert numbered(published) == numbered(by_bokeh)
+    assert curdoc().roots == []  # the session's document was left alone
