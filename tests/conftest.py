@@ -132,14 +132,15 @@ class ExampleRecord:
     stderr: str
 
 
-def made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: str,
-               make: Callable[[Path], Path]) -> Path:
+def made_once(tmp_path_factory: pytest.TempPathFactory, name: str, make: Callable[[Path], Path]) -> Path:
     """What ``make(folder)`` writes, made once for the whole run (every xdist worker takes the same, under a file
-    lock) in a folder of the run's base temp; returns what ``make`` returned (a path inside that folder)."""
+    lock) in a folder of the run's base temp; returns what ``make`` returned (a path inside that folder).
+
+    A run without workers (``-p no:xdist``, under a debugger) makes it in its own base temp."""
     from filelock import FileLock
 
     base = tmp_path_factory.getbasetemp()
-    shared = base if worker_id == "master" else base.parent  # the run's folder, above each worker's own
+    shared = base.parent if os.environ.get("PYTEST_XDIST_WORKER") else base  # the run's folder, above each worker's
     folder, done = shared / name, shared / f"{name}.done"
     with FileLock(str(shared / f"{name}.lock")):
         if not done.is_file():
@@ -150,7 +151,7 @@ def made_once(tmp_path_factory: pytest.TempPathFactory, worker_id: str, name: st
 
 
 @pytest.fixture(scope="session")
-def example_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> ExampleRecord:
+def example_record(tmp_path_factory: pytest.TempPathFactory) -> ExampleRecord:
     """One record of the unchanged example project for the whole run (a record takes seconds), only read by the
     tests that take it: a test that changes the project or the record makes its own. Made the way an engineer
     makes one, by the command in a process of its own, printed to A4 in the same run (test_cli reads what it
@@ -172,7 +173,7 @@ def example_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> 
         (folder / "command.stderr").write_text(done.stderr, encoding="utf-8")
         return out
 
-    path = made_once(tmp_path_factory, worker_id, "example_record", make)
+    path = made_once(tmp_path_factory, "example_record", make)
     folder = path.parents[2]
     before = {p.name: p.read_bytes() for p in (EXAMPLE / "readings").iterdir()}  # the copy's bytes, as copied
     pdf = folder / "r1-a4.pdf"
@@ -202,7 +203,7 @@ class LiveRun:
 
 
 @pytest.fixture(scope="session")
-def example_live_run(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> LiveRun:
+def example_live_run(tmp_path_factory: pytest.TempPathFactory) -> LiveRun:
     """One headless run of the live workbook for the whole run, only read by the tests that take it."""
     import nbformat
 
@@ -220,7 +221,7 @@ def example_live_run(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -
         nbformat.write(execute_workbook(root, template=template, live=True), out)
         return out
 
-    path = made_once(tmp_path_factory, worker_id, "example_live_run", make)
+    path = made_once(tmp_path_factory, "example_live_run", make)
     return LiveRun(path.parent / "example_project", path, (EXAMPLE / "interpretation.json").read_bytes())
 
 
@@ -233,7 +234,7 @@ class HostileRecord:
 
 
 @pytest.fixture(scope="session")
-def hostile_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> HostileRecord:
+def hostile_record(tmp_path_factory: pytest.TempPathFactory) -> HostileRecord:
     """One record of the hostile project for the whole run, only read by the tests that take it."""
     from synthetic import hostile_project
 
@@ -243,7 +244,7 @@ def hostile_record(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> 
         project = hostile_project(folder)
         return write_record(project, project / "records" / "record-hostile.html").path
 
-    path = made_once(tmp_path_factory, worker_id, "hostile_record", make)
+    path = made_once(tmp_path_factory, "hostile_record", make)
     return HostileRecord(path.parent.parent, path)
 
 

@@ -102,7 +102,7 @@ def _probe_forked(modules: list[str], forbidden: tuple[str, ...]) -> Probes:
 
 
 @pytest.fixture(scope="session")
-def probes(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> Probes:
+def probes(tmp_path_factory: pytest.TempPathFactory) -> Probes:
     """Every probe's answer, probed once for the run (the tests of this module may go to different workers)."""
     from conftest import made_once
 
@@ -119,7 +119,7 @@ def probes(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> Probes:
         answers.write_text(json.dumps({**_probe_all(jobs), **forked}), encoding="utf-8")
         return answers
 
-    found = json.loads(made_once(tmp_path_factory, worker_id, "import_probes", probe).read_text(encoding="utf-8"))
+    found = json.loads(made_once(tmp_path_factory, "import_probes", probe).read_text(encoding="utf-8"))
     return {key: (rc, out, err) for key, (rc, out, err) in found.items()}
 
 

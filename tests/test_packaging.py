@@ -49,7 +49,7 @@ def test_every_subpackage_is_listed_in_pyproject() -> None:
 
 
 @pytest.fixture(scope="session")
-def wheel(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> Path:
+def wheel(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The checkout's wheel, built once for the run (the test processes share it)."""
     from conftest import made_once
 
@@ -59,7 +59,7 @@ def wheel(tmp_path_factory: pytest.TempPathFactory, worker_id: str) -> Path:
         (found,) = dist.glob("shearbook-*.whl")
         return found
 
-    return made_once(tmp_path_factory, worker_id, "wheel", build)
+    return made_once(tmp_path_factory, "wheel", build)
 
 
 def test_the_wheel_ships_the_templates_and_no_tests(wheel: Path) -> None:
