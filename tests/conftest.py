@@ -111,12 +111,16 @@ def wait_until(check: Callable[[], object], timeout_s: float, what: str) -> obje
     raise AssertionError(f"timed out after {timeout_s} s waiting for {what}")
 
 
+def copy_example(dst: Path) -> Path:
+    """A copy of the example project at ``dst``: its files and readings, without workbooks or records."""
+    shutil.copytree(EXAMPLE, dst, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+    return dst
+
+
 @pytest.fixture
 def example_copy(tmp_path: Path) -> Path:
     """A copy of the example project (project file and readings only) that a test may change."""
-    dst = tmp_path / "example_project"
-    shutil.copytree(EXAMPLE, dst, ignore=shutil.ignore_patterns("*.ipynb", "records"))
-    return dst
+    return copy_example(tmp_path / "example_project")
 
 
 @dataclass(frozen=True)
@@ -161,8 +165,7 @@ def example_record(tmp_path_factory: pytest.TempPathFactory) -> ExampleRecord:
     from kernels_helpers.record import find_chromium
 
     def make(folder: Path) -> Path:
-        root = folder / "example_project"
-        shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+        root = copy_example(folder / "example_project")
         out = root / "records" / "r1.html"
         pdf = ["--pdf", str(folder / "r1-a4.pdf"), "--paper", "a4"] if find_chromium() else []
         done = subprocess.run([sys.executable, "-m", "kernels_helpers.cli", "record", str(root), "-o", str(out), *pdf],
@@ -211,8 +214,7 @@ def example_live_run(tmp_path_factory: pytest.TempPathFactory) -> LiveRun:
     from kernels_helpers.resources import workbook_template
 
     def make(folder: Path) -> Path:
-        root = folder / "example_project"
-        shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+        root = copy_example(folder / "example_project")
         nb = nbformat.read(workbook_template(), as_version=4)
         nb.cells.append(nbformat.v4.new_code_cell(LIVE_REQUEST, metadata={"tags": [LIVE_TAG]}))
         template = folder / "with_request.ipynb"

@@ -13,11 +13,11 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import shutil
 from pathlib import Path
 from typing import Any
 
 import pytest
+from conftest import copy_example
 from synthetic import reversal_project
 
 from kernels_helpers import Interpretation, interpret, load_project
@@ -25,8 +25,6 @@ from kernels_helpers.decisions import Cohesion
 from kernels_helpers.views.figures import Plot
 from kernels_helpers.views.sections import SECTIONS, Context, sources_of
 from kernels_helpers.views.visible import _plain
-
-EXAMPLE = Path(__file__).resolve().parents[1] / "example_project"
 
 
 def _same(a: Any, b: Any) -> bool:
@@ -49,8 +47,7 @@ def _plots(results: Any, project: Any, units: str | None) -> list[tuple[str, int
 def _awkward_example(tmp_path: Path, cohesion: Cohesion) -> tuple[Any, Any]:
     """The example with a manual critical-state window and, in the loose set, a stage excluded: two stages left
     for its critical-state line (the line through the origin), none for its peak (no distinct peak)."""
-    root = tmp_path / "example"
-    shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records", "hand_logged"))
+    root = copy_example(tmp_path / "example")
     interp = Interpretation()
     interp = dataclasses.replace(interp, settings=dataclasses.replace(
         interp.settings, fit=dataclasses.replace(interp.settings.fit, cohesion=cohesion)))

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import jsonschema
 import pytest
+from conftest import copy_example
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -233,10 +234,7 @@ def untouched() -> dict:
 @given(content=damaged(READINGS))
 def test_damaged_readings_are_an_error_or_a_stale_flag_never_a_silent_change(
         tmp_path_factory: pytest.TempPathFactory, untouched: dict, content: bytes) -> None:
-    import shutil
-
-    root = tmp_path_factory.mktemp("readings") / "p"
-    shutil.copytree(EXAMPLE, root, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+    root = copy_example(tmp_path_factory.mktemp("readings") / "p")
     (root / "readings" / "BH03-L2.csv").write_bytes(content)
     try:
         now = json.loads(interpret(root).to_json())

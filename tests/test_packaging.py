@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
 import signal
 import subprocess
 import sys
@@ -27,12 +26,11 @@ import zipfile
 from pathlib import Path
 
 import pytest
-from conftest import free_port, live_processes
+from conftest import copy_example, free_port, live_processes
 
 pytestmark = pytest.mark.slow  # a wheel built, installed in a new environment and run
 
 REPO = Path(__file__).resolve().parents[1]
-EXAMPLE = REPO / "example_project"
 PACKAGE = REPO / "kernels_helpers"
 
 
@@ -113,8 +111,7 @@ def test_the_installed_wheel_runs_results_record_verify_and_open_outside_the_che
                             "print(kernels_helpers.__file__)"], cwd=tmp_path, capture_output=True, text=True,
                            check=True).stdout.strip()
     assert Path(where).is_relative_to(fresh_env), where  # the wheel's copy, not this checkout
-    project = tmp_path / "Port Wendle project"  # a space in the path, as on many engineers' machines
-    shutil.copytree(EXAMPLE, project, ignore=shutil.ignore_patterns("*.ipynb", "records"))
+    project = copy_example(tmp_path / "Port Wendle project")  # a space in the path, as on many engineers' machines
     results = _run(fresh_env, tmp_path, "results", str(project))
     assert json.loads(results.stdout)["schema"] == "shearbook.results/1"
     # -q: not one line, so nothing the kernel or the exporters print leaks out (what a record prints without -q
